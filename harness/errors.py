@@ -1,0 +1,44 @@
+"""One exception family. The CLI turns any of these into a one-paragraph message and exit code."""
+
+from __future__ import annotations
+
+import difflib
+
+__all__ = [
+    "HarnessError",
+    "ConfigError",
+    "DataError",
+    "StoreError",
+    "EncoderInputError",
+    "closest",
+]
+
+
+class HarnessError(Exception):
+    """Base of every error the tool reports to a user (exit code 2 unless overridden)."""
+
+    exit_code = 2
+
+
+class ConfigError(HarnessError):
+    """A config file or command-line option is invalid."""
+
+
+class DataError(HarnessError):
+    """A dataset cannot be loaded or does not fit the protocol."""
+
+
+class StoreError(HarnessError):
+    """The results store is unreadable, locked, or of an unknown schema."""
+
+    exit_code = 3
+
+
+class EncoderInputError(HarnessError, ValueError):
+    """An encoder received input it cannot handle (e.g. an unseen category under ``unseen='error'``)."""
+
+
+def closest(word: str, choices) -> str:
+    """Return ``" Did you mean 'x'?"`` for the closest of ``choices``, or ``""``."""
+    match = difflib.get_close_matches(str(word), [str(c) for c in choices], n=1, cutoff=0.6)
+    return f" Did you mean '{match[0]}'?" if match else ""
