@@ -18,10 +18,21 @@ import pandas as pd
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils.validation import check_is_fitted
 
+from harness.errors import ConfigError, EncoderInputError, closest
+
 UNSEEN = -1
 MISSING = -2
 
-__all__ = ["UNSEEN", "MISSING", "CategoricalEncoder", "as_frame", "normalize_column"]
+__all__ = [
+    "UNSEEN",
+    "MISSING",
+    "CategoricalEncoder",
+    "as_frame",
+    "check_count",
+    "check_flag",
+    "check_option",
+    "normalize_column",
+]
 
 
 def as_frame(X) -> pd.DataFrame:
@@ -87,6 +98,12 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
     # --- input ---------------------------------------------------------------------------
     def _frame(self, X, *, reset: bool) -> pd.DataFrame:
         frame = as_frame(X)
+        if any(getattr(dtype, "kind", "") == "c" for dtype in frame.dtypes):
+            # scikit-learn's rule (check_array): complex numbers are no category labels
+            raise EncoderInputError(
+                f"Complex data not supported by {type(self).__name__}: category labels must be "
+                "strings, numbers or bools; got a complex column."
+            )
         if frame.shape[1] == 0:
             raise ValueError(
                 f"0 feature(s) (shape={frame.shape}) while a minimum of 1 is required."
@@ -192,3 +209,44 @@ def _lexical_argsort(uniques) -> np.ndarray:
         return np.argsort(values, kind="stable")
     except TypeError:
         return np.argsort(values.astype(str), kind="stable")
+
+
+def check_option(encoder, name: str, allowed) -> None:
+    """Raise ``ConfigError`` unless ``encoder.<name>`` is one of ``allowed``.
+
+    Parameters are checked at ``fit`` (scikit-learn's rule: ``__init__`` only stores), so a
+    bad value from a config is reported with the encoder, the allowed values and the value
+    received.
+    """
+    value = getattr(encoder, name)
+    if isinstance(value, str) and value in allowed:
+        return
+    shown = ", ".join(repr(a) for a in allowed)
+    hint = closest(value, allowed) if isinstance(value, str) else ""
+    raise ConfigError(
+        f"{type(encoder).__name__}: parameter '{name}' must be one of {shown}; "
+        f"got {value!r}.{hint}"
+    )
+
+
+def check_count(encoder, name: str, low: int, allow_none: bool = False) -> None:
+    """Raise ``ConfigError`` unless ``encoder.<name>`` is an integer >= ``low`` (or None)."""
+    value = getattr(encoder, name)
+    if value is None and allow_none:
+        return
+    if isinstance(value, (int, np.integer)) and not isinstance(value, bool) and value >= low:
+        return
+    extra = " or None" if allow_none else ""
+    raise ConfigError(
+        f"{type(encoder).__name__}: parameter '{name}' must be an integer >= {low}{extra}; "
+        f"got {value!r}."
+    )
+
+
+def check_flag(encoder, name: str) -> None:
+    """Raise ``ConfigError`` unless ``encoder.<name>`` is a bool."""
+    value = getattr(encoder, name)
+    if not isinstance(value, (bool, np.bool_)):
+        raise ConfigError(
+            f"{type(encoder).__name__}: parameter '{name}' must be true or false; got {value!r}."
+        )

@@ -1,0 +1,227 @@
+"""The work of one encoding unit: encode a fold once, then train and score every model on it.
+
+``run_unit`` is what a backend executes. It never raises for a cell's own failure: a
+failing encoder or model becomes rows with status ``failed``, ``timeout`` or
+``out-of-memory`` and the error text, so a sweep never stops on one bad cell.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+import traceback
+from dataclasses import dataclass
+from datetime import datetime, timezone
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+from threadpoolctl import threadpool_limits
+
+from harness import encoders as _encoders
+from harness import metrics as _metrics
+from harness import models as _models
+from harness._resources import CellTimeout, memory_limit, peak_rss_mb, reset_peak_rss, time_limit
+from harness.grid import SCHEMA_VERSION, Cell
+
+__all__ = ["UnitJob", "run_unit", "base_row"]
+
+
+@dataclass(frozen=True)
+class UnitJob:
+    """Everything a worker needs for one unit, apart from the dataset itself."""
+
+    cells: tuple[Cell, ...]
+    train_idx: np.ndarray
+    test_idx: np.ndarray
+    seed: int
+    primary: str
+    primary_regression: str
+    metrics: tuple[str, ...]
+    config_hash: str
+    timeout_s: float | None = None
+    memory_mb: int = 0
+
+
+def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") -> dict:
+    """The identifying part of a results row."""
+    task = dataset.task
+    return {
+        "cell_id": cell.cell_id,
+        "schema_version": SCHEMA_VERSION,
+        "config_hash": job.config_hash,
+        "dataset": cell.dataset,
+        "encoder": cell.encoder.label,
+        "model": cell.model.label,
+        "repeat": cell.repeat,
+        "fold": cell.fold,
+        "status": status,
+        "error": error,
+        "task": task,
+        "encoder_kind": cell.encoder.kind,
+        "encoder_params": json.dumps(cell.encoder.params, sort_keys=True, default=str),
+        "model_family": cell.model.family,
+        "model_params": json.dumps(cell.model.params, sort_keys=True, default=str),
+        "primary_metric": job.primary_regression if task == "regression" else job.primary,
+        "n_features_in": len(dataset.categorical) + len(dataset.numeric),
+        "n_train": len(job.train_idx),
+        "n_test": len(job.test_idx),
+        "max_cardinality": int(dataset.fingerprint.get("max_cardinality", 0) or 0),
+        "finished_at": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+    }
+
+
+def run_unit(dataset, job: UnitJob) -> list[dict]:
+    """Encode one outer fold with one encoder and fit/score every model of the unit."""
+    with threadpool_limits(1):
+        encoded = _encode(dataset, job)
+        if isinstance(encoded, list):  # the encoder failed: one row per cell
+            return encoded
+        return [_model_cell(cell, dataset, job, encoded) for cell in job.cells]
+
+
+# --------------------------------------------------------------------------- encoding
+@dataclass
+class _Encoded:
+    train: object
+    test: object
+    fit_s: float
+    transform_s: float
+    n_out: int
+    mb: float
+    peak_mb: float
+
+
+def _encoder_seed(job: UnitJob, cell: Cell) -> int:
+    return int(job.seed * 10_007 + cell.repeat * 101 + cell.fold) % (2**31 - 1)
+
+
+def _encode(dataset, job: UnitJob):
+    cell = job.cells[0]
+    cat, num = list(dataset.categorical), list(dataset.numeric)
+    X_train, X_test = dataset.X.iloc[job.train_idx], dataset.X.iloc[job.test_idx]
+    y_train = dataset.y.iloc[job.train_idx].to_numpy()
+    params = dict(cell.encoder.params)
+    try:
+        reset_peak_rss()
+        with memory_limit(job.memory_mb), time_limit(job.timeout_s):
+            enc = _encoders.build(cell.encoder.kind, **params)
+            if "random_state" in enc.get_params() and "random_state" not in params:
+                enc.set_params(random_state=_encoder_seed(job, cell))
+            t0 = time.perf_counter()
+            cat_train = enc.fit_transform(X_train[cat], y_train) if cat else None
+            t1 = time.perf_counter()
+            cat_test = enc.transform(X_test[cat]) if cat else None
+            t2 = time.perf_counter()
+            train, test = _with_numeric(cat_train, cat_test, X_train[num], X_test[num])
+    except Exception as exc:  # noqa: BLE001 - every failure becomes rows
+        status, message = _classify(exc)
+        return [base_row(c, dataset, job, status, message) for c in job.cells]
+    return _Encoded(train, test, t1 - t0, t2 - t1, train.shape[1], _megabytes(train), peak_rss_mb())
+
+
+def _with_numeric(cat_train, cat_test, num_train: pd.DataFrame, num_test: pd.DataFrame):
+    """Append numeric columns (median-imputed on the training fold) to the encoded block."""
+    medians = num_train.median(numeric_only=True).fillna(0.0)
+    n_tr = num_train.fillna(medians).to_numpy(dtype=float)
+    n_te = num_test.fillna(medians).to_numpy(dtype=float)
+    if cat_train is None:
+        return n_tr, n_te
+    if isinstance(cat_train, pd.DataFrame):  # native categoricals stay a frame
+        nf_tr = pd.DataFrame(n_tr, columns=[f"num__{c}" for c in num_train.columns], index=cat_train.index)
+        nf_te = pd.DataFrame(n_te, columns=nf_tr.columns, index=cat_test.index)
+        return pd.concat([cat_train, nf_tr], axis=1), pd.concat([cat_test, nf_te], axis=1)
+    if sp.issparse(cat_train):
+        return (
+            sp.hstack([cat_train, sp.csr_matrix(n_tr)], format="csr"),
+            sp.hstack([cat_test, sp.csr_matrix(n_te)], format="csr"),
+        )
+    return np.hstack([np.asarray(cat_train, dtype=float), n_tr]), np.hstack([np.asarray(cat_test, dtype=float), n_te])
+
+
+def _megabytes(matrix) -> float:
+    if sp.issparse(matrix):
+        return (matrix.data.nbytes + matrix.indices.nbytes + matrix.indptr.nbytes) / 2**20
+    if isinstance(matrix, pd.DataFrame):
+        return float(matrix.memory_usage(deep=False, index=False).sum()) / 2**20
+    return matrix.nbytes / 2**20
+
+
+def _classify(exc: BaseException) -> tuple[str, str]:
+    if isinstance(exc, CellTimeout):
+        return "timeout", str(exc)
+    if isinstance(exc, MemoryError):
+        return "out-of-memory", "MemoryError: the cell exceeded its memory limit (execution.cell_memory_mb)"
+    last = traceback.format_exception_only(type(exc), exc)[-1].strip()
+    return "failed", last[:2000]
+
+
+# --------------------------------------------------------------------------- models
+def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
+    family = _models.FAMILIES[cell.model.family]
+    row = base_row(cell, dataset, job, "ok")
+    row.update(encoder_fit_s=enc.fit_s, encoder_transform_s=enc.transform_s, n_features_out=enc.n_out, encoded_mb=enc.mb)
+    native = isinstance(enc.train, pd.DataFrame)
+    if native and not family.native_categorical:
+        row.update(status="not-applicable", error=f"model family '{family.name}' cannot take native categorical columns")
+        return row
+    if cell.model.max_rows is not None and len(job.train_idx) > cell.model.max_rows:
+        row.update(
+            status="skipped",
+            error=f"{len(job.train_idx)} training rows exceed models.{cell.model.label}.max_rows = {cell.model.max_rows}",
+        )
+        return row
+    train, test = enc.train, enc.test
+    if sp.issparse(train) and not family.sparse:
+        train, test = train.toarray(), test.toarray()
+    try:
+        reset_peak_rss()
+        with memory_limit(job.memory_mb), time_limit(job.timeout_s):
+            row.update(_fit_and_score(cell, dataset, job, train, test))
+        row["peak_rss_mb"] = max(peak_rss_mb(), enc.peak_mb)
+    except Exception as exc:  # noqa: BLE001
+        status, message = _classify(exc)
+        row.update(status=status, error=message)
+    if job.timeout_s and row.get("model_fit_s", 0) + enc.fit_s > job.timeout_s and row["status"] == "ok":
+        # backends without SIGALRM (Dask threads) check the limit after the fact
+        row.update(status="timeout", error=f"cell exceeded the time limit of {job.timeout_s:g} s (execution.cell_timeout_s)")
+    return row
+
+
+def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test) -> dict:
+    task = dataset.task
+    y_train = dataset.y.iloc[job.train_idx].to_numpy()
+    y_test = dataset.y.iloc[job.test_idx].to_numpy()
+    model = _models.build_model(
+        cell.model.family, task, seed=job.seed + cell.repeat, params=dict(cell.model.params), sparse_input=sp.issparse(train)
+    )
+    t0 = time.perf_counter()
+    model.fit(train, y_train)
+    t1 = time.perf_counter()
+    pred_test = _predict(model, test, task)
+    t2 = time.perf_counter()
+    pred_train = _predict(model, train, task)
+    out = {"model_fit_s": t1 - t0, "predict_s": t2 - t1}
+    classes = None
+    if task != "regression":
+        # a class missing from the training fold still counts in the test fold's metrics
+        classes = np.unique(dataset.y.to_numpy())
+        pred_test, pred_train = (_align(p, model.classes_, classes) for p in (pred_test, pred_train))
+    for name in job.metrics:
+        if name in _metrics.metrics_for(task):
+            out[name] = _metrics.score(name, task, y_test, pred_test, classes)
+    primary = job.primary_regression if task == "regression" else job.primary
+    out[f"train_{primary}"] = _metrics.score(primary, task, y_train, pred_train, classes)
+    return out
+
+
+def _align(proba: np.ndarray, seen, classes: np.ndarray) -> np.ndarray:
+    if len(seen) == len(classes):
+        return proba
+    full = np.zeros((proba.shape[0], len(classes)))
+    full[:, np.searchsorted(classes, seen)] = proba
+    return full
+
+
+def _predict(model, X, task: str):
+    return model.predict(X) if task == "regression" else model.predict_proba(X)

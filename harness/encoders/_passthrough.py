@@ -1,0 +1,76 @@
+"""The two encoders that do not turn categories into numbers: drop them, or hand them on.
+
+``DropColumns`` removes every categorical column (a baseline: the model sees only the
+numeric columns). ``NativeCategories`` passes the columns on as pandas ``category`` dtype
+for models with their own categorical split rule (LightGBM,
+``HistGradientBoosting*(categorical_features="from_dtype")``); it is the only encoder
+kind whose ``transform`` returns a DataFrame.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
+
+from harness.encoders._base import CategoricalEncoder
+
+__all__ = ["DropColumns", "NativeCategories"]
+
+
+class DropColumns(CategoricalEncoder):
+    """Drop every categorical column: ``transform`` returns an ``(n_samples, 0)`` array.
+
+    The runner then keeps the dataset's numeric columns only, which measures what the
+    categorical columns add under every other encoder.
+    """
+
+    def fit(self, X, y=None):
+        """Record the input columns. ``y`` is ignored."""
+        self._frame(X, reset=True)
+        return self
+
+    def transform(self, X):
+        """Return an empty ``(n_samples, 0)`` float64 array."""
+        frame = self._frame(X, reset=False)
+        return np.empty((frame.shape[0], 0), dtype=np.float64)
+
+    def get_feature_names_out(self, input_features=None):
+        """An empty array: no output column."""
+        check_is_fitted(self)
+        _check_feature_names_in(self, input_features)
+        return np.asarray([], dtype=object)
+
+
+class NativeCategories(CategoricalEncoder):
+    """Return the columns as pandas ``category`` dtype with categories fixed at fit.
+
+    Categories are the levels seen at fit in sorted order; a value not seen at fit and a
+    missing value both become NaN (a missing category), so a model sees the same
+    category table at fit and at predict time.
+
+    Notes
+    -----
+    The only encoder kind whose ``transform`` returns a ``pandas.DataFrame`` (whatever
+    ``set_output`` says); the index of a DataFrame input is kept.
+    """
+
+    def fit(self, X, y=None):
+        """Learn the categories of each column. ``y`` is ignored."""
+        self._fit_levels(self._frame(X, reset=True), order="lexical")
+        return self
+
+    def transform(self, X):
+        """Return a DataFrame of ``category`` columns, one per input column."""
+        frame = self._frame(X, reset=False)
+        names = self.get_feature_names_out()
+        columns = {
+            name: pd.Categorical.from_codes(np.maximum(codes, -1), categories=levels)
+            for name, codes, levels in zip(names, self._codes(frame), self.levels_)
+        }
+        return pd.DataFrame(columns, index=frame.index)
+
+    def get_feature_names_out(self, input_features=None):
+        """One output column per input column, named as the input column."""
+        check_is_fitted(self)
+        return np.asarray(_check_feature_names_in(self, input_features), dtype=object)

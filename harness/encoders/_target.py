@@ -1,0 +1,416 @@
+"""Target statistics: smoothing x statistic x target type, cross-fitted on training data.
+
+``fit`` learns one table per column from all training rows; ``transform`` always uses
+those tables. ``fit_transform`` returns *cross-fitted* training encodings: the rows
+that feed each training row's statistics are chosen by a scheme of ``_crossfit.py``,
+so that (except under ``crossfit="none"``) no row's encoding depends on its own target.
+
+Smoothing maps a level's sufficient statistics (count ``n``, target sum, sum of squared
+deviations) and the prior to one number per target column; the same rule serves the
+full-data tables and every cross-fitting scheme.
+"""
+
+from __future__ import annotations
+
+from numbers import Integral, Real
+
+import numpy as np
+from scipy.special import expit, logit
+from sklearn.model_selection import KFold, StratifiedKFold
+from sklearn.utils import check_random_state
+from sklearn.utils.multiclass import type_of_target
+from sklearn.utils.validation import (
+    _check_feature_names_in,
+    check_array,
+    check_consistent_length,
+    check_is_fitted,
+    column_or_1d,
+)
+
+from harness.encoders import _crossfit
+from harness.encoders._base import MISSING, CategoricalEncoder
+from harness.errors import ConfigError, EncoderInputError, closest
+
+__all__ = ["TargetStatistics", "smooth", "weight_of_evidence"]
+
+SMOOTHINGS = ("none", "m-estimate", "sigmoid", "empirical-bayes")
+CROSSFITS = ("none", "kfold", "loo", "ordered", "holdout")
+STATISTICS = ("mean", "woe")
+MISSING_POLICIES = ("prior", "category")
+TARGET_TYPES = ("auto", "binary", "multiclass", "continuous")
+ZERO_CELL = 0.5  # Siddiqi (2006): a zero count of goods or bads is replaced by 0.5
+
+
+# --- smoothing: statistics -> encoding ------------------------------------------------
+def smooth(n, total, sq_dev, prior, tau2, *, smoothing, m=10.0, ramp_center=20.0, ramp_width=10.0):
+    """Encode per-level (or per-row) sufficient statistics with one smoothing rule.
+
+    Parameters
+    ----------
+    n : ndarray of shape (R,)
+        Number of rows behind each statistic.
+    total, sq_dev : ndarray of shape (R, T)
+        Sum of targets; sum of squared deviations from their mean.
+    prior, tau2 : ndarray broadcastable to (R, T)
+        Prior mean and target variance (ddof 0) of the rows the statistic may use.
+    smoothing : {"none", "m-estimate", "sigmoid", "empirical-bayes"}
+        ``none``: the raw mean; ``m-estimate``: ``(total + m*prior)/(n + m)``;
+        ``sigmoid``: ``lam*mean + (1-lam)*prior`` with ``lam = 1/(1+exp(-(n-k)/f))``,
+        ``k = ramp_center``, ``f = ramp_width`` (``f = 0`` is a hard step);
+        ``empirical-bayes``: ``lam = tau2*n/(tau2*n + sq_dev/n)``, as scikit-learn's
+        ``TargetEncoder(smooth="auto")``. A statistic over no rows is the prior.
+
+    Returns
+    -------
+    ndarray of shape (R, T)
+
+    References
+    ----------
+    Cestnik, B. (1990). Estimating probabilities: a crucial task in machine learning.
+    Proc. ECAI'90, 147-149. Micci-Barreca, D. (2001). A preprocessing scheme for
+    high-cardinality categorical attributes in classification and prediction problems.
+    SIGKDD Explorations 3(1):27-32, eq. 3-4 (sigmoid) and eq. 5-6 (empirical Bayes).
+    """
+    n2 = np.asarray(n, dtype=np.float64)[:, None]
+    prior = np.broadcast_to(prior, total.shape)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mean = np.where(n2 > 0, total / n2, prior)
+        if smoothing == "none":
+            return mean
+        if smoothing == "m-estimate":
+            return np.where(n2 + m > 0, (total + m * prior) / (n2 + m), prior)
+        if smoothing == "sigmoid":
+            lam = _ramp(n2, ramp_center, ramp_width)
+        else:
+            lam = tau2 * n2 / (tau2 * n2 + sq_dev / n2)
+        # lam is NaN for n == 0, or for tau2 == 0 with no spread: the prior, as scikit-learn
+        return np.where(np.isnan(lam), prior, lam * mean + (1 - lam) * prior)
+
+
+def _ramp(n, center: float, width: float):
+    """Micci-Barreca's lambda(n); width 0 is the limit, a step of height 1/2 at n == k."""
+    if width == 0:
+        return np.where(n > center, 1.0, np.where(n == center, 0.5, 0.0))
+    return expit((n - center) / width)
+
+
+def weight_of_evidence(enc, prior, n, n_prior):
+    """Weight of evidence of a smoothed positive rate against the prior rate.
+
+    ``ln((pos_i/POS)/(neg_i/NEG)) = logit(pos_i/n_i) - logit(POS/N)``, so with
+    ``smoothing="none"`` this is Siddiqi's WoE with the positive class as his "good"
+    (sign conventions differ between texts). A zero cell (rate 0 or 1) has its zero
+    count replaced by 0.5, i.e. the rate becomes ``0.5/(n+0.5)`` or ``n/(n+0.5)``; the
+    prior gets the same adjustment with ``n_prior`` rows. A level over no rows is 0.
+
+    References
+    ----------
+    Siddiqi, N. (2006). Credit Risk Scorecards. Wiley. (0.5 zero-cell adjustment
+    recalled from memory.)
+    """
+    n2 = np.asarray(n, dtype=np.float64)[:, None]
+    rate = _adjust_zero_cell(enc, n2)
+    base = _adjust_zero_cell(np.broadcast_to(prior, enc.shape), float(n_prior))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(n2 > 0, logit(rate) - logit(base), 0.0)
+
+
+def _adjust_zero_cell(rate, n):
+    with np.errstate(divide="ignore", invalid="ignore"):
+        low, high = ZERO_CELL / (n + ZERO_CELL), n / (n + ZERO_CELL)
+    return np.where(rate <= 0, low, np.where(rate >= 1, high, rate))
+
+
+# --- parameter validation -------------------------------------------------------------
+def _check_choice(name, value, allowed):
+    if not isinstance(value, str) or value not in allowed:
+        hint = closest(value, allowed) if isinstance(value, str) else ""
+        raise ConfigError(
+            f"TargetStatistics parameter '{name}' must be one of "
+            f"{', '.join(repr(a) for a in allowed)}; got {value!r}.{hint}"
+        )
+
+
+def _check_number(name, value, *, low, high=np.inf, open_ends=""):
+    ok = isinstance(value, Real) and not isinstance(value, bool) and np.isfinite(value)
+    if ok:
+        ok = (value > low if "low" in open_ends else value >= low) and (
+            value < high if "high" in open_ends else value <= high
+        )
+    if not ok:
+        lo, hi = ("(" if "low" in open_ends else "["), (")" if "high" in open_ends else "]")
+        raise ConfigError(
+            f"TargetStatistics parameter '{name}' must be a finite number in "
+            f"{lo}{low}, {high}{hi}; got {value!r}."
+        )
+
+
+def _check_cv(cv):
+    if hasattr(cv, "split") and hasattr(cv, "get_n_splits"):
+        return
+    if not isinstance(cv, Integral) or isinstance(cv, bool) or cv < 2:
+        raise ConfigError(
+            "TargetStatistics parameter 'cv' must be an integer >= 2 or a scikit-learn "
+            f"splitter (an object with split and get_n_splits); got {cv!r}."
+        )
+
+
+class TargetStatistics(CategoricalEncoder):
+    """Target encoding: each level becomes a smoothed statistic of the target.
+
+    Parameters
+    ----------
+    smoothing : {"none", "m-estimate", "sigmoid", "empirical-bayes"}, default="m-estimate"
+        How a level's statistics are shrunk towards the prior; see :func:`smooth`.
+    m : float >= 0, default=10.0
+        Weight of the prior under ``"m-estimate"`` (scikit-learn's numeric ``smooth``).
+    ramp_center, ramp_width : float, default=20.0, 10.0
+        ``k`` and ``f`` of the ``"sigmoid"`` blend (count at which level and prior
+        weigh equally; how gradually the weight moves). ``ramp_width=0`` is a step.
+    crossfit : {"none", "kfold", "loo", "ordered", "holdout"}, default="kfold"
+        Which rows feed each row's statistics in ``fit_transform``: ``none`` all rows
+        (own target included: leaks on purpose); ``kfold`` the other inner folds, each
+        fold with its own prior and variance, as scikit-learn's ``TargetEncoder``;
+        ``loo`` all other rows (prior and variance too); ``ordered`` the same-level rows
+        before the row in one random permutation (CatBoost's ordered target
+        statistics), prior from all other rows unless ``prior`` is set; ``holdout`` a
+        random ``holdout_fraction`` of rows encodes the rest and the rest encodes it.
+    cv : int or splitter, default=5
+        Inner folds for ``"kfold"``. An integer builds ``StratifiedKFold`` (classes) or
+        ``KFold`` (continuous) with ``shuffle=True`` and ``random_state``; a splitter is
+        used as is (its splits, so results reproduce scikit-learn with the same one).
+    random_state : int, RandomState or None, default=None
+        Seeds the folds, the permutation, the holdout split and the noise.
+    statistic : {"mean", "woe"}, default="mean"
+        ``"woe"``: weight of evidence of the smoothed rate (binary targets only); see
+        :func:`weight_of_evidence`.
+    noise : float >= 0, default=0.0
+        Standard deviation of Gaussian noise added to the training encodings returned
+        by ``fit_transform`` (never to ``transform``).
+    holdout_fraction : float in (0, 1), default=0.5
+        Share of rows in the first part under ``crossfit="holdout"``.
+    missing : {"prior", "category"}, default="prior"
+        A missing value gets the prior, or is a level of its own (as scikit-learn).
+    target_type : {"auto", "binary", "multiclass", "continuous"}, default="auto"
+        ``auto`` uses ``sklearn.utils.multiclass.type_of_target``.
+    prior : float or None, default=None
+        Fixed prior for every target column; ``None`` learns it from the rows in use.
+
+    Attributes
+    ----------
+    target_type_ : str
+    classes_ : ndarray or None
+        Sorted class labels; the positive class of a binary target is ``classes_[-1]``.
+    prior_ : ndarray of shape (n_targets,)
+    encodings_ : list of ndarray of shape (n_levels_j [+1 missing level], n_targets)
+    default_ : ndarray of shape (n_targets,)
+        Output for an unseen or (under ``missing="prior"``) missing value.
+
+    References
+    ----------
+    Micci-Barreca (2001), SIGKDD Explorations 3(1); Cestnik (1990), ECAI'90;
+    Prokhorenkova et al. (2018), NeurIPS; Siddiqi (2006), Credit Risk Scorecards.
+    """
+
+    def __init__(
+        self,
+        smoothing="m-estimate",
+        m=10.0,
+        ramp_center=20.0,
+        ramp_width=10.0,
+        crossfit="kfold",
+        cv=5,
+        random_state=None,
+        statistic="mean",
+        noise=0.0,
+        holdout_fraction=0.5,
+        missing="prior",
+        target_type="auto",
+        prior=None,
+    ):
+        self.smoothing = smoothing
+        self.m = m
+        self.ramp_center = ramp_center
+        self.ramp_width = ramp_width
+        self.crossfit = crossfit
+        self.cv = cv
+        self.random_state = random_state
+        self.statistic = statistic
+        self.noise = noise
+        self.holdout_fraction = holdout_fraction
+        self.missing = missing
+        self.target_type = target_type
+        self.prior = prior
+
+    # --- public API ---------------------------------------------------------------------
+    def fit(self, X, y):
+        """Learn one table per column from all rows of ``(X, y)``; return ``self``."""
+        self._fit_tables(X, y)
+        return self
+
+    def fit_transform(self, X, y):
+        """Fit, then return cross-fitted encodings of the training rows (see ``crossfit``)."""
+        return self._fit_transform(X, y)
+
+    def transform(self, X):
+        """Encode ``X`` with the full-data tables; unseen (and missing) values get ``default_``."""
+        frame = self._frame(X, reset=False)
+        out = []
+        for j, codes in enumerate(self._codes(frame)):
+            codes = self._stat_codes(codes, j)
+            table = np.concatenate([self.encodings_[j], self.default_[None, :]])
+            out.append(np.take(table, np.where(codes >= 0, codes, len(table) - 1), axis=0))
+        return np.concatenate(out, axis=1)
+
+    def get_feature_names_out(self, input_features=None):
+        """``<column>__target``, or ``<column>__target_<class>`` for a multiclass target."""
+        check_is_fitted(self, "encodings_")
+        names = _check_feature_names_in(self, input_features)
+        if self.target_type_ == "multiclass":
+            return np.asarray(
+                [f"{c}__target_{k}" for c in names for k in self.classes_], dtype=object
+            )
+        return np.asarray([f"{c}__target" for c in names], dtype=object)
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.target_tags.required = True
+        return tags
+
+    # --- fitting ------------------------------------------------------------------------
+    def _check_params(self):
+        for name, allowed in (
+            ("smoothing", SMOOTHINGS),
+            ("crossfit", CROSSFITS),
+            ("statistic", STATISTICS),
+            ("missing", MISSING_POLICIES),
+            ("target_type", TARGET_TYPES),
+        ):
+            _check_choice(name, getattr(self, name), allowed)
+        _check_number("m", self.m, low=0)
+        _check_number("ramp_center", self.ramp_center, low=-np.inf)
+        _check_number("ramp_width", self.ramp_width, low=0)
+        _check_number("noise", self.noise, low=0)
+        _check_number("holdout_fraction", self.holdout_fraction, low=0, high=1, open_ends="low high")
+        if self.prior is not None:
+            _check_number("prior", self.prior, low=-np.inf)
+        _check_cv(self.cv)
+
+    def _fit_tables(self, X, y):
+        """Validate, learn levels and full-data tables; return what cross-fitting needs."""
+        self._check_params()
+        frame = self._frame(X, reset=True)
+        y = column_or_1d(np.asarray(y), warn=True)
+        check_consistent_length(frame, y)
+        Y = self._target_matrix(y)
+        codes = [self._stat_codes(c, j) for j, c in enumerate(self._fit_levels(frame))]
+        self.prior_ = np.full(Y.shape[1], float(self.prior)) if self.prior is not None else Y.mean(axis=0)
+        self._n_fit = Y.shape[0]
+        self.encodings_ = []
+        for j, c in enumerate(codes):
+            stats = _crossfit.level_stats(c, Y, self._n_stat_levels(j))
+            self.encodings_.append(self._encode(stats, self.prior_, Y.var(axis=0)))
+        none = np.zeros(1)
+        self.default_ = self._encode(
+            _crossfit.LevelStats(none, np.zeros((1, Y.shape[1])), np.zeros((1, Y.shape[1]))),
+            self.prior_,
+            Y.var(axis=0),
+        )[0]
+        return frame, y, Y, codes
+
+    def _fit_transform(self, X, y, *, permutation=None):
+        """``fit_transform``; ``permutation`` imposes the row order of ``"ordered"`` (tests)."""
+        frame, y, Y, codes = self._fit_tables(X, y)
+        rng = check_random_state(self.random_state)
+        folds = self._folds(frame, y, rng)
+        if self.crossfit == "ordered" and permutation is None:
+            permutation = rng.permutation(Y.shape[0])
+        out = []
+        for j, c in enumerate(codes):
+            stats = self._row_stats(c, Y, self._n_stat_levels(j), folds, permutation)
+            prior = stats.prior if self.prior is None else self.prior_
+            out.append(self._encode(stats, prior, stats.tau2))
+        out = np.concatenate(out, axis=1)
+        if self.noise > 0:
+            # the noise regularises training encodings only; test rows stay exact
+            out = out + rng.normal(0.0, self.noise, size=out.shape)
+        return out
+
+    def _row_stats(self, codes, Y, n_levels, folds, permutation):
+        if self.crossfit == "none":
+            return _crossfit.in_sample(codes, Y, n_levels)
+        if self.crossfit == "loo":
+            return _crossfit.leave_one_out(codes, Y, n_levels)
+        if self.crossfit == "ordered":
+            return _crossfit.ordered(codes, Y, n_levels, permutation)
+        return _crossfit.out_of_fold(codes, Y, n_levels, folds)
+
+    def _folds(self, frame, y, rng):
+        """Inner splits for ``kfold`` / ``holdout``, drawn once for all columns."""
+        if self.crossfit == "holdout":
+            return _crossfit.holdout_folds(len(y), self.holdout_fraction, rng)
+        if self.crossfit != "kfold":
+            return None
+        splitter = self.cv
+        if isinstance(self.cv, Integral):
+            cls = KFold if self.target_type_ == "continuous" else StratifiedKFold
+            splitter = cls(n_splits=self.cv, shuffle=True, random_state=self.random_state)
+        return list(splitter.split(frame, y))
+
+    def _encode(self, stats, prior, tau2):
+        enc = smooth(
+            stats.n,
+            stats.total,
+            stats.sq_dev,
+            prior,
+            tau2,
+            smoothing=self.smoothing,
+            m=self.m,
+            ramp_center=self.ramp_center,
+            ramp_width=self.ramp_width,
+        )
+        if self.statistic == "woe":
+            return weight_of_evidence(enc, prior, stats.n, self._n_fit)
+        return enc
+
+    # --- target and codes -----------------------------------------------------------------
+    def _target_matrix(self, y) -> np.ndarray:
+        """``y`` as float columns: one (binary, continuous) or one indicator per class."""
+        kind = self.target_type
+        if kind == "auto":
+            kind = type_of_target(y, input_name="y")
+            if kind not in TARGET_TYPES[1:]:
+                raise EncoderInputError(
+                    f"TargetStatistics: the target type was inferred as {kind!r}; "
+                    f"supported: binary, multiclass, continuous. Set target_type explicitly."
+                )
+        self.target_type_ = kind
+        if self.statistic == "woe" and kind != "binary":
+            raise EncoderInputError(
+                f"TargetStatistics(statistic='woe') needs a binary target; got a {kind} "
+                "target. Use statistic='mean' for it."
+            )
+        if kind == "continuous":
+            self.classes_ = None
+            y = check_array(y, ensure_2d=False, dtype=np.float64, input_name="y")
+            return y[:, None]
+        self.classes_, inverse = np.unique(y, return_inverse=True)
+        if kind == "binary" and len(self.classes_) > 2:
+            raise EncoderInputError(
+                f"TargetStatistics(target_type='binary') got {len(self.classes_)} classes; "
+                "a binary target has at most 2. Use target_type='multiclass' or 'auto'."
+            )
+        if kind == "binary":
+            return (inverse == 1).astype(np.float64)[:, None]
+        Y = np.zeros((len(y), len(self.classes_)))
+        Y[np.arange(len(y)), inverse] = 1.0
+        return Y
+
+    def _stat_codes(self, codes: np.ndarray, j: int) -> np.ndarray:
+        """Missing becomes an extra last level under ``missing="category"``, else -1."""
+        if self.missing == "category":
+            return np.where(codes == MISSING, len(self.levels_[j]), codes)
+        return np.where(codes == MISSING, -1, codes)
+
+    def _n_stat_levels(self, j: int) -> int:
+        return len(self.levels_[j]) + (self.missing == "category")

