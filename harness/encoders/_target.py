@@ -15,8 +15,8 @@ from __future__ import annotations
 from numbers import Integral, Real
 
 import numpy as np
+import pandas as pd
 from scipy.special import expit, logit
-from sklearn.model_selection import KFold, StratifiedKFold
 from sklearn.utils import check_random_state
 from sklearn.utils.multiclass import type_of_target
 from sklearn.utils.validation import (
@@ -155,6 +155,49 @@ def _check_cv(cv):
         )
 
 
+def _infer_target_type(y) -> str:
+    """``type_of_target`` computed on the distinct values (a hash pass, not a sort).
+
+    For a one-dimensional target the answer depends only on the dtype and the set of
+    distinct values, so this equals ``type_of_target(y)``.
+
+    Raises
+    ------
+    EncoderInputError
+        If the target is not binary, multiclass or continuous.
+    """
+    if y.dtype.kind == "f" and np.all(np.isfinite(y)) and np.any(y != np.trunc(y)):
+        return "continuous"
+    kind = type_of_target(pd.unique(y) if len(y) else y, input_name="y")
+    if kind not in TARGET_TYPES[1:]:
+        raise EncoderInputError(
+            f"TargetStatistics: the target type was inferred as {kind!r}; supported: "
+            "binary, multiclass, continuous. Set target_type explicitly."
+        )
+    return kind
+
+
+def _sorted_classes(y):
+    """Sorted distinct labels and each row's class code, by hashing (no sort of ``y``).
+
+    Raises
+    ------
+    EncoderInputError
+        If the target has missing labels.
+    """
+    codes, uniques = pd.factorize(y, use_na_sentinel=True)
+    if len(codes) and codes.min() < 0:
+        raise EncoderInputError(
+            f"TargetStatistics: the target has {int(np.sum(codes < 0))} missing label(s); "
+            "drop those rows or impute the target first."
+        )
+    uniques = np.asarray(uniques)
+    order = np.argsort(uniques, kind="stable")
+    rank = np.empty(len(order), dtype=np.int64)
+    rank[order] = np.arange(len(order))
+    return uniques[order], rank[codes]
+
+
 class TargetStatistics(CategoricalEncoder):
     """Target encoding: each level becomes a smoothed statistic of the target.
 
@@ -176,9 +219,10 @@ class TargetStatistics(CategoricalEncoder):
         statistics), prior from all other rows unless ``prior`` is set; ``holdout`` a
         random ``holdout_fraction`` of rows encodes the rest and the rest encodes it.
     cv : int or splitter, default=5
-        Inner folds for ``"kfold"``. An integer builds ``StratifiedKFold`` (classes) or
-        ``KFold`` (continuous) with ``shuffle=True`` and ``random_state``; a splitter is
-        used as is (its splits, so results reproduce scikit-learn with the same one).
+        Inner folds for ``"kfold"``. An integer deals a random permutation (seeded by
+        ``random_state``) round-robin into ``cv`` folds, class by class for a class
+        target (stratified); a splitter is used as is: its splits, so results reproduce
+        scikit-learn's ``TargetEncoder`` given the same splitter.
     random_state : int, RandomState or None, default=None
         Seeds the folds, the permutation, the holdout split and the noise.
     statistic : {"mean", "woe"}, default="mean"
@@ -302,88 +346,85 @@ class TargetStatistics(CategoricalEncoder):
         frame = self._frame(X, reset=True)
         y = column_or_1d(np.asarray(y), warn=True)
         check_consistent_length(frame, y)
-        Y = self._target_matrix(y)
+        Y, classes = self._target_matrix(y)
         codes = [self._stat_codes(c, j) for j, c in enumerate(self._fit_levels(frame))]
-        self.prior_ = np.full(Y.shape[1], float(self.prior)) if self.prior is not None else Y.mean(axis=0)
         self._n_fit = Y.shape[0]
+        self.prior_ = Y.mean(axis=0) if self.prior is None else np.full(Y.shape[1], float(self.prior))
         self.encodings_ = []
         for j, c in enumerate(codes):
-            stats = _crossfit.level_stats(c, Y, self._n_stat_levels(j))
-            self.encodings_.append(self._encode(stats, self.prior_, Y.var(axis=0)))
-        none = np.zeros(1)
-        self.default_ = self._encode(
-            _crossfit.LevelStats(none, np.zeros((1, Y.shape[1])), np.zeros((1, Y.shape[1]))),
-            self.prior_,
-            Y.var(axis=0),
-        )[0]
-        return frame, y, Y, codes
+            n_levels = self._n_stat_levels(j)
+            table = self._encode(_crossfit.in_sample(c, Y, n_levels, self._spread))
+            self.encodings_.append(table[:n_levels])
+            # the empty last cell: what an unseen (or missing, under "prior") value gets
+            self.default_ = table[n_levels]
+        return frame, y, Y, classes, codes
 
     def _fit_transform(self, X, y, *, permutation=None):
         """``fit_transform``; ``permutation`` imposes the row order of ``"ordered"`` (tests)."""
-        frame, y, Y, codes = self._fit_tables(X, y)
+        frame, y, Y, classes, codes = self._fit_tables(X, y)
         rng = check_random_state(self.random_state)
-        folds = self._folds(frame, y, rng)
+        folds = self._folds(frame, y, classes, rng)
         if self.crossfit == "ordered" and permutation is None:
             permutation = rng.permutation(Y.shape[0])
         out = []
         for j, c in enumerate(codes):
-            stats = self._row_stats(c, Y, self._n_stat_levels(j), folds, permutation)
-            prior = stats.prior if self.prior is None else self.prior_
-            out.append(self._encode(stats, prior, stats.tau2))
+            cells = self._cells(c, Y, self._n_stat_levels(j), folds, permutation)
+            out.append(np.take(self._encode(cells), cells.index, axis=0))
         out = np.concatenate(out, axis=1)
         if self.noise > 0:
-            # the noise regularises training encodings only; test rows stay exact
+            # noise regularises the training encodings only; test rows stay exact
             out = out + rng.normal(0.0, self.noise, size=out.shape)
         return out
 
-    def _row_stats(self, codes, Y, n_levels, folds, permutation):
-        if self.crossfit == "none":
-            return _crossfit.in_sample(codes, Y, n_levels)
-        if self.crossfit == "loo":
-            return _crossfit.leave_one_out(codes, Y, n_levels)
-        if self.crossfit == "ordered":
-            return _crossfit.ordered(codes, Y, n_levels, permutation)
-        return _crossfit.out_of_fold(codes, Y, n_levels, folds)
+    @property
+    def _spread(self) -> bool:
+        return self.smoothing == "empirical-bayes"
 
-    def _folds(self, frame, y, rng):
-        """Inner splits for ``kfold`` / ``holdout``, drawn once for all columns."""
+    def _cells(self, codes, Y, n_levels, folds, permutation):
+        if self.crossfit == "none":
+            return _crossfit.in_sample(codes, Y, n_levels, self._spread)
+        if self.crossfit == "loo":
+            return _crossfit.leave_one_out(codes, Y, n_levels, self._spread)
+        if self.crossfit == "ordered":
+            return _crossfit.ordered(codes, Y, n_levels, permutation, self._spread)
+        return _crossfit.out_of_fold(codes, Y, n_levels, *folds, self._spread)
+
+    def _folds(self, frame, y, classes, rng):
+        """Fold of each row and number of folds for ``kfold``/``holdout`` (all columns)."""
         if self.crossfit == "holdout":
-            return _crossfit.holdout_folds(len(y), self.holdout_fraction, rng)
+            return _crossfit.holdout_folds(len(y), self.holdout_fraction, rng), 2
         if self.crossfit != "kfold":
             return None
-        splitter = self.cv
         if isinstance(self.cv, Integral):
-            cls = KFold if self.target_type_ == "continuous" else StratifiedKFold
-            splitter = cls(n_splits=self.cv, shuffle=True, random_state=self.random_state)
-        return list(splitter.split(frame, y))
+            return _crossfit.random_folds(len(y), int(self.cv), rng, classes), int(self.cv)
+        return _crossfit.folds_from_splits(self.cv.split(frame, y), len(y))
 
-    def _encode(self, stats, prior, tau2):
+    def _encode(self, cells):
+        """Smooth each cell, then apply the statistic; returns (n_cells, n_targets)."""
+        prior = cells.prior if self.prior is None else self.prior_[None, :]
         enc = smooth(
-            stats.n,
-            stats.total,
-            stats.sq_dev,
+            cells.n,
+            cells.total,
+            cells.sq_dev,
             prior,
-            tau2,
+            cells.tau2,
             smoothing=self.smoothing,
             m=self.m,
             ramp_center=self.ramp_center,
             ramp_width=self.ramp_width,
         )
         if self.statistic == "woe":
-            return weight_of_evidence(enc, prior, stats.n, self._n_fit)
+            return weight_of_evidence(enc, prior, cells.n, self._n_fit)
         return enc
 
     # --- target and codes -----------------------------------------------------------------
-    def _target_matrix(self, y) -> np.ndarray:
-        """``y`` as float columns: one (binary, continuous) or one indicator per class."""
-        kind = self.target_type
-        if kind == "auto":
-            kind = type_of_target(y, input_name="y")
-            if kind not in TARGET_TYPES[1:]:
-                raise EncoderInputError(
-                    f"TargetStatistics: the target type was inferred as {kind!r}; "
-                    f"supported: binary, multiclass, continuous. Set target_type explicitly."
-                )
+    def _target_matrix(self, y):
+        """``y`` as float columns, and class codes (``None`` for a continuous target).
+
+        One column for a binary (positive class ``classes_[-1]``) or continuous target,
+        one indicator column per sorted class for a multiclass target.
+        """
+        kind = self.target_type if self.target_type != "auto" else _infer_target_type(y)
         self.target_type_ = kind
         if self.statistic == "woe" and kind != "binary":
             raise EncoderInputError(
@@ -393,18 +434,18 @@ class TargetStatistics(CategoricalEncoder):
         if kind == "continuous":
             self.classes_ = None
             y = check_array(y, ensure_2d=False, dtype=np.float64, input_name="y")
-            return y[:, None]
-        self.classes_, inverse = np.unique(y, return_inverse=True)
+            return y[:, None], None
+        self.classes_, inverse = _sorted_classes(y)
         if kind == "binary" and len(self.classes_) > 2:
             raise EncoderInputError(
                 f"TargetStatistics(target_type='binary') got {len(self.classes_)} classes; "
                 "a binary target has at most 2. Use target_type='multiclass' or 'auto'."
             )
         if kind == "binary":
-            return (inverse == 1).astype(np.float64)[:, None]
+            return (inverse == 1).astype(np.float64)[:, None], inverse
         Y = np.zeros((len(y), len(self.classes_)))
         Y[np.arange(len(y)), inverse] = 1.0
-        return Y
+        return Y, inverse
 
     def _stat_codes(self, codes: np.ndarray, j: int) -> np.ndarray:
         """Missing becomes an extra last level under ``missing="category"``, else -1."""
