@@ -306,17 +306,16 @@ def _parse_encoders(table: dict, path: str) -> tuple[EncoderSpec, ...]:
 
 
 def _validate_encoder(kind: str, params: dict, path: str, where: str) -> None:
+    """Build the encoder and fit it on a tiny frame: every parameter check runs at load."""
+    import pandas as pd
+
     try:
         enc = _encoders.build(kind, **params)
-    except HarnessError as exc:
-        raise ConfigError(f"{where} in {path}: {exc}") from None
-    validate = getattr(enc, "_validate_params", None)
-    if validate is None:
-        return
-    try:
-        validate()
-    except (ValueError, TypeError) as exc:
-        raise ConfigError(f"{where} in {path}: {exc}") from None
+        probe = pd.DataFrame({"probe": ["a", "b"] * 10})
+        enc.fit(probe, [0, 1] * 10)
+    except (HarnessError, ValueError, TypeError) as exc:
+        message = str(exc).rstrip(".")
+        raise ConfigError(f"{where} in {path}: {message}. Fix the value of that key.") from None
 
 
 def _parse_models(table: dict, path: str) -> tuple[ModelSpec, ...]:

@@ -60,7 +60,7 @@ def test_execution_settings_do_not_change_the_config_hash():
     assert parse_config(raw).hash == h1
 
 
-@pytest.mark.parametrize("pattern, expected", [("a", 36), ("te*", 48), ("*/codes/gb/*", 6), ("zzz", 0)])
+@pytest.mark.parametrize("pattern, expected", [("a", 36), ("te*", 48), ("*/codes/gb/*", 12), ("a/codes/gb/r0*", 3), ("zzz", 0)])
 def test_select_by_pattern(pattern, expected):
     cells = build_grid(parse_config(_raw()))
     assert len(select(cells, pattern)) == expected

@@ -157,10 +157,12 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
             counts = np.bincount(codes[codes >= 0], minlength=len(uniques)).astype(np.int64)
             perm = self._level_order(uniques, counts, order)
             uniques = pd.Index(uniques).take(perm)
-            inverse = np.empty(len(perm), dtype=np.int64)
+            # one trailing entry maps factorize's NA sentinel (-1) to MISSING; it also
+            # keeps the lookup valid for an all-missing column (no level at all)
+            inverse = np.full(len(perm) + 1, MISSING, dtype=np.int64)
             inverse[perm] = np.arange(len(perm))
             missing = codes < 0
-            codes = np.where(missing, MISSING, inverse[np.where(missing, 0, codes)])
+            codes = inverse[codes]
             self.levels_.append(uniques)
             self.counts_.append(counts[perm])
             self.n_missing_[j] = int(missing.sum())

@@ -155,47 +155,48 @@ def _check_cv(cv):
         )
 
 
-def _infer_target_type(y) -> str:
-    """``type_of_target`` computed on the distinct values (a hash pass, not a sort).
+def _target_kind(y, requested: str):
+    """Target type, and for a class target its sorted classes and each row's class code.
 
-    For a one-dimensional target the answer depends only on the dtype and the set of
-    distinct values, so this equals ``type_of_target(y)``.
+    ``auto`` runs ``type_of_target`` on the distinct values found by one hash pass
+    (``pd.factorize``) instead of sorting ``y``: for a one-dimensional target the
+    answer depends only on the dtype and the set of distinct values.
 
     Raises
     ------
     EncoderInputError
-        If the target is not binary, multiclass or continuous.
+        If the target is not binary, multiclass or continuous, or has missing labels.
     """
-    if y.dtype.kind == "f" and np.all(np.isfinite(y)) and np.any(y != np.trunc(y)):
-        return "continuous"
-    kind = type_of_target(pd.unique(y) if len(y) else y, input_name="y")
+    if requested == "continuous" or (
+        requested == "auto"
+        and y.dtype.kind == "f"
+        and np.all(np.isfinite(y))
+        and np.any(y != np.trunc(y))
+    ):
+        return "continuous", None, None
+    codes, uniques = pd.factorize(y, use_na_sentinel=True)
+    uniques = np.asarray(uniques)
+    kind = requested
+    if kind == "auto":
+        # NaN makes type_of_target raise its own "Input y contains NaN" error
+        kind = type_of_target(y if len(codes) and codes.min() < 0 else uniques, input_name="y")
     if kind not in TARGET_TYPES[1:]:
         raise EncoderInputError(
-            f"TargetStatistics: the target type was inferred as {kind!r}; supported: "
-            "binary, multiclass, continuous. Set target_type explicitly."
+            f"TargetStatistics: Unknown label type: the target type was inferred as {kind!r}; "
+            "supported: binary, multiclass, continuous. Pass numeric or string labels, or "
+            "set target_type explicitly."
         )
-    return kind
-
-
-def _sorted_classes(y):
-    """Sorted distinct labels and each row's class code, by hashing (no sort of ``y``).
-
-    Raises
-    ------
-    EncoderInputError
-        If the target has missing labels.
-    """
-    codes, uniques = pd.factorize(y, use_na_sentinel=True)
+    if kind == "continuous":
+        return kind, None, None
     if len(codes) and codes.min() < 0:
         raise EncoderInputError(
             f"TargetStatistics: the target has {int(np.sum(codes < 0))} missing label(s); "
             "drop those rows or impute the target first."
         )
-    uniques = np.asarray(uniques)
     order = np.argsort(uniques, kind="stable")
     rank = np.empty(len(order), dtype=np.int64)
     rank[order] = np.arange(len(order))
-    return uniques[order], rank[codes]
+    return kind, uniques[order], rank[codes]
 
 
 class TargetStatistics(CategoricalEncoder):
@@ -244,7 +245,7 @@ class TargetStatistics(CategoricalEncoder):
     ----------
     target_type_ : str
     classes_ : ndarray or None
-        Sorted class labels; the positive class of a binary target is ``classes_[-1]``.
+        Sorted class labels; the positive class of a binary target is ``classes_[1]``.
     prior_ : ndarray of shape (n_targets,)
     encodings_ : list of ndarray of shape (n_levels_j [+1 missing level], n_targets)
     default_ : ndarray of shape (n_targets,)
@@ -421,10 +422,10 @@ class TargetStatistics(CategoricalEncoder):
     def _target_matrix(self, y):
         """``y`` as float columns, and class codes (``None`` for a continuous target).
 
-        One column for a binary (positive class ``classes_[-1]``) or continuous target,
+        One column for a binary (positive class ``classes_[1]``) or continuous target,
         one indicator column per sorted class for a multiclass target.
         """
-        kind = self.target_type if self.target_type != "auto" else _infer_target_type(y)
+        kind, self.classes_, inverse = _target_kind(y, self.target_type)
         self.target_type_ = kind
         if self.statistic == "woe" and kind != "binary":
             raise EncoderInputError(
@@ -432,10 +433,8 @@ class TargetStatistics(CategoricalEncoder):
                 "target. Use statistic='mean' for it."
             )
         if kind == "continuous":
-            self.classes_ = None
             y = check_array(y, ensure_2d=False, dtype=np.float64, input_name="y")
             return y[:, None], None
-        self.classes_, inverse = _sorted_classes(y)
         if kind == "binary" and len(self.classes_) > 2:
             raise EncoderInputError(
                 f"TargetStatistics(target_type='binary') got {len(self.classes_)} classes; "

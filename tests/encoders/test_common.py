@@ -13,6 +13,7 @@ import pytest
 from sklearn.utils.estimator_checks import parametrize_with_checks
 
 from harness.encoders import ENCODERS, KINDS, build
+from harness.errors import EncoderInputError
 
 # the target kind is built cross-fitted, the way the runner uses it
 DEFAULT_PARAMS = {"target": {"crossfit": "kfold"}}
@@ -181,3 +182,19 @@ def test_set_output_pandas_for_dense(kind, rng, seed):
     assert isinstance(out, pd.DataFrame)
     assert list(out.columns) == list(est.get_feature_names_out())
     assert out.index.equals(frame.index)
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_all_missing_column(kind, rng, seed):
+    frame, y = make_frame(rng, dtype=object), make_target(rng)
+    frame["color"] = None
+    est = fitted(kind, frame, y, seed)
+    out = est.transform(pd.DataFrame({"color": ["red", None], "size": [1, 2], "flag": [True, False]}))
+    assert out.shape[0] == 2
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_complex_input_is_refused(kind, rng):
+    X = rng.random((5, 1)) + 1j
+    with pytest.raises(EncoderInputError, match="Complex data not supported"):
+        encoder(kind).fit(X, np.arange(5) % 2)
