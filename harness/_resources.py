@@ -25,14 +25,18 @@ def _on_main_thread() -> bool:
 
 
 @contextlib.contextmanager
-def time_limit(seconds: float | None):
-    """Raise :class:`CellTimeout` in the block after ``seconds`` (main thread only)."""
+def time_limit(seconds: float | None, key: str = "execution.cell_timeout_s"):
+    """Raise :class:`CellTimeout` in the block after ``seconds`` (main thread only).
+
+    ``key`` is the config key that set the limit; the message names it so that a user
+    knows which value to raise.
+    """
     if not seconds or not _on_main_thread():
         yield
         return
 
     def _alarm(signum, frame):
-        raise CellTimeout(f"cell exceeded the time limit of {seconds:g} s (execution.cell_timeout_s)")
+        raise CellTimeout(f"cell exceeded the time limit of {seconds:g} s ({key})")
 
     previous = signal.signal(signal.SIGALRM, _alarm)
     signal.setitimer(signal.ITIMER_REAL, seconds)

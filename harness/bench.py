@@ -206,7 +206,9 @@ def _positive_ints(text: str) -> tuple[int, ...]:
 
 def main(argv=None) -> int:
     """Command line: ``python -m harness.bench [--rows N] [--cardinalities 10,1000] ...``."""
-    parser = argparse.ArgumentParser(prog="harness bench encoders", description=__doc__.split("\n")[0])
+    parser = argparse.ArgumentParser(
+        prog="harness bench encoders", description=__doc__.split("\n")[0]
+    )
     parser.add_argument("--rows", type=int, default=1_000_000, help="rows per column")
     parser.add_argument("--cardinalities", default="10,1000,100000", help="comma-separated")
     parser.add_argument("--repeats", type=int, default=3, help="timings per call; best kept")
@@ -220,7 +222,10 @@ def main(argv=None) -> int:
     table = run_encoder_bench(
         args.rows, _positive_ints(args.cardinalities), repeats=args.repeats, seed=args.seed
     )
-    print(f"encoder fit_transform, {args.rows:,} rows, best of {args.repeats}; ratio = reference / ours")
+    print(
+        f"encoder fit_transform, {args.rows:,} rows, best of {args.repeats}; "
+        "ratio = reference / ours"
+    )
     print(format_table(table))
     args.output.parent.mkdir(parents=True, exist_ok=True)
     table.to_csv(args.output, index=False)

@@ -172,9 +172,11 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
         )
         return row
     limit = cell.model.cell_timeout_s or job.timeout_s
+    # name the key that set the limit: a per-model limit is not execution.cell_timeout_s
+    key = f"models.{cell.model.label}.cell_timeout_s" if cell.model.cell_timeout_s else "execution.cell_timeout_s"
     try:
         reset_peak_rss()
-        with memory_limit(job.memory_mb), time_limit(limit):
+        with memory_limit(job.memory_mb), time_limit(limit, key):
             train, test = enc.train, enc.test
             if sp.issparse(train) and not family.sparse:
                 train, test = train.toarray(), test.toarray()
@@ -185,7 +187,7 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
         row.update(status=status, error=message)
     if limit and row["status"] == "ok" and row.get("model_fit_s", 0) + row.get("predict_s", 0) > limit:
         # backends without SIGALRM (Dask threads) check the limit after the fact
-        row.update(status="timeout", error=f"cell exceeded the time limit of {limit:g} s (cell_timeout_s)")
+        row.update(status="timeout", error=f"cell exceeded the time limit of {limit:g} s ({key})")
     return row
 
 
@@ -194,7 +196,7 @@ def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test) -> dict:
     y_train = dataset.y.iloc[job.train_idx].to_numpy()
     y_test = dataset.y.iloc[job.test_idx].to_numpy()
     model = _models.build_model(
-        cell.model.family, task, seed=job.seed + cell.repeat, params=dict(cell.model.params), sparse_input=sp.issparse(train)
+        cell.model.family, task, seed=(job.seed + cell.repeat) % 2**31, params=dict(cell.model.params), sparse_input=sp.issparse(train)
     )
     t0 = time.perf_counter()
     model.fit(train, y_train)
@@ -213,6 +215,7 @@ def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test) -> dict:
             out[name] = _metrics.score(name, task, y_test, pred_test, classes)
     primary = job.primary_regression if task == "regression" else job.primary
     out[f"train_{primary}"] = _metrics.score(primary, task, y_train, pred_train, classes)
+    out["score_s"] = time.perf_counter() - t2  # training-fold prediction and every metric
     return out
 
 

@@ -71,6 +71,25 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
         return 130
+    except BrokenPipeError:  # output piped into `head` and the like
+        sys.stderr.close()
+        return 0
+    except Exception as exc:  # noqa: BLE001 - a bug must still not print a traceback at the user
+        log = _write_traceback()
+        _say(
+            f"internal error: {type(exc).__name__}: {exc}. This is a bug in harness, not in your input; "
+            f"finished cells are kept. The traceback is in {log}; please attach it to a bug report."
+        )
+        return 1
+
+
+def _write_traceback() -> str:
+    import tempfile
+    import traceback
+
+    with tempfile.NamedTemporaryFile("w", prefix="harness-traceback-", suffix=".txt", delete=False) as fh:
+        traceback.print_exc(file=fh)
+        return fh.name
 
 
 def _say(text: str) -> None:
@@ -177,6 +196,12 @@ def cmd_list(args) -> int:
 
 
 def cmd_report(args) -> int:
+    from harness.store import Store
+
+    # refuse a missing, damaged or foreign store before the plotting stack loads
+    # (opening read-only checks integrity and schema and changes nothing)
+    for where in filter(None, (args.dir, args.compare)):
+        Store(where, lock=False, create=False).close()
     from harness.reporting import write_report
 
     path = write_report(args.dir, compare=args.compare)
@@ -185,9 +210,13 @@ def cmd_report(args) -> int:
 
 
 def cmd_bench(args) -> int:
-    from harness import bench
+    if args.what == "encoders":
+        from harness import bench
 
-    return bench.main([args.what, *args.rest])
+        return bench.main(args.rest)
+    from harness import bench_runner
+
+    return bench_runner.main([args.what, *args.rest])
 
 
 COMMANDS = {

@@ -82,7 +82,7 @@ def outer_splits(dataset, folds: int, repeats: int, stratify: bool, seed: int) -
         classify = smallest >= 2  # a singleton class cannot be stratified; fall back to plain K-fold
     out = {}
     for repeat in range(repeats):
-        rs = seed * 1000 + repeat
+        rs = (seed * 1000 + repeat) % 2**32
         if dataset.groups is not None:
             splitter = StratifiedGroupKFold(folds, shuffle=True, random_state=rs) if classify else GroupKFold(folds, shuffle=True, random_state=rs)
             parts = splitter.split(np.zeros(n), dataset.y, dataset.groups)
@@ -157,6 +157,8 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
         frame = store.frame()
     summary.wall_s = time.perf_counter() - started
     wanted = {c.cell_id for c in plan_.cells}
+    if summary.interrupted:  # `computed` was the plan; count what was actually written
+        summary.computed = int(frame["cell_id"].isin(wanted).sum()) - summary.reused
     summary.counts = frame[frame["cell_id"].isin(wanted)]["status"].value_counts().to_dict()
     export(frame, out / "results.parquet")
     export(frame, out / "results.csv")

@@ -26,6 +26,24 @@ __all__ = ["COLUMNS", "Store", "read_results", "export"]
 STORE_NAME = "results.sqlite"
 LOCK_NAME = ".run.lock"
 
+# Run-lock descriptors held by this process. A forked pool worker inherits them, and flock
+# locks belong to the shared open file description: a worker orphaned by a SIGKILL of the
+# driver kept the lock alive and every resume was refused. The child drops its copies
+# (closing a duplicate never releases the parent's lock; only the last close does).
+_HELD_LOCK_FDS: set[int] = set()
+
+
+def _drop_inherited_locks() -> None:
+    for fd in _HELD_LOCK_FDS:
+        try:
+            os.close(fd)
+        except OSError:
+            pass
+    _HELD_LOCK_FDS.clear()
+
+
+os.register_at_fork(after_in_child=_drop_inherited_locks)
+
 # (column, SQL type); order is the export order
 COLUMNS = [
     ("cell_id", "TEXT PRIMARY KEY"),
@@ -50,6 +68,7 @@ COLUMNS = [
     ("encoder_transform_s", "REAL"),
     ("model_fit_s", "REAL"),
     ("predict_s", "REAL"),
+    ("score_s", "REAL"),
     ("n_features_in", "INTEGER"),
     ("n_features_out", "INTEGER"),
     ("encoded_mb", "REAL"),
@@ -111,6 +130,7 @@ class Store:
         os.ftruncate(fd, 0)
         os.write(fd, str(os.getpid()).encode())
         self._lock_fd = fd
+        _HELD_LOCK_FDS.add(fd)
 
     def _connect(self) -> sqlite3.Connection:
         existed = self.path.exists() and self.path.stat().st_size > 0
@@ -181,6 +201,7 @@ class Store:
             db.close()
             self.db = None
         if self._lock_fd is not None:
+            _HELD_LOCK_FDS.discard(self._lock_fd)
             fcntl.flock(self._lock_fd, fcntl.LOCK_UN)
             os.close(self._lock_fd)
             self._lock_fd = None

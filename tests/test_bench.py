@@ -10,7 +10,9 @@ from harness.errors import ConfigError
 
 def test_bench_table_on_tiny_data(seed):
     table = bench.run_encoder_bench(n_rows=2_000, cardinalities=(5, 300), repeats=1, seed=seed)
-    assert list(table.columns) == ["kind", "cardinality", "ours_s", "reference_s", "ratio", "identical"]
+    assert list(table.columns) == [
+        "kind", "cardinality", "ours_s", "reference_s", "ratio", "identical"
+    ]
     assert set(table["kind"]) == {"integer", "onehot", "hashing", "frequency", "target"}
     assert len(table) == 10
     assert table["identical"].all(), table.to_string()
@@ -18,7 +20,8 @@ def test_bench_table_on_tiny_data(seed):
 
 def test_main_writes_csv(tmp_path, capsys):
     out = tmp_path / "bench.csv"
-    assert bench.main(["--rows", "500", "--cardinalities", "4", "--repeats", "1", "--output", str(out)]) == 0
+    argv = ["--rows", "500", "--cardinalities", "4", "--repeats", "1", "--output", str(out)]
+    assert bench.main(argv) == 0
     assert out.exists() and "ratio" in capsys.readouterr().out
 
 

@@ -74,6 +74,9 @@ def kept_cache(*folders: Path):
     Each existing folder is hard-linked into a temporary folder beside the cache (same
     file system, so nothing is copied); if the body raises, a folder the client removed
     or changed is replaced by its saved state. The saved copies are removed afterwards.
+    A hard link shares the file's content, so a file the client rewrote in place before
+    failing would come back rewritten; the client only rewrites files it has just
+    fetched successfully, and the case that matters, deleting the folder, is undone.
     """
     existing = [f for f in folders if f.is_dir()]
     if not existing:

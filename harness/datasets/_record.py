@@ -432,9 +432,8 @@ def _column_roles(frame: pd.DataFrame, options: TableOptions, notes: list) -> tu
 def _as_categorical(s: pd.Series) -> pd.Series:
     """Plain, hashable, consistently typed values; see the module notes."""
     s = normalize_column(s)
-    present = s[s.notna()]
     is_bool = pd.api.types.is_bool_dtype(s.dtype) or (
-        s.dtype == object and len(present) > 0 and present.map(type).isin([bool, np.bool_]).all()
+        s.dtype == object and pd.api.types.infer_dtype(s, skipna=True) == "boolean"
     )
     is_other = not (is_bool or s.dtype == object or pd.api.types.is_string_dtype(s.dtype) or _is_numeric(s))
     if is_bool or is_other:

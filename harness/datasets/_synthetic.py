@@ -16,6 +16,7 @@ Generation (vectorised; one loop over columns only):
    no effect at all: an encoder that gains from it overfits.
 """
 
+import inspect
 from dataclasses import dataclass
 
 import numpy as np
@@ -84,31 +85,9 @@ def _label(score: np.ndarray, task: str):
     return score.argmax(axis=1).astype(np.int64)
 
 
-def make_synthetic(
-    *,
-    n_rows: int = 2000,
-    cardinalities: list[int] = (10, 100),
-    zipf: float = 1.0,
-    effect: float = 0.5,
-    noise_column: int | None = None,
-    task: str = "binary",
-    n_classes: int = 3,
-    n_numeric: int = 2,
-    seed: int = 0,
-) -> tuple[Dataset, PlantedTruth]:
-    """Generate a dataset with planted effects and return it with the truth.
-
-    Parameters are those of :func:`load_synthetic`.
-
-    Returns
-    -------
-    dataset : Dataset
-    truth : PlantedTruth
-    """
-    _check(n_rows, list(cardinalities), zipf, effect, noise_column, task, n_classes, n_numeric)
-    rng = np.random.default_rng(seed)
-    width = n_classes if task == "multiclass" else 1
-    score = rng.standard_normal((n_rows, width))
+def _draw(rng, n_rows, cardinalities, zipf, effect, noise_column, n_numeric, width):
+    """Feature columns, planted effects and coefficients, and the latent score."""
+    score = rng.standard_normal((n_rows, width))  # unit-variance noise
     columns, effects, coefficients = {}, {}, {}
     for j, k in enumerate(cardinalities):
         name = f"cat{j}"
@@ -124,32 +103,10 @@ def make_synthetic(
         coefficients[name] = NUMERIC_COEF_SD * rng.standard_normal(width)
         score += x[:, None] * coefficients[name]
         columns[name] = pd.Series(x, name=name)
-    squeeze = (lambda a: a[..., 0]) if width == 1 else (lambda a: a)
-    y = pd.Series(_label(squeeze(score), task), name="y")
-    truth = PlantedTruth(
-        effects={c: squeeze(e) for c, e in effects.items()},
-        coefficients={c: squeeze(b) for c, b in coefficients.items()},
-        noise_columns=("noise",) if noise_column is not None else (),
-    )
-    categorical = tuple(c for c in columns if not c.startswith("num"))
-    dataset = Dataset(
-        name="synthetic",
-        X=pd.DataFrame(columns),
-        y=y,
-        task=task,
-        categorical=categorical,
-        numeric=tuple(c for c in columns if c.startswith("num")),
-        source="synthetic",
-        notes=(
-            f"planted per-level effects with sd {effect} against unit noise; "
-            f"level frequencies p_k ∝ (k+1)^-{zipf}; seed {seed}",
-        )
-        + ((f"column 'noise' ({noise_column} levels) carries no signal",) if noise_column else ()),
-    )
-    return dataset, truth
+    return columns, effects, coefficients, score
 
 
-def load_synthetic(
+def make_synthetic(
     *,
     n_rows: int = 2000,
     cardinalities: list[int] = (10, 100),
@@ -160,8 +117,8 @@ def load_synthetic(
     n_classes: int = 3,
     n_numeric: int = 2,
     seed: int = 0,
-) -> Dataset:
-    """Generate a synthetic dataset with planted per-level effects (see the module notes).
+) -> tuple[Dataset, PlantedTruth]:
+    """Generate a dataset with planted per-level effects (see the module notes) and its truth.
 
     Parameters
     ----------
@@ -185,21 +142,48 @@ def load_synthetic(
 
     Returns
     -------
-    Dataset
+    dataset : Dataset
+    truth : PlantedTruth
 
     Raises
     ------
     ConfigError
         If a parameter is out of range.
     """
-    return make_synthetic(
-        n_rows=n_rows,
-        cardinalities=cardinalities,
-        zipf=zipf,
-        effect=effect,
-        noise_column=noise_column,
+    _check(n_rows, list(cardinalities), zipf, effect, noise_column, task, n_classes, n_numeric)
+    width = n_classes if task == "multiclass" else 1
+    columns, effects, coefficients, score = _draw(
+        np.random.default_rng(seed), n_rows, cardinalities, zipf, effect, noise_column, n_numeric, width
+    )
+    squeeze = (lambda a: a[..., 0]) if width == 1 else (lambda a: a)
+    truth = PlantedTruth(
+        effects={c: squeeze(e) for c, e in effects.items()},
+        coefficients={c: squeeze(b) for c, b in coefficients.items()},
+        noise_columns=("noise",) if noise_column is not None else (),
+    )
+    notes = (f"planted per-level effects with sd {effect} against unit noise; level frequencies p_k ∝ (k+1)^-{zipf}; seed {seed}",)
+    if noise_column is not None:
+        notes += (f"column 'noise' ({noise_column} levels) carries no signal",)
+    dataset = Dataset(
+        name="synthetic",
+        X=pd.DataFrame(columns),
+        y=pd.Series(_label(squeeze(score), task), name="y"),
         task=task,
-        n_classes=n_classes,
-        n_numeric=n_numeric,
-        seed=seed,
-    )[0]
+        categorical=tuple(c for c in columns if not c.startswith("num")),
+        numeric=tuple(c for c in columns if c.startswith("num")),
+        source="synthetic",
+        notes=notes,
+    )
+    return dataset, truth
+
+
+def load_synthetic(**params) -> Dataset:
+    """The dataset of :func:`make_synthetic` without the truth (the registered loader).
+
+    Its keys are those of :func:`make_synthetic`; ``__signature__`` lists them for the
+    config module.
+    """
+    return make_synthetic(**params)[0]
+
+
+load_synthetic.__signature__ = inspect.signature(make_synthetic).replace(return_annotation=Dataset)

@@ -206,6 +206,10 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
 
 def _lexical_argsort(uniques) -> np.ndarray:
     """Sorted order of levels: numbers numerically, strings lexically, mixed by string."""
+    if isinstance(getattr(uniques, "dtype", None), pd.StringDtype):
+        # pandas' (Arrow) string sort is ~5x faster than sorting Python objects, and UTF-8
+        # byte order equals code-point order, i.e. Python's str order
+        return np.asarray(pd.Index(uniques).argsort(), dtype=np.int64)
     values = np.asarray(uniques, dtype=object) if not isinstance(uniques, np.ndarray) else uniques
     try:
         return np.argsort(values, kind="stable")

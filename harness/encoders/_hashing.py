@@ -97,7 +97,9 @@ class HashedCodes(CategoricalEncoder):
         # (UNSEEN, -1) entry is overwritten per row by hashing the unseen value itself
         self.lookups_ = []
         for name, levels in zip(self._input_names(), self.levels_):
-            tokens = [f"{name}={value}" for value in levels] + [f"{name}={MISSING_TOKEN}"]
+            # tolist() first: iterating an Arrow-backed Index element by element is slow
+            tokens = [f"{name}={value}" for value in levels.tolist()]
+            tokens.append(f"{name}={MISSING_TOKEN}")
             index, sign = self._hash(tokens)
             self.lookups_.append((np.append(index, 0), np.append(sign, 0.0)))
         return frame, codes

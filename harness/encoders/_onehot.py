@@ -117,7 +117,7 @@ class OneHotCodes(CategoricalEncoder):
         """Output column of each level (then missing, then unseen) and the column labels."""
         # missing is one more level, sorted last, when seen at fit (as scikit-learn does)
         all_counts = np.append(counts, n_missing) if n_missing else counts
-        labels = [str(v) for v in levels] + ([MISSING_NAME] if n_missing else [])
+        labels = [str(v) for v in levels.tolist()] + ([MISSING_NAME] if n_missing else [])
         rare = rare_levels(all_counts, self.min_count, self.max_levels)
         kept = np.flatnonzero(~rare)
         column = np.full(len(all_counts), -1, dtype=np.int64)

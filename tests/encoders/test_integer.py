@@ -11,14 +11,15 @@ from harness.encoders import IntegerCodes
 from harness.errors import ConfigError, EncoderInputError
 
 
-def make_frame(rng, n_rows: int = 50) -> pd.DataFrame:
-    """Tiny synthetic data; numbers 2 and 10 check numeric (not string) order."""
-    letters = rng.choice(["b", "a", "c", "d"], size=n_rows).astype(object)
+def make_frame(rng, n_rows: int = 50, dtype=object) -> pd.DataFrame:
+    """Tiny synthetic data: 2 < 10 checks numeric order, "B" < "a" < "é" code-point order."""
+    letters = rng.choice(["b", "a", "B", "é", "d"], size=n_rows).astype(object)
     letters[rng.random(n_rows) < 0.15] = np.nan
+    letters = pd.Series(letters, dtype=dtype)
     return pd.DataFrame({"letter": letters, "number": rng.choice([10, 2, 7], size=n_rows)})
 
 
-NEW = pd.DataFrame({"letter": ["a", "zzz", np.nan, "d"], "number": [2, 3, 10, 99]})
+NEW = pd.DataFrame({"letter": ["a", "zzz", np.nan, "é"], "number": [2, 3, 10, 99]})
 
 
 def reference(frame, new, column, unknown, missing):
@@ -31,9 +32,10 @@ def reference(frame, new, column, unknown, missing):
 
 @pytest.mark.parametrize("unseen", ["code", "nan"])
 @pytest.mark.parametrize("missing", ["code", "nan"])
-def test_equals_ordinal_encoder(rng, unseen, missing):
+@pytest.mark.parametrize("dtype", [object, "str"])
+def test_equals_ordinal_encoder(rng, unseen, missing, dtype):
     # reference: scikit-learn's OrdinalEncoder (lexical order; numbers numerically)
-    frame = make_frame(rng)
+    frame = make_frame(rng, dtype=dtype)
     ours = IntegerCodes(unseen=unseen, missing=missing).fit(frame).transform(NEW)
     for j, column in enumerate(frame.columns):
         k = frame[column].dropna().nunique()

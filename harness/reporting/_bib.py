@@ -1,0 +1,168 @@
+"""References of the methods a run used: short citations and BibTeX entries.
+
+``used_references(encoders)`` picks the statistics references every report relies on
+plus those of the encoder settings present in the run (read from the manifest's
+``encoders`` table: ``{label: {"kind": ..., **params}}``).
+"""
+
+from __future__ import annotations
+
+__all__ = ["BIB", "STATS_KEYS", "used_references", "cite"]
+
+# key -> (short citation, BibTeX entry)
+BIB = {
+    "demsar2006": ("Demšar (2006)", """@article{demsar2006,
+  author  = {Dem{\\v{s}}ar, Janez},
+  title   = {Statistical Comparisons of Classifiers over Multiple Data Sets},
+  journal = {Journal of Machine Learning Research},
+  volume  = {7},
+  pages   = {1--30},
+  year    = {2006}
+}"""),
+    "nadeau2003": ("Nadeau & Bengio (2003)", """@article{nadeau2003,
+  author  = {Nadeau, Claude and Bengio, Yoshua},
+  title   = {Inference for the Generalization Error},
+  journal = {Machine Learning},
+  volume  = {52},
+  number  = {3},
+  pages   = {239--281},
+  year    = {2003}
+}"""),
+    "bouckaert2004": ("Bouckaert & Frank (2004)", """@inproceedings{bouckaert2004,
+  author    = {Bouckaert, Remco R. and Frank, Eibe},
+  title     = {Evaluating the Replicability of Significance Tests for Comparing
+               Learning Algorithms},
+  booktitle = {Advances in Knowledge Discovery and Data Mining (PAKDD 2004)},
+  series    = {Lecture Notes in Computer Science},
+  volume    = {3056},
+  pages     = {3--12},
+  publisher = {Springer},
+  year      = {2004}
+}"""),
+    "holm1979": ("Holm (1979)", """@article{holm1979,
+  author  = {Holm, Sture},
+  title   = {A Simple Sequentially Rejective Multiple Test Procedure},
+  journal = {Scandinavian Journal of Statistics},
+  volume  = {6},
+  number  = {2},
+  pages   = {65--70},
+  year    = {1979}
+}"""),
+    "iman1980": ("Iman & Davenport (1980)", """@article{iman1980,
+  author  = {Iman, Ronald L. and Davenport, James M.},
+  title   = {Approximations of the Critical Region of the {Friedman} Statistic},
+  journal = {Communications in Statistics -- Theory and Methods},
+  volume  = {9},
+  number  = {6},
+  pages   = {571--595},
+  year    = {1980}
+}"""),
+    "efron1993": ("Efron & Tibshirani (1993)", """@book{efron1993,
+  author    = {Efron, Bradley and Tibshirani, Robert J.},
+  title     = {An Introduction to the Bootstrap},
+  publisher = {Chapman \\& Hall},
+  year      = {1993}
+}"""),
+    "micci2001": ("Micci-Barreca (2001)", """@article{micci2001,
+  author  = {Micci-Barreca, Daniele},
+  title   = {A Preprocessing Scheme for High-Cardinality Categorical Attributes in
+             Classification and Prediction Problems},
+  journal = {SIGKDD Explorations},
+  volume  = {3},
+  number  = {1},
+  pages   = {27--32},
+  year    = {2001}
+}"""),
+    "cestnik1990": ("Cestnik (1990)", """@inproceedings{cestnik1990,
+  author    = {Cestnik, Bojan},
+  title     = {Estimating Probabilities: A Crucial Task in Machine Learning},
+  booktitle = {Proceedings of the 9th European Conference on Artificial Intelligence
+               (ECAI'90)},
+  pages     = {147--149},
+  year      = {1990}
+}"""),
+    "prokhorenkova2018": ("Prokhorenkova et al. (2018)", """@inproceedings{prokhorenkova2018,
+  author    = {Prokhorenkova, Liudmila and Gusev, Gleb and Vorobev, Aleksandr and
+               Dorogush, Anna Veronika and Gulin, Andrey},
+  title     = {{CatBoost}: Unbiased Boosting with Categorical Features},
+  booktitle = {Advances in Neural Information Processing Systems 31 (NeurIPS 2018)},
+  year      = {2018}
+}"""),
+    "weinberger2009": ("Weinberger et al. (2009)", """@inproceedings{weinberger2009,
+  author    = {Weinberger, Kilian and Dasgupta, Anirban and Langford, John and
+               Smola, Alex and Attenberg, Josh},
+  title     = {Feature Hashing for Large Scale Multitask Learning},
+  booktitle = {Proceedings of the 26th International Conference on Machine Learning
+               (ICML 2009)},
+  pages     = {1113--1120},
+  year      = {2009}
+}"""),
+    "siddiqi2006": ("Siddiqi (2006)", """@book{siddiqi2006,
+  author    = {Siddiqi, Naeem},
+  title     = {Credit Risk Scorecards: Developing and Implementing Intelligent Credit
+               Scoring},
+  publisher = {Wiley},
+  year      = {2006}
+}"""),
+    "pargent2022": ("Pargent et al. (2022)", """@article{pargent2022,
+  author  = {Pargent, Florian and Pfisterer, Florian and Thomas, Janek and Bischl, Bernd},
+  title   = {Regularized Target Encoding Outperforms Traditional Methods in Supervised
+             Machine Learning with High Cardinality Features},
+  journal = {Computational Statistics},
+  volume  = {37},
+  pages   = {2671--2692},
+  year    = {2022}
+}"""),
+    "benavoli2017": ("Benavoli et al. (2017)", """@article{benavoli2017,
+  author  = {Benavoli, Alessio and Corani, Giorgio and Dem{\\v{s}}ar, Janez and
+             Zaffalon, Marco},
+  title   = {Time for a Change: a Tutorial for Comparing Multiple Classifiers Through
+             {Bayesian} Analysis},
+  journal = {Journal of Machine Learning Research},
+  volume  = {18},
+  number  = {77},
+  pages   = {1--36},
+  year    = {2017}
+}"""),
+}
+
+#: methods every report uses: corrected t intervals, ranks, Friedman/Iman-Davenport,
+#: Nemenyi, Wilcoxon with Holm, bootstrap intervals of the average rank
+STATS_KEYS = ("demsar2006", "nadeau2003", "bouckaert2004", "iman1980", "holm1979",
+              "efron1993")
+
+
+def cite(key: str) -> str:
+    """Short citation of ``key`` (e.g. ``"Demšar (2006)"``)."""
+    return BIB[key][0]
+
+
+def _encoder_keys(spec: dict) -> list[str]:
+    kind = spec.get("kind")
+    if kind == "hashing":
+        return ["weinberger2009"]
+    if kind != "target":
+        return []
+    keys = ["pargent2022", "prokhorenkova2018"]  # benchmark of target encoders; leakage audit
+    smoothing = spec.get("smoothing", "m-estimate")  # TargetStatistics' default
+    keys += {"m-estimate": ["cestnik1990"], "sigmoid": ["micci2001"],
+             "empirical-bayes": ["micci2001"]}.get(smoothing, [])
+    if spec.get("statistic") == "woe":
+        keys.append("siddiqi2006")
+    return keys
+
+
+def used_references(encoders: dict, *, bayesian: bool = False) -> list[str]:
+    """Keys of the references relevant to a run, statistics first, no duplicates.
+
+    Parameters
+    ----------
+    encoders : dict
+        The manifest's ``encoders`` table.
+    bayesian : bool
+        Add Benavoli et al. (2017) when the Bayesian signed-rank test was reported.
+    """
+    keys = list(STATS_KEYS) + (["benavoli2017"] if bayesian else [])
+    for spec in encoders.values():  # loop over encoder settings
+        keys += _encoder_keys(spec if isinstance(spec, dict) else {})
+    return list(dict.fromkeys(keys))
