@@ -26,6 +26,8 @@ from harness.grid import SCHEMA_VERSION, Cell
 
 __all__ = ["UnitJob", "run_unit", "base_row"]
 
+TARGET_TYPE = {"binary": "binary", "multiclass": "multiclass", "regression": "continuous"}
+
 
 @dataclass(frozen=True)
 class UnitJob:
@@ -108,6 +110,10 @@ def _encode(dataset, job: UnitJob):
             enc = _encoders.build(cell.encoder.kind, **params)
             if "random_state" in enc.get_params() and "random_state" not in params:
                 enc.set_params(random_state=_encoder_seed(job, cell))
+            if enc.get_params().get("target_type") == "auto":
+                # the dataset knows its task; guessing from y would call integer-valued
+                # regression targets multiclass
+                enc.set_params(target_type=TARGET_TYPE[dataset.task])
             t0 = time.perf_counter()
             cat_train = enc.fit_transform(X_train[cat], y_train) if cat else None
             t1 = time.perf_counter()

@@ -145,8 +145,7 @@ def test_forked_child_does_not_keep_the_run_lock(tmp_path):
 
 # --------------------------------------------------------------------------- Ctrl-C
 @pytest.mark.slow
-@pytest.mark.parametrize("jobs", [1, 2])
-@pytest.mark.parametrize("whom", ["process", "group"])
+@pytest.mark.parametrize(("jobs", "whom"), [(1, "process"), (2, "process"), (2, "group")])
 def test_ctrl_c_exits_130_promptly_and_resumes(tmp_path, jobs, whom, small_reference):
     """SIGINT to the driver, or to its whole process group as a terminal's Ctrl-C does."""
     out = tmp_path / "run"

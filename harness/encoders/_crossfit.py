@@ -130,6 +130,15 @@ def _without_others(stats: LevelStats) -> LevelStats:
     return LevelStats(n_o, total_o, sq_o)
 
 
+def _pooled(stats: LevelStats, axis: int) -> LevelStats:
+    """Pool groups along ``axis`` with the parallel-variance identity (see above)."""
+    n, total = stats.n.sum(axis=axis), stats.total.sum(axis=axis)
+    if stats.sq_dev is None:
+        return LevelStats(n, total, None)
+    d = _safe_mean_nd(stats.total, stats.n) - np.expand_dims(_safe_mean_nd(total, n), axis)
+    return LevelStats(n, total, (stats.sq_dev + stats.n[..., None] * d * d).sum(axis=axis))
+
+
 def _safe_mean_nd(total: np.ndarray, n: np.ndarray) -> np.ndarray:
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(n[..., None] > 0, total / n[..., None], 0.0)
@@ -143,10 +152,17 @@ def in_sample(codes: np.ndarray, Y: np.ndarray, n_levels: int, spread: bool = Tr
     These cells are also the full-data tables that ``transform`` uses.
     """
     key = _keyed(codes, n_levels)
-    stats = level_stats(key, Y, n_levels + 1, spread)
+    everyone = LevelStats(
+        np.float64(len(Y)), Y.sum(axis=0), len(Y) * Y.var(axis=0) if spread else None
+    )
+    return _in_sample_cells(level_stats(key, Y, n_levels + 1, spread), key, n_levels, everyone)
+
+
+def _in_sample_cells(stats: LevelStats, key, n_levels: int, everyone: LevelStats) -> CellStats:
+    """Cells of levels, the extra group emptied; prior and variance of ``everyone``."""
     n, total, sq = _empty_last(stats, n_levels)
-    prior = Y.mean(axis=0)[None, :]
-    tau2 = Y.var(axis=0)[None, :] if spread else None
+    prior = (everyone.total / everyone.n)[None, :]
+    tau2 = None if everyone.sq_dev is None else (everyone.sq_dev / everyone.n)[None, :]
     return CellStats(n, total, sq, prior, tau2, key)
 
 
@@ -169,24 +185,35 @@ def out_of_fold(
     fold: np.ndarray,
     n_folds: int,
     spread: bool = True,
-) -> CellStats:
+) -> tuple[CellStats, CellStats]:
     """Each row uses the rows of all other folds: one cell per (fold, level).
 
     ``fold[i]`` is the fold in which row ``i`` is a validation row. Each fold has its own
     prior and target variance, from its training rows, exactly as
     ``sklearn.preprocessing.TargetEncoder.fit_transform`` computes them.
+
+    Returns
+    -------
+    cells : CellStats
+        The cross-fitted cells.
+    full : CellStats
+        The in-sample cells of :func:`in_sample` (the full-data tables), pooled from
+        the same per-(fold, level) statistics instead of another pass over the rows.
     """
     width = n_levels + 1
-    cell = fold.astype(np.int64, copy=False) * width + _keyed(codes, n_levels)
+    key = _keyed(codes, n_levels)
+    cell = fold.astype(np.int64, copy=False) * width + key
     per_cell = level_stats(cell, Y, n_folds * width, spread)
     by_fold = LevelStats(*(_fold_major(a, n_folds) for a in per_cell))
     n, total, sq = _empty_last(_without_others(by_fold), n_levels)
-    # each fold's prior and variance: all rows outside the fold, pooled
-    train = _without_others(_as_folds(level_stats(fold, Y, n_folds, spread)))
+    # each fold's prior and variance: all rows outside the fold (rows in no level
+    # included), pooled from the cells
+    per_fold = _pooled(by_fold, axis=1)
+    train = _without_others(_as_folds(per_fold))
     prior = _safe_mean(train.total[:, 0], train.n[:, 0])
     tau2 = None if not spread else train.sq_dev[:, 0] / train.n[:, 0][:, None]
     n_targets = Y.shape[1]
-    return CellStats(
+    cells = CellStats(
         n.reshape(-1),
         total.reshape(-1, n_targets),
         None if sq is None else sq.reshape(-1, n_targets),
@@ -194,6 +221,9 @@ def out_of_fold(
         None if tau2 is None else np.repeat(tau2, width, axis=0),
         cell,
     )
+    everyone = _pooled(per_fold, axis=0)
+    full = _in_sample_cells(_pooled(by_fold, axis=0), key, n_levels, everyone)
+    return cells, full
 
 
 def _fold_major(a, n_folds: int):

@@ -303,7 +303,9 @@ class TargetStatistics(CategoricalEncoder):
     # --- public API ---------------------------------------------------------------------
     def fit(self, X, y):
         """Learn one table per column from all rows of ``(X, y)``; return ``self``."""
-        self._fit_tables(X, y)
+        _, _, Y, _, codes = self._prepare(X, y)
+        for j, c in enumerate(codes):
+            self._store_table(j, _crossfit.in_sample(c, Y, self._n_stat_levels(j), self._spread))
         return self
 
     def fit_transform(self, X, y):
@@ -356,8 +358,8 @@ class TargetStatistics(CategoricalEncoder):
             _check_number("prior", self.prior, low=-np.inf)
         _check_cv(self.cv)
 
-    def _fit_tables(self, X, y):
-        """Validate, learn levels and full-data tables; return what cross-fitting needs."""
+    def _prepare(self, X, y):
+        """Validate; learn levels, target type and prior; return what fitting needs."""
         self._check_params()
         frame = self._frame(X, reset=True)
         y = column_or_1d(np.asarray(y), warn=True)
@@ -368,25 +370,28 @@ class TargetStatistics(CategoricalEncoder):
         self.prior_ = Y.mean(axis=0)
         if self.prior is not None:
             self.prior_ = np.full(Y.shape[1], float(self.prior))
-        self.encodings_ = []
-        for j, c in enumerate(codes):
-            n_levels = self._n_stat_levels(j)
-            table = self._encode(_crossfit.in_sample(c, Y, n_levels, self._spread))
-            self.encodings_.append(table[:n_levels])
-            # the empty last cell: what an unseen (or missing, under "prior") value gets
-            self.default_ = table[n_levels]
+        self.encodings_ = [None] * len(codes)
         return frame, y, Y, classes, codes
+
+    def _store_table(self, j: int, full) -> None:
+        """Encode column ``j``'s in-sample cells into its table for ``transform``."""
+        table = self._encode(full)
+        n_levels = self._n_stat_levels(j)
+        self.encodings_[j] = table[:n_levels]
+        # the empty last cell: what an unseen (or missing, under "prior") value gets
+        self.default_ = table[n_levels]
 
     def _fit_transform(self, X, y, *, permutation=None):
         """``fit_transform``; ``permutation`` imposes the row order of ``"ordered"`` (tests)."""
-        frame, y, Y, classes, codes = self._fit_tables(X, y)
+        frame, y, Y, classes, codes = self._prepare(X, y)
         rng = check_random_state(self.random_state)
         folds = self._folds(frame, y, classes, rng)
         if self.crossfit == "ordered" and permutation is None:
             permutation = rng.permutation(Y.shape[0])
         out = []
         for j, c in enumerate(codes):
-            cells = self._cells(c, Y, self._n_stat_levels(j), folds, permutation)
+            cells, full = self._cells(c, Y, self._n_stat_levels(j), folds, permutation)
+            self._store_table(j, full)
             out.append(np.take(self._encode(cells), cells.index, axis=0))
         out = np.concatenate(out, axis=1)
         if self.noise > 0:
@@ -399,13 +404,16 @@ class TargetStatistics(CategoricalEncoder):
         return self.smoothing == "empirical-bayes"
 
     def _cells(self, codes, Y, n_levels, folds, permutation):
-        if self.crossfit == "none":
-            return _crossfit.in_sample(codes, Y, n_levels, self._spread)
+        """Cross-fitted cells of one column, and its in-sample cells (the table)."""
+        spread = self._spread
+        if self.crossfit in ("kfold", "holdout"):
+            return _crossfit.out_of_fold(codes, Y, n_levels, *folds, spread)
+        full = _crossfit.in_sample(codes, Y, n_levels, spread)
         if self.crossfit == "loo":
-            return _crossfit.leave_one_out(codes, Y, n_levels, self._spread)
+            return _crossfit.leave_one_out(codes, Y, n_levels, spread), full
         if self.crossfit == "ordered":
-            return _crossfit.ordered(codes, Y, n_levels, permutation, self._spread)
-        return _crossfit.out_of_fold(codes, Y, n_levels, *folds, self._spread)
+            return _crossfit.ordered(codes, Y, n_levels, permutation, spread), full
+        return full, full
 
     def _folds(self, frame, y, classes, rng):
         """Fold of each row and number of folds for ``kfold``/``holdout`` (all columns)."""

@@ -21,16 +21,19 @@ import math
 from pathlib import Path
 
 import matplotlib
+import matplotlib.ticker
+import matplotlib.transforms
+import numpy as np
+import pandas as pd
+from matplotlib import rc_context
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import PowerNorm
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.patches import Rectangle
 
-matplotlib.use("Agg")  # files only; never a window
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from matplotlib.colors import PowerNorm  # noqa: E402
-from matplotlib.lines import Line2D  # noqa: E402
-
-from harness import stats  # noqa: E402
-from harness.errors import DataError  # noqa: E402
+from harness import stats
+from harness.errors import DataError
 
 __all__ = ["NothingToPlot", "rank_plot", "cd_diagram", "cost_plot", "relative_heatmap",
            "leakage_plot", "pareto_front", "cliques", "place_labels", "save"]
@@ -56,7 +59,7 @@ def _name(metric: str) -> str:
 
 
 def save(fig, directory, stem: str, *, dpi: int = 150) -> tuple[Path, Path]:
-    """Write ``stem.png`` (``dpi``) and ``stem.svg`` into ``directory`` and close ``fig``.
+    """Write ``stem.png`` (``dpi``) and ``stem.svg`` into ``directory``.
 
     Returns
     -------
@@ -66,20 +69,25 @@ def save(fig, directory, stem: str, *, dpi: int = 150) -> tuple[Path, Path]:
     directory = Path(directory)
     directory.mkdir(parents=True, exist_ok=True)
     png, svg = directory / f"{stem}.png", directory / f"{stem}.svg"
-    with plt.rc_context(STYLE):
+    with rc_context(STYLE):
         fig.savefig(png, dpi=dpi, metadata={"Software": None})
         fig.savefig(svg, metadata={"Date": None})
-    plt.close(fig)
     return png, svg
+
+
+def _figure(size) -> Figure:
+    """A figure outside pyplot (no global state, no window), drawn by Agg."""
+    fig = Figure(figsize=size, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
 
 
 def _grid(n: int, ncols: int, width: float, heights) -> tuple:
     ncols = max(1, min(ncols, n))
     nrows = math.ceil(n / ncols)
     row_h = [max(heights[r * ncols:(r + 1) * ncols]) for r in range(nrows)]
-    fig, axes = plt.subplots(nrows, ncols, figsize=(width * ncols, sum(row_h) + 0.9),
-                             squeeze=False, gridspec_kw={"height_ratios": row_h},
-                             layout="constrained")
+    fig = _figure((width * ncols, sum(row_h) + 0.9))
+    axes = fig.subplots(nrows, ncols, squeeze=False, gridspec_kw={"height_ratios": row_h})
     for ax in axes.flat[n:]:
         ax.set_visible(False)
     return fig, list(axes.flat[:n])
@@ -154,7 +162,7 @@ def rank_plot(comparisons, recommendations=None, *, ncols: int = 2):
     """
     comps = _usable(comparisons, 1, "average-rank plot")
     recs = recommendations or {}
-    with plt.rc_context(STYLE):
+    with rc_context(STYLE):
         heights = [0.3 * len(c.ranks) + 1.0 for c in comps]
         fig, axes = _grid(len(comps), ncols, 5.6, heights)
         for ax, comp in zip(axes, comps):  # loop over panels
@@ -261,7 +269,7 @@ def cd_diagram(comparisons, *, alpha: float = 0.05):
     JMLR 7:1-30, Sec. 3.2.2 (Nemenyi CD) and Fig. 1-2 (the diagram).
     """
     comps = _usable(comparisons, 2, "critical-difference diagram")
-    with plt.rc_context(STYLE):
+    with rc_context(STYLE):
         heights = []
         for c in comps:  # loop over panels: height grows with labels and cliques
             k = len(c.ranks)
@@ -421,7 +429,7 @@ def cost_plot(comparisons, cost: pd.DataFrame, *, model_column: str = "model",
     comps = _usable(comparisons, 1, "score-versus-cost plot")
     if not np.isfinite(cost["total_s"].astype(float)).any():
         raise NothingToPlot("score-versus-cost plot: no cell recorded its timing.")
-    with plt.rc_context(STYLE):
+    with rc_context(STYLE):
         heights = [max(3.2, 0.26 * len(c.ranks) + 1.2) for c in comps]
         fig, axes = _grid(len(comps), ncols, 6.0, heights)
         points = [_cost_panel(ax, comp, cost, model_column) for ax, comp in zip(axes, comps)]
@@ -502,9 +510,9 @@ def relative_heatmap(results: pd.DataFrame, model: str, *, low: int = 10, high: 
     labels = [f"{d}  (max {int(c) if np.isfinite(c) else '?'} levels, {g})"
               for d, c, g in zip(order, card.loc[order].to_numpy(float), regime)]
     n, k = short.shape
-    with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(max(5.5, 0.62 * k + 3.8), 0.34 * n + 2.2),
-                               layout="constrained")
+    with rc_context(STYLE):
+        fig = _figure((max(5.5, 0.62 * k + 3.8), 0.34 * n + 2.2))
+        ax = fig.subplots()
         vmax = max(float(np.nanmax(short.to_numpy(float))), 0.5)
         norm = PowerNorm(0.5, vmin=0, vmax=vmax)
         img = ax.imshow(np.ma.masked_invalid(short.to_numpy(float)), cmap="Greys", norm=norm,
@@ -512,7 +520,7 @@ def relative_heatmap(results: pd.DataFrame, model: str, *, low: int = 10, high: 
         ax.set_facecolor("white")
         miss = np.argwhere(~np.isfinite(short.to_numpy(float)))
         for i, j in miss:  # loop over missing cells only
-            ax.add_patch(plt.Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch="///",
+            ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch="///",
                                        ec=LIGHT, lw=0))
         _heat_labels(ax, short, norm)
         ax.set_xticks(range(k), [str(e) for e in short.columns], rotation=35, ha="right",
@@ -587,7 +595,7 @@ def leakage_plot(audit: pd.DataFrame, *, models=None, model_column: str = "model
     if models is not None:
         order = {m: i for i, m in enumerate(models)}
         keys.sort(key=lambda k: (order.get(k[0], len(order)), k[1] in ("rmse", "mae", "r2")))
-    with plt.rc_context(STYLE):
+    with rc_context(STYLE):
         heights = [0.3 * int(((audit[model_column] == m) & (audit["primary_metric"] == p)).sum())
                    + 1.1 for m, p in keys]
         fig, axes = _grid(len(keys), ncols, 5.8, heights)

@@ -165,7 +165,7 @@ def scrub_error(error: pd.Series, status: pd.Series, private: pd.Series) -> pd.S
     text = error.fillna("").astype(str)
     kind = text.str.extract(_TYPE, expand=False).fillna("error")
     hidden = kind + " (message withheld: private dataset)"
-    keep = ~private.astype(bool) | status.isin(_TEMPLATED)
+    keep = ~private.astype(bool) | status.isin(_TEMPLATED) | (text == "")
     return text.where(keep, hidden).str.slice(0, 240)
 
 

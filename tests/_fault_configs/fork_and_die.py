@@ -14,6 +14,9 @@ from harness.store import Store
 store = Store(sys.argv[1])
 child = os.fork()
 if child == 0:
+    null = os.open(os.devnull, os.O_RDWR)
+    for fd in (0, 1, 2):  # let the test's pipes close when the parent dies
+        os.dup2(null, fd)
     time.sleep(120)
     os._exit(0)
 print(child, flush=True)

@@ -77,7 +77,10 @@ def test_out_of_fold_uses_the_other_folds(data, draw):
     fold = np.array(draw.draw(st.lists(st.integers(0, n_folds - 1), min_size=n, max_size=n)))
     assume(len(np.unique(fold)) >= 2)  # every fold must have training rows
     expected = brute_force(codes, Y, lambda i: (fold != fold[i], fold != fold[i]))
-    assert_cells_match(_crossfit.out_of_fold(codes, Y, 4, fold, n_folds), expected)
+    cells, full = _crossfit.out_of_fold(codes, Y, 4, fold, n_folds)
+    assert_cells_match(cells, expected)
+    everyone = np.ones(len(codes), dtype=bool)
+    assert_cells_match(full, brute_force(codes, Y, lambda i: (everyone, everyone)))
 
 
 @FAST
@@ -176,7 +179,7 @@ def test_in_sample_encoding_moves_with_own_target(smoothing):
 
 # --- fold assignments ------------------------------------------------------------------------
 @pytest.mark.parametrize("n_rows", [5, 103])
-@pytest.mark.parametrize("n_classes", [None, 2, 3])
+@pytest.mark.parametrize("n_classes", [None, 2, 3, 40])  # 40: the sort path
 def test_random_folds_are_balanced_and_stratified(rng, n_rows, n_classes):
     classes = None if n_classes is None else rng.integers(0, n_classes, size=n_rows)
     fold = _crossfit.random_folds(n_rows, 5, np.random.RandomState(0), classes)

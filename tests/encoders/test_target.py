@@ -418,3 +418,22 @@ def test_splitter_training_part_must_be_the_complement():
     X, y = one_column(list("abababab")), np.arange(8) % 2
     with pytest.raises(EncoderInputError, match="split 0 of `cv` has 2 training and 4 validation"):
         TargetStatistics(cv=HalfTraining()).fit_transform(X, y)
+
+
+@pytest.mark.parametrize(
+    "y",
+    [
+        np.array([True, False, True, True]),
+        np.array([7, 3, 7, 7]),
+        np.array([-1, 4, -1, -1]),
+        np.array([70000, 3, 70000, 70000]),
+        np.array(["yes", "no", "yes", "yes"], dtype=object),
+    ],
+)
+def test_binary_labels_of_any_kind(y):
+    # the positive class is the larger label (scikit-learn's LabelEncoder order)
+    enc = TargetStatistics(crossfit="none", smoothing="none").fit(one_column(list("aabb")), y)
+    assert enc.target_type_ == "binary"
+    np.testing.assert_array_equal(enc.classes_, np.unique(y))
+    positive = (y == np.unique(y)[1]).astype(float)
+    np.testing.assert_allclose(enc.encodings_[0][:, 0], [positive[:2].mean(), positive[2:].mean()])

@@ -69,7 +69,9 @@ def wide(rng):
                         skill=skill, leaky=(ENCODERS20[3],))
 
 
-def test_every_figure_draws_and_saves(tmp_path, wide):
+def test_every_figure_draws_and_saves(tmp_path, rng):
+    wide = fake_results(rng, n_datasets=5, encoders=("onehot", "codes", "te", "te_leaky"),
+                        models=("lin", "gb"), skill={"te": 0.02}, leaky=("te_leaky",))
     comps, recs = _comparisons(wide, ("lin", "gb"))
     made = {
         "rank": figures.rank_plot(comps, recs),
