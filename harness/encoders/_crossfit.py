@@ -11,6 +11,9 @@ smoothing rule and target type, and smoothing runs once per cell, not once per r
 - k-fold / holdout: one cell per (fold, level), fitted on the other folds;
 - leave-one-out / ordered: one cell per row.
 
+``out_of_fold`` also returns the in-sample cells (the tables ``transform`` uses), pooled
+from its per-(fold, level) statistics, so k-fold fitting reads the rows once.
+
 Inputs shared by every scheme
 -----------------------------
 ``codes``  int64 (n_rows,): a level index ``>= 0``, or negative for a row in no level
@@ -360,7 +363,7 @@ def random_folds(n_rows: int, n_folds: int, rng: np.random.RandomState, classes=
             f"TargetStatistics(crossfit='kfold', cv={n_folds}) needs at least {n_folds} "
             f"training rows; got {n_rows}. Lower cv."
         )
-    # int8/int16 labels: shuffling a small array is cache-friendly (1 MB per million rows)
+    # 16-bit labels: shuffling a small array is cache-friendly (2 MB per million rows)
     deal = np.arange(n_folds, dtype=_small_int(n_folds))
     labels = np.tile(deal, -(-n_rows // n_folds))[:n_rows]  # np.resize is 10x slower
     # a Generator seeded from ``rng`` shuffles small integers about twice as fast

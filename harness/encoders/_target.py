@@ -69,7 +69,8 @@ def smooth(n, total, sq_dev, prior, tau2, *, smoothing, m=10.0, ramp_center=20.0
     Cestnik, B. (1990). Estimating probabilities: a crucial task in machine learning.
     Proc. ECAI'90, 147-149. Micci-Barreca, D. (2001). A preprocessing scheme for
     high-cardinality categorical attributes in classification and prediction problems.
-    SIGKDD Explorations 3(1):27-32, eq. 3-4 (sigmoid) and eq. 5-6 (empirical Bayes).
+    SIGKDD Explorations 3(1):27-32, eq. 3-4 (sigmoid). Empirical Bayes as scikit-learn
+    1.9.1 implements it in ``TargetEncoder`` (its source cites eq. 5-6 of that paper).
     """
     n2 = np.asarray(n, dtype=np.float64)[:, None]
     prior = np.broadcast_to(prior, total.shape)
@@ -205,9 +206,12 @@ def _target_kind(y, requested: str):
 def _factorize(y):
     """Codes and distinct values of ``y``; small non-negative integers skip the hash table."""
     if y.dtype.kind in "iub" and len(y) and y.min() >= 0 and y.max() < 2**16:
-        present = np.bincount(y.astype(np.int64)) > 0
-        rank = np.cumsum(present) - 1
-        return rank[y.astype(np.int64)], np.flatnonzero(present).astype(y.dtype)
+        y64 = y.astype(np.int64, copy=False)
+        present = np.bincount(y64) > 0
+        uniques = np.flatnonzero(present).astype(y.dtype)
+        if present.all():  # labels 0..k-1 (the usual 0/1) are their own codes
+            return y64, uniques
+        return (np.cumsum(present) - 1)[y64], uniques
     codes, uniques = pd.factorize(y, use_na_sentinel=True)
     return codes, np.asarray(uniques)
 
@@ -246,7 +250,8 @@ class TargetStatistics(CategoricalEncoder):
         Standard deviation of Gaussian noise added to the training encodings returned
         by ``fit_transform`` (never to ``transform``).
     holdout_fraction : float in (0, 1), default=0.5
-        Share of rows in the first part under ``crossfit="holdout"``.
+        Under ``crossfit="holdout"``, the share of rows in the first of the two random
+        parts; each part is encoded from the other (``_crossfit.holdout_folds``).
     missing : {"prior", "category"}, default="prior"
         A missing value gets the prior, or is a level of its own (as scikit-learn).
     target_type : {"auto", "binary", "multiclass", "continuous"}, default="auto"

@@ -23,6 +23,7 @@ import pandas as pd
 
 from harness import stats
 from harness.errors import StoreError
+from harness.metrics import CLASSIFICATION_METRICS, REGRESSION_METRICS
 from harness.reporting import _bib, figures, tables
 from harness.reporting._html import (Bullets, Code, Figure, Heading, Note, Para, Table,
                                      to_html, to_markdown)
@@ -112,19 +113,19 @@ def _models(results: pd.DataFrame, manifest: dict) -> tuple:
 
 
 def _robustness(results, recs, metrics, low, high) -> pd.DataFrame:
+    """Verdict robustness per primary metric, over the metrics of the same task type."""
     frames = []
-    for metric in metrics:  # one headline per primary metric; its task's metrics checked
-        task_metrics = (stats.GREATER_IS_BETTER.keys() if metric not in ("rmse", "mae", "r2")
-                        else ("rmse", "mae", "r2"))
-        related = [m for m in task_metrics if (m in ("rmse", "mae", "r2"))
-                   == (metric in ("rmse", "mae", "r2")) and m in results.columns]
-        head = {mod: r.best_by_rank for (mod, met), r in recs.items() if met == metric}
-        models = [mod for mod in head if head[mod] is not None]
-        if models:
-            frames.append(tables.robustness_table(results, head, metrics=related, low=low,
-                                                  high=high).query("model in @models"))
-    return pd.concat(frames, ignore_index=True) if frames else tables.robustness_table(
-        results.iloc[:0], {}, metrics=[], low=low, high=high)
+    for metric in metrics:  # one headline per primary metric
+        family = REGRESSION_METRICS if metric in REGRESSION_METRICS else CLASSIFICATION_METRICS
+        related = [m for m in family if m in results.columns]
+        head = {mod: r.best_by_rank for (mod, met), r in recs.items()
+                if met == metric and r.best_by_rank is not None}
+        if head:
+            rob = tables.robustness_table(results, head, metrics=related, low=low, high=high)
+            frames.append(rob.loc[rob["model"].isin(list(head))])
+    cols = ["model", "metric", "regime", "aggregation", "top_encoder", "n_datasets",
+            "headline", "agrees"]
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=cols)
 
 
 def analyse(run: Run, *, n_boot: int = 2000, seed: int = 0) -> Analysis:

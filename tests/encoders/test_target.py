@@ -68,7 +68,10 @@ def test_kfold_matches_sklearn_target_encoder(rng, target, ours, theirs):
     )
     np.testing.assert_allclose(encoder.transform(X), reference.transform(X), rtol=0, atol=1e-10)
     fitted = TargetStatistics(missing="category", **ours).fit(X, y)
-    np.testing.assert_allclose(fitted.transform(X), reference.transform(X), rtol=0, atol=1e-10)
+    reference_fit = TargetEncoder(smooth=theirs).fit(X, y)  # fit: full data, no splitter
+    np.testing.assert_allclose(
+        fitted.transform(X), reference_fit.transform(X), rtol=0, atol=1e-10
+    )
 
 
 @pytest.mark.parametrize("target", ["binary", "multiclass", "continuous"])
@@ -173,6 +176,7 @@ def test_level_over_no_rows_gets_the_prior(smoothing):
 @pytest.mark.parametrize("smoothing", ["none", "m-estimate", "sigmoid", "empirical-bayes"])
 @pytest.mark.parametrize("missing", ["prior", "category"])
 def test_unseen_and_missing_values_at_transform(rng, smoothing, missing):
+    # unseen -> prior: common practice, no source (scikit-learn's TargetEncoder does it too)
     X, y = make_data(rng, "binary")
     enc = TargetStatistics(smoothing=smoothing, missing=missing).fit(X, y)
     new = pd.DataFrame(
@@ -276,6 +280,7 @@ def test_weight_of_evidence_of_a_smoothed_rate(rng):
 # --- the other schemes and options ----------------------------------------------------------
 @pytest.mark.parametrize("fraction", [0.3, 0.5])
 def test_holdout_encodes_each_part_from_the_other(rng, fraction):
+    # our own scheme (documented in _crossfit.holdout_folds), checked by direct group means
     X, y = make_data(rng, "continuous", n_rows=200)
     enc = TargetStatistics(
         crossfit="holdout", holdout_fraction=fraction, smoothing="none", random_state=0
@@ -295,6 +300,7 @@ def test_holdout_encodes_each_part_from_the_other(rng, fraction):
 
 @pytest.mark.parametrize("crossfit", ["none", "kfold", "loo", "ordered", "holdout"])
 def test_noise_only_on_training_encodings(rng, crossfit):
+    # Gaussian noise on training encodings only: common practice, no source
     X, y = make_data(rng, "binary", n_rows=2000)
     clean = TargetStatistics(crossfit=crossfit, random_state=1)
     noisy = TargetStatistics(crossfit=crossfit, random_state=1, noise=0.05)
@@ -307,6 +313,7 @@ def test_noise_only_on_training_encodings(rng, crossfit):
 
 
 def test_in_sample_crossfit_equals_fit_then_transform(rng):
+    # by definition: without cross-fitting the training rows use the full-data tables
     X, y = make_data(rng, "multiclass")
     enc = TargetStatistics(crossfit="none")
     np.testing.assert_allclose(enc.fit_transform(X, y), enc.transform(X), rtol=0, atol=1e-14)
