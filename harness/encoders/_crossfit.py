@@ -33,6 +33,7 @@ from __future__ import annotations
 from typing import NamedTuple
 
 import numpy as np
+from sklearn.utils import check_random_state
 
 from harness.errors import EncoderInputError
 
@@ -414,6 +415,30 @@ def holdout_folds(n_rows: int, fraction: float, rng: np.random.RandomState) -> n
         )
     fold = np.ones(n_rows, dtype=np.int64)
     fold[rng.permutation(n_rows)[:size]] = 0
+    return fold
+
+
+def kfold_folds(n_rows: int, splitter) -> np.ndarray:
+    """Fold of each row exactly as ``sklearn.model_selection.KFold`` assigns it.
+
+    ``KFold`` shuffles ``arange(n)`` once with its ``random_state`` and cuts the result
+    into consecutive parts whose sizes differ by at most one, the first ``n % k`` parts
+    one larger (scikit-learn's ``KFold._iter_test_indices``). Computing the assignment
+    directly gives the same folds without materialising k index arrays and masks.
+    """
+    indices = np.arange(n_rows)
+    if splitter.shuffle:
+        check_random_state(splitter.random_state).shuffle(indices)
+    k = splitter.n_splits
+    if n_rows < k:
+        raise EncoderInputError(
+            f"TargetStatistics: `cv` has {k} folds but there are only {n_rows} rows; "
+            "use fewer folds."
+        )
+    sizes = np.full(k, n_rows // k, dtype=np.int64)
+    sizes[: n_rows % k] += 1
+    fold = np.empty(n_rows, dtype=np.int64)
+    fold[indices] = np.repeat(np.arange(k, dtype=np.int64), sizes)
     return fold
 
 

@@ -17,6 +17,7 @@ from numbers import Integral, Real
 import numpy as np
 import pandas as pd
 from scipy.special import expit, logit
+from sklearn.model_selection import KFold
 from sklearn.utils import check_random_state
 from sklearn.utils.multiclass import type_of_target
 from sklearn.utils.validation import (
@@ -428,6 +429,8 @@ class TargetStatistics(CategoricalEncoder):
             return None
         if isinstance(self.cv, Integral):
             return _crossfit.random_folds(len(y), int(self.cv), rng, classes), int(self.cv)
+        if type(self.cv) is KFold:
+            return _crossfit.kfold_folds(len(y), self.cv), self.cv.n_splits
         return _crossfit.folds_from_splits(self.cv.split(frame, y), len(y))
 
     def _encode(self, cells):

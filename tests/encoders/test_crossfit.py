@@ -207,3 +207,36 @@ def test_random_folds_need_enough_rows():
 def test_holdout_parts_have_the_requested_size():
     fold = _crossfit.holdout_folds(50, 0.3, np.random.RandomState(0))
     assert np.bincount(fold).tolist() == [15, 35]
+
+
+@pytest.mark.parametrize("n_rows", [5, 17, 1000])
+@pytest.mark.parametrize("random_state", [None, 0, 7])
+@pytest.mark.parametrize("shuffle", [True, False])
+def test_kfold_fast_path_equals_kfold_split(n_rows, random_state, shuffle):
+    """Our direct fold assignment equals scikit-learn's KFold.split (read in its source,
+    KFold._iter_test_indices, scikit-learn 1.9.1)."""
+    from sklearn.model_selection import KFold
+
+    from harness.encoders._crossfit import folds_from_splits, kfold_folds
+
+    rs = random_state if (shuffle and random_state is not None) else None
+    kw = {"shuffle": shuffle, "random_state": rs} if shuffle else {}
+    if shuffle and rs is None:
+        np.random.seed(3)
+        ours = kfold_folds(n_rows, KFold(5, **kw))
+        np.random.seed(3)
+        ref, _ = folds_from_splits(KFold(5, **kw).split(np.zeros(n_rows)), n_rows)
+    else:
+        ours = kfold_folds(n_rows, KFold(5, **kw))
+        ref, _ = folds_from_splits(KFold(5, **kw).split(np.zeros(n_rows)), n_rows)
+    np.testing.assert_array_equal(ours, ref)
+
+
+def test_kfold_fast_path_refuses_too_few_rows():
+    from sklearn.model_selection import KFold
+
+    from harness.encoders._crossfit import kfold_folds
+    from harness.errors import EncoderInputError
+
+    with pytest.raises(EncoderInputError, match="only 3 rows"):
+        kfold_folds(3, KFold(5))
