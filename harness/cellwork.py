@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 import time
 import traceback
+import warnings
 from dataclasses import dataclass
 from datetime import datetime, timezone
 
@@ -75,7 +76,10 @@ def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") ->
 
 def run_unit(dataset, job: UnitJob) -> list[dict]:
     """Encode one outer fold with one encoder and fit/score every model of the unit."""
-    with threadpool_limits(1):
+    with threadpool_limits(1), warnings.catch_warnings():
+        # convergence and deprecation chatter from estimators would drown the progress
+        # bar; a cell's outcome is in its row (status, error), not in warnings
+        warnings.simplefilter("ignore")
         encoded = _encode(dataset, job)
         if isinstance(encoded, list):  # the encoder failed: one row per cell
             return encoded

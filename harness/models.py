@@ -70,6 +70,20 @@ def _seeded(cls, seed_name: str | None = "random_state"):
     return build
 
 
+def _svm_classifier(seed: int, **params):
+    """RBF SVC with probabilities from a sigmoid (Platt) calibration on 3 internal folds.
+
+    scikit-learn 1.9 deprecates ``SVC(probability=True)`` in favour of this construction.
+    """
+    from sklearn.calibration import CalibratedClassifierCV
+
+    params.setdefault("random_state", seed)
+    return CalibratedClassifierCV(SVC(**params), method="sigmoid", cv=3, ensemble=False)
+
+
+_svm_classifier.estimator = SVC
+
+
 def _lightgbm(kind: str):
     def build(seed: int, **params):
         import lightgbm as lgb
@@ -114,11 +128,10 @@ FAMILIES: dict[str, Family] = {
     ),
     "svm": Family(
         "svm",
-        _seeded(SVC),
+        _svm_classifier,
         _seeded(SVR, None),
         sparse=True,
         scaled=True,
-        defaults={"classifier": {"probability": True}, "regressor": {}},
         max_rows=20_000,
         summary="RBF support vector machine; skipped above max_rows training rows",
     ),

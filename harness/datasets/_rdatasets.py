@@ -160,7 +160,7 @@ BUNDLED = (
     ),
     Bundled("nass_cds", "DAAG", "nassCDS", "dead", "binary", 26217, 9409, drop=("injSeverity", "weight")),
     Bundled(
-        "flights", "nycflights13", "flights", "arr_delay", "regression", 327346, 4037,
+        "flights", "nycflights13", "flights", "arr_delay", "regression", 327346, 4037, ("scale",),
         drop=("dep_delay", "dep_time", "arr_time", "air_time", "time_hour", "year"),
     ),
 )

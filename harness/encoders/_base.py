@@ -204,6 +204,39 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
         return tags
 
 
+class LevelCodeEncoder(CategoricalEncoder):
+    """An encoder whose output depends only on each row's level codes (no target).
+
+    Subclasses provide ``_fit_codes(X) -> codes`` (validate parameters, learn levels and
+    layout) and ``_to_output(codes)``; with ``unseen="error"`` they also provide
+    ``_refuse_unseen(frame, codes)``. Fitting, transforming and the one-pass
+    ``fit_transform`` (one factorisation instead of two) are the same for all of them.
+    """
+
+    def fit(self, X, y=None):
+        """Learn the levels of each column. ``y`` is ignored."""
+        self._fit_codes(X)
+        return self
+
+    def fit_transform(self, X, y=None, **fit_params):
+        """Fit and return the encoded training rows. ``y`` is ignored."""
+        return self._to_output(self._fit_codes(X))
+
+    def transform(self, X):
+        """Encode ``X`` with the fitted levels.
+
+        Raises
+        ------
+        EncoderInputError
+            If ``unseen="error"`` and ``X`` holds a value not seen at fit.
+        """
+        frame = self._frame(X, reset=False)
+        codes = self._codes(frame)
+        if getattr(self, "unseen", None) == "error":
+            self._refuse_unseen(frame, codes)
+        return self._to_output(codes)
+
+
 def _lexical_argsort(uniques) -> np.ndarray:
     """Sorted order of levels: numbers numerically, strings lexically, mixed by string."""
     if isinstance(getattr(uniques, "dtype", None), pd.StringDtype):

@@ -5,14 +5,14 @@ from __future__ import annotations
 import numpy as np
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import CategoricalEncoder, check_option
+from harness.encoders._base import LevelCodeEncoder, check_option
 
 __all__ = ["FrequencyCodes"]
 
 SCALES = ("count", "proportion")
 
 
-class FrequencyCodes(CategoricalEncoder):
+class FrequencyCodes(LevelCodeEncoder):
     """Replace each category by its training count (or proportion of training rows).
 
     Parameters
@@ -35,20 +35,6 @@ class FrequencyCodes(CategoricalEncoder):
 
     def __init__(self, scale="count"):
         self.scale = scale
-
-    def fit(self, X, y=None):
-        """Count the levels of each column. ``y`` is ignored."""
-        self._fit_codes(X)
-        return self
-
-    def fit_transform(self, X, y=None, **fit_params):
-        """Fit and return the training frequencies (one factorisation instead of two)."""
-        return self._to_output(self._fit_codes(X))
-
-    def transform(self, X):
-        """Return an ``(n_samples, n_features)`` float64 array of frequencies."""
-        frame = self._frame(X, reset=False)
-        return self._to_output(self._codes(frame))
 
     def get_feature_names_out(self, input_features=None):
         """``<column>__count`` (or ``__proportion``) per input column."""

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import UNSEEN, CategoricalEncoder, check_option
+from harness.encoders._base import UNSEEN, LevelCodeEncoder, check_option
 from harness.errors import EncoderInputError
 
 __all__ = ["IntegerCodes"]
@@ -15,7 +15,7 @@ UNSEEN_RULES = ("code", "nan", "error")
 MISSING_RULES = ("code", "nan")
 
 
-class IntegerCodes(CategoricalEncoder):
+class IntegerCodes(LevelCodeEncoder):
     """Replace each category by an integer code (returned as float64).
 
     For a column with ``K`` levels seen at fit, the codes are ``0 .. K-1`` for the levels,
@@ -53,29 +53,6 @@ class IntegerCodes(CategoricalEncoder):
         self.order = order
         self.unseen = unseen
         self.missing = missing
-
-    def fit(self, X, y=None):
-        """Learn the levels of each column. ``y`` is ignored."""
-        self._fit_codes(X)
-        return self
-
-    def fit_transform(self, X, y=None, **fit_params):
-        """Fit and return the training codes (one factorisation instead of two)."""
-        return self._to_output(self._fit_codes(X))
-
-    def transform(self, X):
-        """Return the codes of ``X`` as an ``(n_samples, n_features)`` float64 array.
-
-        Raises
-        ------
-        EncoderInputError
-            If ``unseen="error"`` and ``X`` holds a value not seen at fit.
-        """
-        frame = self._frame(X, reset=False)
-        codes = self._codes(frame)
-        if self.unseen == "error":
-            self._refuse_unseen(frame, codes)
-        return self._to_output(codes)
 
     def get_feature_names_out(self, input_features=None):
         """One output column per input column, named as the input column."""

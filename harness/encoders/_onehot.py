@@ -8,7 +8,7 @@ from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
 from harness.encoders._base import (
     UNSEEN,
-    CategoricalEncoder,
+    LevelCodeEncoder,
     check_count,
     check_flag,
     check_option,
@@ -22,7 +22,7 @@ MISSING_NAME = "<missing>"
 OTHER_NAME = "<other>"
 
 
-class OneHotCodes(CategoricalEncoder):
+class OneHotCodes(LevelCodeEncoder):
     """One indicator column per level (one-hot encoding).
 
     Per input column the output block holds the levels in sorted order, then a column for
@@ -63,29 +63,6 @@ class OneHotCodes(CategoricalEncoder):
         self.max_levels = max_levels
         self.drop_one = drop_one
         self.sparse = sparse
-
-    def fit(self, X, y=None):
-        """Learn the levels, their pooling and the output layout. ``y`` is ignored."""
-        self._fit_codes(X)
-        return self
-
-    def fit_transform(self, X, y=None, **fit_params):
-        """Fit and return the training indicators (one factorisation instead of two)."""
-        return self._to_output(self._fit_codes(X))
-
-    def transform(self, X):
-        """Return the indicators, CSR (``sparse=True``) or dense float64.
-
-        Raises
-        ------
-        EncoderInputError
-            If ``unseen="error"`` and ``X`` holds a value with no column.
-        """
-        frame = self._frame(X, reset=False)
-        codes = self._codes(frame)
-        if self.unseen == "error":
-            self._refuse_unseen(frame, codes)
-        return self._to_output(codes)
 
     def get_feature_names_out(self, input_features=None):
         """``<column>=<level>``, ``<column>=<missing>`` and ``<column>=<other>`` names."""

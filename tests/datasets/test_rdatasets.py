@@ -63,8 +63,8 @@ def test_catalog_covers_the_required_spread():
     bands = {("low" if b.max_cardinality < 10 else "medium" if b.max_cardinality <= 100 else "high") for b in TEAM}
     assert bands == {"low", "medium", "high"}
     assert {b.task for b in TEAM} == {"binary", "multiclass", "regression"}
-    largest = max(TEAM, key=lambda b: b.rows)
-    assert largest.rows >= 300_000 and largest.max_cardinality >= 1000
+    largest = max(BUNDLED, key=lambda b: b.rows)
+    assert largest.rows >= 300_000 and largest.max_cardinality >= 1000 and "scale" in largest.configs
 
 
 @pytest.mark.parametrize("entry", QUICKSTART, ids=lambda b: b.name)
