@@ -138,15 +138,25 @@ def _with_numeric(cat_train, cat_test, num_train: pd.DataFrame, num_test: pd.Dat
     if cat_train is None:
         return n_tr, n_te
     if isinstance(cat_train, pd.DataFrame):  # native categoricals stay a frame
-        nf_tr = pd.DataFrame(n_tr, columns=[f"num__{c}" for c in num_train.columns], index=cat_train.index)
-        nf_te = pd.DataFrame(n_te, columns=nf_tr.columns, index=cat_test.index)
-        return pd.concat([cat_train, nf_tr], axis=1), pd.concat([cat_test, nf_te], axis=1)
+        return _native_frame(cat_train, n_tr), _native_frame(cat_test, n_te)
     if sp.issparse(cat_train):
         return (
             sp.hstack([cat_train, sp.csr_matrix(n_tr)], format="csr"),
             sp.hstack([cat_test, sp.csr_matrix(n_te)], format="csr"),
         )
     return np.hstack([np.asarray(cat_train, dtype=float), n_tr]), np.hstack([np.asarray(cat_test, dtype=float), n_te])
+
+
+def _native_frame(cat: pd.DataFrame, num: np.ndarray) -> pd.DataFrame:
+    """Categorical columns then numeric ones, under positional names ``f0, f1, ...``.
+
+    Raw names broke models: a categorical column named like a prefixed numeric one
+    ("num__age" next to "age") duplicated a name, and LightGBM refuses names holding
+    JSON specials ("price [USD]"). Models take the columns by dtype, never by name.
+    """
+    out = pd.concat([cat, pd.DataFrame(num, index=cat.index)], axis=1)
+    out.columns = [f"f{i}" for i in range(out.shape[1])]
+    return out
 
 
 def _megabytes(matrix) -> float:
@@ -174,6 +184,12 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
     native = isinstance(enc.train, pd.DataFrame)
     if native and not family.native_categorical:
         row.update(status="not-applicable", error=f"model family '{family.name}' cannot take native categorical columns")
+        return row
+    if enc.n_out == 0:  # e.g. `drop` on a dataset without numeric columns: nothing to fit on
+        row.update(
+            status="not-applicable",
+            error=f"encoder '{cell.encoder.label}' left no feature column (the dataset has no numeric column to keep)",
+        )
         return row
     if cell.model.max_rows is not None and len(job.train_idx) > cell.model.max_rows:
         row.update(

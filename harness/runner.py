@@ -12,6 +12,7 @@ import os
 import platform
 import sys
 import time
+import warnings
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from importlib import metadata
@@ -104,6 +105,7 @@ def _enumerate_splits(splits):
 def plan(config: Config, only: str | None = None) -> Plan:
     """Load data and build the full list of cells to run (before skipping finished ones)."""
     loaded = load_datasets(config)
+    _warn_no_categorical(loaded)
     p = config.protocol
     splits = {label: outer_splits(ds, p.folds, p.repeats, p.stratify, config.seed) for label, ds in loaded.items()}
     layout = {}
@@ -113,6 +115,19 @@ def plan(config: Config, only: str | None = None) -> Plan:
             layout[label] = (max(r for r, _ in keys) + 1, max(f for _, f in keys) + 1)
     cells = select(build_grid(config, layout), only)
     return Plan(config, loaded, splits, cells)
+
+
+def _warn_no_categorical(loaded: dict) -> None:
+    """A dataset without categorical columns runs, but its encoders cannot differ: say so."""
+    for label, ds in loaded.items():
+        if not ds.categorical:
+            warnings.warn(
+                f"dataset '{label}' has no categorical column: every encoder passes only its "
+                f"{len(ds.numeric)} numeric column(s) through, so its cells compare models, not "
+                "encoders. List the categorical columns under `categorical` if the detection missed them.",
+                UserWarning,
+                stacklevel=3,
+            )
 
 
 def _jobs_for(plan_: Plan, todo: list[Cell]) -> list[tuple[str, UnitJob]]:

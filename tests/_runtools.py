@@ -120,9 +120,12 @@ def assert_same_results(a: pd.DataFrame, b: pd.DataFrame) -> None:
     for col in RESULT_COLUMNS:
         left, right = a[col].to_numpy(), b[col].to_numpy()
         if left.dtype.kind == "f" or right.dtype.kind == "f":
-            np.testing.assert_array_equal(left.astype(float), right.astype(float), err_msg=col)
+            left, right = left.astype(float), right.astype(float)
+            differ = ~((left == right) | (np.isnan(left) & np.isnan(right)))
         else:
-            assert list(left) == list(right), col
+            differ = left != right
+        where = a.loc[differ, ["dataset", "encoder", "model", "repeat", "fold"]]
+        assert not differ.any(), f"{col} differs in {where.to_string()}\n{left[differ]} != {right[differ]}"
 
 
 def assert_clean_refusal(proc, code: int | None = None) -> str:

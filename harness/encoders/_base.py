@@ -27,6 +27,7 @@ __all__ = [
     "UNSEEN",
     "MISSING",
     "CategoricalEncoder",
+    "LevelCodeEncoder",
     "as_frame",
     "check_count",
     "check_flag",

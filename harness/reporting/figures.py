@@ -34,9 +34,11 @@ from matplotlib.patches import Rectangle
 
 from harness import stats
 from harness.errors import DataError
+from harness.reporting.tables import metric_name
 
 __all__ = ["NothingToPlot", "rank_plot", "cd_diagram", "cost_plot", "relative_heatmap",
-           "leakage_plot", "pareto_front", "cliques", "place_labels", "save"]
+           "leakage_plot", "shortfall_matrix", "pareto_front", "cliques", "place_labels",
+           "save"]
 
 INK, MID, LIGHT, ACCENT = "#111111", "#6b6b6b", "#d9d9d9", "#0b5d6b"
 STYLE = {
@@ -45,9 +47,6 @@ STYLE = {
     "axes.spines.top": False, "axes.spines.right": False, "axes.edgecolor": MID,
     "axes.linewidth": 0.8, "svg.hashsalt": "harness", "figure.dpi": 100,
 }
-METRIC_NAMES = {"roc_auc": "ROC AUC", "log_loss": "log loss", "accuracy": "accuracy",
-                "balanced_accuracy": "balanced accuracy", "rmse": "RMSE", "mae": "MAE",
-                "r2": "R²"}
 
 
 class NothingToPlot(DataError):
@@ -55,7 +54,7 @@ class NothingToPlot(DataError):
 
 
 def _name(metric: str) -> str:
-    return METRIC_NAMES.get(metric, metric)
+    return metric_name(metric)
 
 
 def save(fig, directory, stem: str, *, dpi: int = 150) -> tuple[Path, Path]:
@@ -563,7 +562,8 @@ def _leak_panel(ax, part: pd.DataFrame, model: str, metric: str) -> None:
     ax.margins(x=0.18)
     ax.grid(axis="x", color=LIGHT, lw=0.6)
     ax.set_axisbelow(True)
-    ax.set_xlabel(f"train − test {_name(metric)}  (right = more optimistic)")
+    diff = "train − test" if stats.orientation(metric) > 0 else "test − train"
+    ax.set_xlabel(f"optimism gap: {diff} {_name(metric)}  (right = more optimistic)")
     ax.set_title(f"{model} · {_name(metric)}", loc="left")
 
 

@@ -26,6 +26,8 @@ __all__ = [
     "status_table",
     "scrub_error",
     "fmt_interval",
+    "metric_name",
+    "display",
     "to_latex",
     "write_table",
 ]

@@ -49,7 +49,7 @@ def test_sections_in_order(report):
 def test_answer_names_a_choice_and_caveats(report):
     md = (report[0] / "report.md").read_text()
     answer = md[md.index("## 1."):md.index("## 2.")]
-    assert re.search(r"\*\*lin\*\* \(linear\).*use \*\*\w+\*\*", answer)
+    assert re.search(r"\*\*lin\*\* \(linear\).*(use|the rule.s pick is) \*\*[\w-]+\*\*", answer)
     assert "Caveat: only 3 datasets" in answer  # three classification datasets in the sweep
     assert "RMSE" in answer  # the regression dataset gets its own verdict
 
@@ -195,3 +195,24 @@ def test_unknown_block_is_refused():
         _html.to_markdown([1])
     with pytest.raises(TypeError, match="unknown block str"):
         _html.to_html(["x"], "t", ".")
+
+
+@pytest.mark.parametrize("n", [3, 5, 6, 8])
+@pytest.mark.parametrize("k", [2, 4])
+def test_smallest_holm_p_matches_exact_wilcoxon(n, k):
+    from scipy import stats as sps
+
+    from harness.reporting.report import smallest_holm_p
+
+    # scipy's exact signed-rank test: all N differences positive is the most extreme case
+    floor = sps.wilcoxon(np.arange(1.0, n + 1), method="exact").pvalue
+    assert smallest_holm_p(n, k) == pytest.approx(min(1.0, (k - 1) * floor))  # Holm (1979)
+
+
+def test_powerless_rule_is_called_a_cost_fallback(tmp_path, rng):
+    # two datasets: no Wilcoxon test can reach p < 0.05, so the cheapest encoder wins
+    write_fake_run(fake_results(rng, n_datasets=2, skill={"te": 0.05, "codes": -0.05}), tmp_path)
+    write_report(tmp_path)
+    md = (tmp_path / "report" / "report.md").read_text()
+    assert "onehot (cost fallback; see text)" in md  # onehot is the cheapest fake encoder
+    assert "the better-informed provisional default" in md and "**te**" in md
