@@ -1110,10 +1110,46 @@ class Recommendation:
     caveats: tuple
 
 
-RULE = ("Among the encoders whose Holm-corrected Wilcoxon signed-rank p-value against the "
-        "best-ranked encoder is >= alpha (not significantly different; untestable "
-        "comparisons count as not different), pick the lowest median encoder+model seconds, "
-        "then the fewest median output features, then the best average rank.")
+RULE = ("Settings that fit target statistics on the rows they encode (cross-fitting 'none' "
+        "or 'loo') are never recommended. Among the remaining encoders whose Holm-corrected "
+        "Wilcoxon signed-rank p-value against the best-ranked remaining encoder is >= alpha "
+        "(not significantly different), pick the lowest median encoder+model seconds, then "
+        "the fewest median output features, then the best average rank. When the datasets "
+        "are too few for any Holm-corrected Wilcoxon test to reach alpha ((k-1)*2^(1-N) >= "
+        "alpha), no comparison can separate the encoders and the best average rank is "
+        "recommended, marked provisional.")
+
+
+def wilcoxon_floor(n_datasets: int, n_encoders: int) -> float:
+    """Smallest Holm-corrected two-sided exact Wilcoxon p-value reachable over N datasets.
+
+    The exact two-sided signed-rank p-value is at least ``2 * 2**-N`` (all differences of
+    one sign); Holm multiplies the smallest of ``k - 1`` p-values by ``k - 1``.
+
+    References
+    ----------
+    Wilcoxon (1945), Biometrics Bulletin 1(6); Holm (1979), Scand. J. Statistics 6(2).
+    """
+    if n_datasets < 1 or n_encoders < 2:
+        return 1.0
+    return float(min(1.0, (n_encoders - 1) * 2.0 ** (1 - n_datasets)))
+
+
+def leaky_settings(results: pd.DataFrame, *, target_kinds=("target",), leaky_schemes=("none", "loo"),
+                   crossfit_key: str = "crossfit", default_scheme: str = "kfold") -> set[str]:
+    """Encoder labels that fit target statistics on the rows they encode.
+
+    References
+    ----------
+    Prokhorenkova et al. (2018), NeurIPS: in-sample and leave-one-out target statistics
+    shift the training distribution (target leakage).
+    """
+    if "encoder_params" not in results or "encoder_kind" not in results:
+        return set()
+    rows = results.drop_duplicates("encoder")
+    rows = rows.loc[rows["encoder_kind"].isin(list(target_kinds))]
+    scheme = _crossfit_scheme(rows["encoder_params"].astype(object), crossfit_key, default_scheme)
+    return set(rows.loc[scheme.isin(list(leaky_schemes)), "encoder"].astype(str))
 
 
 def _failure_caveats(results: pd.DataFrame, model: str, model_column: str) -> list[str]:
@@ -1172,16 +1208,29 @@ def recommend(results: pd.DataFrame, model: str, metric: str, *, alpha: float = 
     ----------
     Demšar (2006), JMLR 7:1-30 (Wilcoxon signed-rank over datasets); Holm (1979).
     """
-    m = score_matrix(results, model, metric, missing=missing, model_column=model_column)
+    leaky = leaky_settings(results)
+    eligible = results.loc[~results["encoder"].isin(leaky)] if leaky else results
+    if eligible.empty:
+        eligible = results
+    m = score_matrix(eligible, model, metric, missing=missing, model_column=model_column)
     comp = compare_encoders(m, alpha=alpha, n_boot=n_boot, seed=seed,
                             min_datasets=min_datasets)
-    notes = list(comp.caveats) + _failure_caveats(results, model, model_column)
+    notes = list(comp.caveats) + _failure_caveats(eligible, model, model_column)
+    if leaky and eligible is not results:
+        notes.append("not eligible (target statistics fitted on the rows they encode): "
+                     + ", ".join(sorted(leaky)) + ".")
     if m.n_datasets == 0 or not m.encoders:
         notes.append(f"no complete dataset for model '{model}' and metric '{metric}'.")
         return Recommendation(model, metric, None, None, (), pd.DataFrame(), 0,
                               comp.friedman, RULE, tuple(notes))
     notes += _regime_caveats(results, m.scores.index, low, high)
-    ev = _evidence(comp, results, model, model_column, alpha)
+    ev = _evidence(comp, eligible, model, model_column, alpha)
+    floor = wilcoxon_floor(m.n_datasets, len(m.encoders))
+    if floor >= alpha:
+        ev["equivalent"] = ev.index == comp.best
+        notes.append(f"provisional: with {m.n_datasets} dataset(s) and {len(m.encoders)} encoders "
+                     f"no Holm-corrected Wilcoxon test can reach p < {alpha:g} (smallest "
+                     f"reachable p = {floor:.3g}); the best average rank is recommended.")
     pool = ev.loc[ev["equivalent"]].sort_values(
         ["median_time_s", "median_features", "avg_rank"], kind="stable", na_position="last")
     return Recommendation(model, metric, str(pool.index[0]), comp.best,

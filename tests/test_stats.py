@@ -399,16 +399,46 @@ def test_leakage_gap_orientation_for_lower_is_better():
 
 
 # ---------------------------------------------------------------------- recommendation
-def test_recommend_cheapest_among_equivalents_with_few_datasets(rng):
-    # 4 datasets: the exact Wilcoxon p is at least 2/2**4 = 0.125, nothing differs.
+def test_recommend_with_too_few_datasets_is_the_best_rank_marked_provisional(rng):
+    # 4 datasets, 3 encoders: the smallest reachable Holm-corrected exact Wilcoxon p is
+    # (k-1) * 2 * 2**-N = 2 * 2/16 = 0.25 (Wilcoxon 1945; Holm 1979), so no test can
+    # separate anything and the cheapest-equivalent rule would reward mere lack of power.
     means = frame(rng.random((4, 3)) * 0.1 + 0.7)
     df = make_results(means, seconds={"e0": 5.0, "e1": 1.0, "e2": 1.0},
                       features={"e0": 5, "e1": 30, "e2": 8})
     rec = S.recommend(df, "lr", "roc_auc", n_boot=100)
-    assert rec.choice == "e2"  # e1 and e2 tie on time, e2 has fewer features
-    assert set(rec.equivalent) == {"e0", "e1", "e2"} and rec.n_datasets == 4
+    assert S.wilcoxon_floor(4, 3) == 0.25
+    assert rec.choice == rec.best_by_rank and rec.equivalent == (rec.best_by_rank,)
+    assert any(c.startswith("provisional: with 4 dataset(s)") for c in rec.caveats)
     assert any("only 4 datasets" in c for c in rec.caveats)
     assert any("'high' cardinality regime" in c for c in rec.caveats)
+
+
+def test_recommend_cheapest_among_equivalents(rng):
+    # 12 datasets: the floor 2 * 2**-11 is far below 0.05; e1 and e2 are within noise of
+    # e0 (signs alternate), so all three are equivalent and the cheapest wins.
+    base = rng.random((12, 1)) * 0.1 + 0.7
+    wobble = np.resize([0.001, -0.001], (12, 1))
+    means = frame(np.hstack([base, base + wobble, base - wobble]))
+    df = make_results(means, seconds={"e0": 5.0, "e1": 1.0, "e2": 1.0},
+                      features={"e0": 5, "e1": 30, "e2": 8})
+    rec = S.recommend(df, "lr", "roc_auc", n_boot=100)
+    assert set(rec.equivalent) == {"e0", "e1", "e2"}
+    assert rec.choice == "e2"  # e1 and e2 tie on time, e2 has fewer features
+
+
+def test_recommend_never_picks_a_leaky_setting(rng):
+    # in-sample target statistics look best on every dataset but leak (Prokhorenkova et al.
+    # 2018, NeurIPS): they are excluded from the pool and named in the caveats
+    base = rng.random((12, 1)) * 0.1 + 0.7
+    means = frame(np.hstack([base + 0.05, base, base - 0.01]))
+    df = make_results(means, seconds={"e0": 0.1, "e1": 1.0, "e2": 1.0})
+    df["encoder_kind"] = np.where(df["encoder"] == "e0", "target", "onehot")
+    df["encoder_params"] = np.where(df["encoder"] == "e0", '{"crossfit": "none"}', "{}")
+    assert S.leaky_settings(df) == {"e0"}
+    rec = S.recommend(df, "lr", "roc_auc", n_boot=100)
+    assert rec.choice == "e1" and "e0" not in rec.evidence.index
+    assert any("not eligible" in c and "e0" in c for c in rec.caveats)
 
 
 def test_recommend_excludes_significantly_worse_cheap_encoder(rng):

@@ -160,44 +160,23 @@ def _family(run: Run, model: str) -> str:
     return fam
 
 
-def smallest_holm_p(n_datasets: int, n_encoders: int) -> float:
-    """Smallest Holm-adjusted p-value the Wilcoxon tests against the best can reach.
-
-    The exact two-sided signed-rank p-value is at least ``2 / 2**N`` (all N differences
-    of one sign, Wilcoxon 1945); Holm multiplies the smallest of the ``k - 1`` p-values by
-    ``k - 1`` (Holm 1979). When this floor is not below alpha, no encoder can be shown
-    worse than the best, whatever the data.
-    """
-    if n_datasets < 1 or n_encoders < 2:
-        return float("nan")
-    return min(1.0, (n_encoders - 1) * 2.0 ** (1 - n_datasets))
-
-
-def _powerless(rec: stats.Recommendation, alpha: float = 0.05) -> bool:
-    floor = smallest_holm_p(rec.n_datasets, len(rec.evidence))
-    return rec.choice is not None and rec.choice != rec.best_by_rank and not floor < alpha
+def _provisional(rec: stats.Recommendation, alpha: float = 0.05) -> bool:
+    """True when no Holm-corrected Wilcoxon test could reach alpha at this size."""
+    return rec.choice is not None and not stats.wilcoxon_floor(rec.n_datasets, len(rec.evidence)) < alpha
 
 
 def _choice_sentence(rec: stats.Recommendation) -> str:
     ev = rec.evidence
     c, b = ev.loc[rec.choice], ev.loc[rec.best_by_rank]
+    if _provisional(rec):
+        floor = stats.wilcoxon_floor(rec.n_datasets, len(ev))
+        return (f" This is provisional: with {rec.n_datasets} dataset(s) and {len(ev)} encoders "
+                f"no Holm-corrected Wilcoxon test can reach p < 0.05 (smallest attainable "
+                f"p = {floor:.3g}), so the best average rank is reported rather than the "
+                "cheapest equivalent. Add datasets before citing it.")
     if rec.choice == rec.best_by_rank:
         return " It is also the best-ranked encoder."
-    if _powerless(rec):
-        floor = smallest_holm_p(rec.n_datasets, len(ev))
-        return (f" Read this as a cost fallback, not as evidence: with {rec.n_datasets} "
-                f"dataset(s) and {len(ev)} encoders the Holm-corrected Wilcoxon tests cannot "
-                f"reach p < 0.05 (smallest attainable p = {floor:.3g}), so the rule counts "
-                f"every encoder as equivalent and picks the cheapest, which here ranks "
-                f"{c['avg_rank']:.2f} on average. Until more datasets are run, the "
-                f"best-ranked encoder, **{rec.best_by_rank}** ({b['avg_rank']:.2f}, "
-                f"{b['median_time_s']:.3g} s), is the better-informed provisional default.")
     p = c["wilcoxon_p_holm"]
-    if not np.isfinite(p):
-        return (f" With {rec.n_datasets} complete dataset(s) no test can separate it from the "
-                f"best-ranked encoder, {rec.best_by_rank} ({b['avg_rank']:.2f}), so the rule "
-                "treats every encoder as equivalent and picks the cheapest: this is a cost "
-                "choice, not evidence that the two perform alike.")
     return (f" The best-ranked encoder is {rec.best_by_rank} ({b['avg_rank']:.2f}, "
             f"{b['median_time_s']:.3g} s), but the Holm-corrected Wilcoxon test does not "
             f"separate the two (p = {p:.3g}) and {rec.choice} is cheaper.")
@@ -209,12 +188,12 @@ def _answer_text(a: Analysis, rec: stats.Recommendation) -> str:
     if rec.choice is None:
         return f"{head}: **no recommendation** — no dataset has a score for every encoder."
     c = rec.evidence.loc[rec.choice]
-    verb = "the rule's pick is" if _powerless(rec) else "use"
+    verb = "provisionally use" if _provisional(rec) else "use"
     text = (f"{head}: {verb} **{rec.choice}** (average rank {c['avg_rank']:.2f}, median "
             f"{c['median_time_s']:.3g} s per fold, {c['median_features']:.0f} output features).")
     text += _choice_sentence(rec)
     others = [e for e in rec.equivalent if e != rec.choice]
-    if others and rec.n_datasets >= 2 and not _powerless(rec):
+    if others and rec.n_datasets >= 2 and not _provisional(rec):
         text += (f" Not significantly different from the best: {', '.join(map(str, others))}"
                  " — any of these is defensible on this evidence.")
     if rec.n_datasets >= 2:
@@ -226,7 +205,7 @@ def _answer_text(a: Analysis, rec: stats.Recommendation) -> str:
 def _leak_caveats(a: Analysis, rec: stats.Recommendation) -> list[str]:
     """Caveats for a recommended (or provisional) encoder that uses the target in-sample."""
     au = a.audit
-    named = [rec.choice] + ([rec.best_by_rank] if _powerless(rec) else [])
+    named = [rec.choice]
     if au.empty or rec.choice is None:
         return []
     out = []
@@ -245,7 +224,7 @@ def _leak_caveats(a: Analysis, rec: stats.Recommendation) -> list[str]:
 def _strength(rec: stats.Recommendation) -> str:
     if rec.choice is None:
         return "none"
-    if _powerless(rec) or not smallest_holm_p(rec.n_datasets, len(rec.evidence)) < 0.05:
+    if _provisional(rec):
         return "none: tests cannot reject at this size"
     if rec.n_datasets < 5:
         return "thin (fewer than 5 datasets)"
@@ -258,8 +237,8 @@ def _summary_frame(a: Analysis) -> pd.DataFrame:
     rows = []
     for (model, metric), rec in a.recommendations.items():  # loop over models
         choice = rec.choice or "—"
-        if _powerless(rec):
-            choice = f"{rec.choice} (cost fallback; see text)"
+        if _provisional(rec):
+            choice = f"{rec.choice} (provisional)"
         rows.append({"model": model, "family": _family(a.run, model),
                      "metric": metric_name(metric), "recommended": choice,
                      "best by rank": rec.best_by_rank or "—",
