@@ -1226,13 +1226,14 @@ def recommend(results: pd.DataFrame, model: str, metric: str, *, alpha: float = 
     notes += _regime_caveats(results, m.scores.index, low, high)
     ev = _evidence(comp, eligible, model, model_column, alpha)
     floor = wilcoxon_floor(m.n_datasets, len(m.encoders))
+    pool = ev.loc[ev["equivalent"]].sort_values(
+        ["median_time_s", "median_features", "avg_rank"], kind="stable", na_position="last")
+    choice = str(pool.index[0])
     if floor >= alpha:
-        ev["equivalent"] = ev.index == comp.best
+        choice = str(comp.best)
         notes.append(f"provisional: with {m.n_datasets} dataset(s) and {len(m.encoders)} encoders "
                      f"no Holm-corrected Wilcoxon test can reach p < {alpha:g} (smallest "
                      f"reachable p = {floor:.3g}); the best average rank is recommended.")
-    pool = ev.loc[ev["equivalent"]].sort_values(
-        ["median_time_s", "median_features", "avg_rank"], kind="stable", na_position="last")
-    return Recommendation(model, metric, str(pool.index[0]), comp.best,
+    return Recommendation(model, metric, choice, comp.best,
                           tuple(pool.index), ev, m.n_datasets, comp.friedman, RULE,
                           tuple(notes))

@@ -169,11 +169,7 @@ def _choice_sentence(rec: stats.Recommendation) -> str:
     ev = rec.evidence
     c, b = ev.loc[rec.choice], ev.loc[rec.best_by_rank]
     if _provisional(rec):
-        floor = stats.wilcoxon_floor(rec.n_datasets, len(ev))
-        return (f" This is provisional: with {rec.n_datasets} dataset(s) and {len(ev)} encoders "
-                f"no Holm-corrected Wilcoxon test can reach p < 0.05 (smallest attainable "
-                f"p = {floor:.3g}), so the best average rank is reported rather than the "
-                "cheapest equivalent. Add datasets before citing it.")
+        return " This is provisional (see the caveats): add datasets before citing it."
     if rec.choice == rec.best_by_rank:
         return " It is also the best-ranked encoder."
     p = c["wilcoxon_p_holm"]

@@ -217,3 +217,4 @@ def test_powerless_comparison_is_reported_as_provisional(tmp_path, rng):
     md = (tmp_path / "report" / "report.md").read_text()
     assert "te (provisional)" in md
     assert "This is provisional" in md and "provisionally use **te**" in md
+    assert "no Holm-corrected Wilcoxon test can reach p < 0.05" in md
