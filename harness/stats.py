@@ -1020,13 +1020,22 @@ def _crossfit_scheme(params: pd.Series, key: str, default: str) -> pd.Series:
 
 
 def _row_gaps(df: pd.DataFrame) -> pd.Series:
-    """Train minus test of each row's primary metric, positive = optimistic."""
+    """Optimism of each row's primary metric on its training fold, positive = optimistic.
+
+    Scores that grow with quality (ROC AUC, accuracy, R²) live on bounded, comparable
+    scales: the gap is train minus test. Errors (RMSE, MAE, log loss) are in the target's
+    own units, which differ by orders of magnitude between datasets: the gap is relative,
+    (test - train) / test, the share of the test error that the training fold hides.
+    """
     gap = pd.Series(np.nan, index=df.index)
     for metric in pd.unique(df["primary_metric"]):  # loop over metric names
         rows = df["primary_metric"] == metric
         train = f"train_{metric}"
         if metric in df.columns and train in df.columns:
-            gap[rows] = orientation(metric) * (df.loc[rows, train] - df.loc[rows, metric])
+            diff = orientation(metric) * (df.loc[rows, train] - df.loc[rows, metric])
+            if orientation(metric) < 0:
+                diff = diff / df.loc[rows, metric].abs().replace(0.0, np.nan)
+            gap[rows] = diff
     return gap
 
 

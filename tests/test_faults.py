@@ -241,6 +241,7 @@ def _kill_one_worker(proc, out, match: str) -> int:
         workers = [w for w in _workers(proc) if match in " ".join(_cmdline(w))]
         if workers:
             workers[0].kill()
+            assert count_rows(out) < len(_grid_ids(SMALL_CONFIG))  # mid-run, not after
             return workers[0].pid
         time.sleep(0.1)
     raise AssertionError("no worker process found")

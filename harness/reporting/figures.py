@@ -562,8 +562,11 @@ def _leak_panel(ax, part: pd.DataFrame, model: str, metric: str) -> None:
     ax.margins(x=0.18)
     ax.grid(axis="x", color=LIGHT, lw=0.6)
     ax.set_axisbelow(True)
-    diff = "train − test" if stats.orientation(metric) > 0 else "test − train"
-    ax.set_xlabel(f"optimism gap: {diff} {_name(metric)}  (right = more optimistic)")
+    if stats.orientation(metric) > 0:
+        label = f"optimism gap: train − test {_name(metric)}"
+    else:
+        label = f"optimism gap: (test − train) / test {_name(metric)}"
+    ax.set_xlabel(f"{label}  (right = more optimistic)")
     ax.set_title(f"{model} · {_name(metric)}", loc="left")
 
 

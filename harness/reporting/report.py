@@ -475,7 +475,9 @@ def leakage_section(a: Analysis, root: Path) -> list:
     out = [Heading("5. Leakage audit", 2, "leakage"),
            Para("The optimism gap is the training-fold score minus the test-fold score of "
                 "the primary metric (oriented so that positive means the training score looks "
-                "better). Encoders that do not use the target, and target statistics that are "
+                "better); for error metrics (RMSE, MAE, log loss) it is relative, "
+                "(test − train) / test, so that datasets with targets in different units "
+                "can be pooled. Encoders that do not use the target, and target statistics that are "
                 "cross-fitted, are the reference. A setting that uses the target without "
                 "cross-fitting ('none' fits and encodes the same rows; 'loo' leaks each row's "
                 f"own target, {_bib.cite('prokhorenkova2018')}) is flagged when the lower bound "
