@@ -13,10 +13,10 @@ Missing cells
     A cell is a (dataset, encoder) pair of one model. A dataset on which no encoder has a
     value for the metric is *not applicable* (e.g. ROC AUC on a regression dataset) and
     left out silently. A dataset on which some but not all encoders have a value (an
-    encoder failed, timed out or was skipped) is a *missing cell*. The default policy,
-    ``missing="drop_datasets"``, drops such datasets for that model so that every
-    comparison is paired; ``missing="drop_encoders"`` drops the incomplete encoders
-    instead. Either way the dropped names are kept on the :class:`ScoreMatrix` and
+    encoder failed, timed out or was skipped) is a *missing cell*. Every comparison is
+    paired, so something must go: ``missing="drop_datasets"`` drops such datasets for
+    that model, ``missing="drop_encoders"`` drops the incomplete encoders instead, and
+    the default ``missing="auto"`` applies whichever keeps more complete cells. Either way the dropped names are kept on the :class:`ScoreMatrix` and
     reported as caveats.
 Degenerate input
     Fewer than two datasets or encoders never raise: tests return NaN and a caveat says
@@ -77,7 +77,7 @@ __all__ = [
 ]
 
 STATUS_OK = "ok"
-MISSING_POLICIES = ("drop_datasets", "drop_encoders")
+MISSING_POLICIES = ("auto", "drop_datasets", "drop_encoders")
 #: aggregation name -> (column of :func:`aggregate_scores`, True when smaller is better)
 AGGREGATIONS = {
     "mean_rank": ("mean_rank", True),
@@ -344,6 +344,12 @@ def _apply_missing_policy(wide: pd.DataFrame, missing: str):
     cells = holes.stack()
     cells = cells[cells].reset_index().iloc[:, :2]
     cells.columns = ["dataset", "encoder"]
+    if missing == "auto":
+        # keep the larger complete block: an encoder that fails on many datasets (e.g.
+        # native categoricals above a model's level limit) should not cost every dataset
+        keep_ds = int((~holes.any(axis=1)).sum()) * wide.shape[1]
+        keep_enc = int((~holes.any(axis=0)).sum()) * wide.shape[0]
+        missing = "drop_datasets" if keep_ds >= keep_enc else "drop_encoders"
     if missing == "drop_datasets":
         bad = holes.any(axis=1)
         return wide.loc[~bad], tuple(wide.index[bad]), (), cells
@@ -352,7 +358,7 @@ def _apply_missing_policy(wide: pd.DataFrame, missing: str):
 
 
 def score_matrix(results: pd.DataFrame, model: str, metric: str, *,
-                 missing: str = "drop_datasets", datasets=None,
+                 missing: str = "auto", datasets=None,
                  model_column: str = "model") -> ScoreMatrix:
     """Build the datasets x encoders matrix of mean scores and per-dataset ranks.
 
@@ -364,8 +370,9 @@ def score_matrix(results: pd.DataFrame, model: str, metric: str, *,
         Value of ``model_column`` to keep.
     metric : str
         Metric column (orientation from ``GREATER_IS_BETTER``).
-    missing : {"drop_datasets", "drop_encoders"}
-        Missing-cell policy (module docstring).
+    missing : {"auto", "drop_datasets", "drop_encoders"}
+        Missing-cell policy (module docstring); ``"auto"`` applies whichever of the two
+        keeps more complete cells (ties: drop datasets).
     datasets : iterable of str, optional
         Restrict to these datasets (e.g. one cardinality regime).
     model_column : str
@@ -905,7 +912,7 @@ def dataset_regimes(results: pd.DataFrame, *, low: int = 10, high: int = 100) ->
 
 
 def verdict_robustness(results: pd.DataFrame, headline, *, models=None, metrics=None,
-                       low: int = 10, high: int = 100, missing: str = "drop_datasets",
+                       low: int = 10, high: int = 100, missing: str = "auto",
                        tie_tol: float = 0.0, model_column: str = "model") -> pd.DataFrame:
     """Top encoder under each aggregation x metric x model x cardinality regime.
 
@@ -1190,7 +1197,7 @@ def _evidence(comp: Comparison, results, model, model_column, alpha) -> pd.DataF
 
 
 def recommend(results: pd.DataFrame, model: str, metric: str, *, alpha: float = 0.05,
-              min_datasets: int = 5, missing: str = "drop_datasets", low: int = 10,
+              min_datasets: int = 5, missing: str = "auto", low: int = 10,
               high: int = 100, n_boot: int = 2000, seed: int = 0,
               model_column: str = "model") -> Recommendation:
     """Recommend one encoder for a model by the explicit rule in ``RULE``.

@@ -84,9 +84,10 @@ def _kill_round(out, proc, rng, during_startup: bool, before: int) -> dict:
         time.sleep(rng.uniform(0.2, 2.0))
     else:  # mid-run: after this process committed at least one unit, plus a random delay
         wait_for_rows(out, before + 1, proc)
-        time.sleep(rng.uniform(0.0, 1.5))
+        time.sleep(rng.uniform(0.0, 1.2))
     workers = _workers(proc)
-    if proc.poll() is not None:  # finished before the kill point
+    if proc.poll() is not None:  # finished before the kill point: it must have succeeded
+        assert proc.returncode == 0, proc.communicate()[1]  # e.g. refused: lock still held
         return {"killed": False, "rows": count_rows(out)}
     proc.kill()
     proc.communicate()
@@ -174,18 +175,20 @@ def test_ctrl_c_exits_130_promptly_and_resumes(tmp_path, jobs, whom, small_refer
 
 # --------------------------------------------------------------------------- two runs at once
 @pytest.mark.slow
-def test_second_run_on_same_directory_is_refused(tmp_path, small_reference):
+def test_second_run_on_same_directory_is_refused(tmp_path):
     out = tmp_path / "shared"
-    first = start("run", SMALL_CONFIG, "--out", out, "--quiet")
+    # the longer config: the first run must still hold the lock when the second has loaded
+    first = start("run", KILL_CONFIG, "--out", out, "--quiet")
     assert wait_for_rows(out, 1, first) > 0
-    second = run("run", SMALL_CONFIG, "--out", out, "--quiet", "--jobs", 2)
+    second = run("run", KILL_CONFIG, "--out", out, "--quiet", "--jobs", 2)
+    status = run("status", out)  # a reader needs no lock, even mid-run
+    assert first.poll() is None, "the first run ended too early to test the lock"
     flat = assert_clean_refusal(second, code=3)
     assert f"another `harness run` is writing to {out}" in flat and "pass a different --out" in flat
-    status = run("status", out)  # a reader needs no lock, even mid-run
     assert status.returncode == 0 and "rows" in status.stdout, status.stderr
-    stdout, stderr = first.communicate(timeout=300)
+    stdout, stderr = first.communicate(timeout=600)
     assert first.returncode == 0, stderr
-    _assert_complete(out, SMALL_CONFIG, small_reference)
+    _assert_complete(out, KILL_CONFIG)
 
 
 # --------------------------------------------------------------------------- failing cells

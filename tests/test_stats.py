@@ -241,6 +241,20 @@ def test_missing_cell_policy(policy, n_datasets, encoders, dropped):
     assert m.missing_cells.to_dict("records") == [{"dataset": "d1", "encoder": "e1"}]
 
 
+@pytest.mark.parametrize("holes, kept_datasets, kept_encoders", [
+    # one hole: dropping d1 keeps 2x3 = 6 cells, dropping e1 keeps 3x2 = 6: tie -> datasets
+    ([(1, 1)], 2, 3),
+    # e1 fails on two of three datasets: dropping e1 keeps 3x2 = 6 cells, datasets 1x3 = 3
+    ([(0, 1), (1, 1)], 3, 2),
+])
+def test_auto_missing_policy_keeps_the_larger_complete_block(holes, kept_datasets, kept_encoders):
+    values = np.array([[0.5, 0.7, 0.9], [0.6, 0.65, 0.8], [0.7, 0.6, 0.5]])
+    for i, j in holes:
+        values[i, j] = np.nan
+    m = S.score_matrix(make_results(frame(values)), "lr", "roc_auc")  # default: auto
+    assert (m.n_datasets, len(m.encoders)) == (kept_datasets, kept_encoders)
+
+
 def test_not_applicable_metric_is_not_a_missing_cell():
     clf = make_results(frame([[0.5, 0.7]], datasets=["clf"]))
     reg = make_results(frame([[1.0, 2.0]], datasets=["reg"]), metric="rmse")
