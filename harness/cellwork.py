@@ -17,6 +17,7 @@ from datetime import datetime, timezone
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
+from sklearn.dummy import DummyClassifier, DummyRegressor
 from threadpoolctl import threadpool_limits
 
 from harness import encoders as _encoders
@@ -185,12 +186,6 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
     if native and not family.native_categorical:
         row.update(status="not-applicable", error=f"model family '{family.name}' cannot take native categorical columns")
         return row
-    if enc.n_out == 0:  # e.g. `drop` on a dataset without numeric columns: nothing to fit on
-        row.update(
-            status="not-applicable",
-            error=f"encoder '{cell.encoder.label}' left no feature column (the dataset has no numeric column to keep)",
-        )
-        return row
     if cell.model.max_rows is not None and len(job.train_idx) > cell.model.max_rows:
         row.update(
             status="skipped",
@@ -221,9 +216,15 @@ def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test) -> dict:
     task = dataset.task
     y_train = dataset.y.iloc[job.train_idx].to_numpy()
     y_test = dataset.y.iloc[job.test_idx].to_numpy()
-    model = _models.build_model(
-        cell.model.family, task, seed=(job.seed + cell.repeat) % 2**31, params=dict(cell.model.params), sparse_input=sp.issparse(train)
-    )
+    if train.shape[1] == 0:
+        # nothing left to learn from (e.g. `drop` on a table without numeric columns):
+        # the honest baseline is a constant prediction, the training prior or mean
+        model = DummyRegressor() if task == "regression" else DummyClassifier(strategy="prior")
+    else:
+        model = _models.build_model(
+            cell.model.family, task, seed=(job.seed + cell.repeat) % 2**31, params=dict(cell.model.params),
+            sparse_input=sp.issparse(train),
+        )
     t0 = time.perf_counter()
     model.fit(train, y_train)
     t1 = time.perf_counter()

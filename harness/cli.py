@@ -36,6 +36,7 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--backend", choices=["local", "dask"], help="execution backend")
     run.add_argument("--scheduler", help="Dask scheduler address (tcp://host:8786); none = local cluster")
     run.add_argument("--fresh", action="store_true", help="start over (the old store is kept as results.sqlite.old)")
+    run.add_argument("--retry-failed", action="store_true", help="also rerun cells recorded as failed, timeout or out-of-memory")
     run.add_argument("--only", metavar="PATTERN", help="only cells whose dataset/encoder/model label matches")
     run.add_argument("--dry-run", action="store_true", help="print the grid size and the cells, run nothing")
     run.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -125,7 +126,8 @@ def cmd_run(args) -> int:
     if args.dry_run:
         return _dry_run(the_plan, out)
     summary = execute(
-        the_plan, out, jobs=args.jobs, backend=args.backend, scheduler=args.scheduler, fresh=args.fresh, progress=not args.quiet
+        the_plan, out, jobs=args.jobs, backend=args.backend, scheduler=args.scheduler, fresh=args.fresh,
+        progress=not args.quiet, retry_failed=args.retry_failed,
     )
     counts = ", ".join(f"{k} {v}" for k, v in sorted(summary.counts.items()))
     print(

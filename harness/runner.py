@@ -152,8 +152,15 @@ def _jobs_for(plan_: Plan, todo: list[Cell]) -> list[tuple[str, UnitJob]]:
     return work
 
 
-def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=False, progress=True) -> RunSummary:
-    """Run the cells of ``plan_`` not yet in ``<out>/results.sqlite`` and export the table."""
+RETRY_STATUSES = ("failed", "timeout", "out-of-memory")
+
+
+def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=False, progress=True,
+            retry_failed=False) -> RunSummary:
+    """Run the cells of ``plan_`` not yet in ``<out>/results.sqlite`` and export the table.
+
+    ``retry_failed`` also reruns cells recorded as failed, timed out or out of memory.
+    """
     cfg = plan_.config
     ex = cfg.execution
     jobs = jobs or ex.jobs
@@ -163,7 +170,7 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
     started = time.perf_counter()
     start_iso = datetime.now(timezone.utc).isoformat(timespec="seconds")
     with Store(out, fresh=fresh) as store:
-        done = store.done_ids()
+        done = store.done_ids(RETRY_STATUSES if retry_failed else ())
         todo = [c for c in plan_.cells if c.cell_id not in done]
         summary = RunSummary(out, len(plan_.cells), len(todo), len(plan_.cells) - len(todo))
         _write_manifest(out, plan_, start_iso, None, summary)

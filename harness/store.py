@@ -173,9 +173,10 @@ class Store:
             )
 
     # --- writing and reading -------------------------------------------------------------
-    def done_ids(self) -> set[str]:
-        """Cell ids already recorded (whatever their status)."""
-        return {r[0] for r in self.db.execute("SELECT cell_id FROM cells")}
+    def done_ids(self, retry: tuple[str, ...] = ()) -> set[str]:
+        """Cell ids already recorded, except those whose status is in ``retry``."""
+        rows = self.db.execute("SELECT cell_id, status FROM cells")
+        return {cid for cid, status in rows if status not in retry}
 
     def write(self, rows: list[dict]) -> None:
         """Insert rows in one transaction (replacing rows of the same cell)."""

@@ -200,13 +200,16 @@ def test_no_categorical_column_is_warned_and_still_runs(tmp_path, capsys, rng):
     _assert_usual(df, native_lin="ok")  # with no categorical column, native passes numbers
 
 
-def test_only_categorical_columns_drop_has_nothing_to_fit(tmp_path, capsys, rng):
+def test_only_categorical_columns_drop_scores_the_constant_baseline(tmp_path, capsys, rng):
+    # `drop` on a table without numeric columns leaves no feature: the cell is scored by a
+    # constant prediction (the training prior), the baseline it stands for
     code, err, df, ds = _run(tmp_path, capsys, _base(rng).drop(columns=["age"]))
     assert code == 0
-    empty = {("drop", m): "not-applicable" for m in MODELS}
-    _assert_usual(df, exceptions=empty)
-    reason = df.loc[df["encoder"] == "drop", "error"].unique()
-    assert list(reason) == ["encoder 'drop' left no feature column (the dataset has no numeric column to keep)"]
+    _assert_usual(df)
+    dropped = df.loc[df["encoder"] == "drop"]
+    assert (dropped["status"] == "ok").all() and (dropped["n_features_out"] == 0).all()
+    if "roc_auc" in dropped:
+        assert dropped["roc_auc"].dropna().eq(0.5).all()  # a constant score ranks nothing
 
 
 def test_column_names_that_collide_or_hold_special_characters(tmp_path, capsys, rng):

@@ -133,3 +133,22 @@ def test_cli_run_dry_run_status_export(tmp_path, capsys):
     assert "ok" in capsys.readouterr().out
     assert main(["export", str(out), "--to", str(tmp_path / "t.parquet")]) == 0
     assert len(pd.read_parquet(tmp_path / "t.parquet")) == 2
+
+
+def test_drop_without_numeric_columns_scores_the_constant_baseline(tmp_path):
+    raw = _raw()
+    raw["datasets"] = {"spend": {"source": "synthetic", "n_rows": 120, "cardinalities": [6], "task": "regression", "n_numeric": 0, "seed": 6}}
+    raw["encoders"] = {"drop": {"kind": "drop"}}
+    raw["models"] = {"lin": {"family": "linear"}, "gb": {"family": "boosting", "max_iter": 10}}
+    execute(plan(parse_config(raw)), tmp_path, progress=False)
+    df = read_results(tmp_path)
+    assert (df["status"] == "ok").all() and (df["n_features_out"] == 0).all()
+    assert df["r2"].le(0.05).all()  # a constant prediction explains (almost) nothing out of sample
+
+
+def test_retry_failed_reruns_only_failed_cells(ran):
+    cfg, summary, out = ran
+    failed = (read_results(out)["status"].isin(["failed", "timeout"])).sum()
+    again = execute(plan(cfg), out, progress=False, retry_failed=True)
+    assert again.computed == failed
+    assert len(read_results(out)) == summary.total
