@@ -26,6 +26,10 @@ GREATER_IS_BETTER = {
     "rmse": False,
     "mae": False,
     "r2": True,
+    # every row's own primary metric, oriented so that greater is better (see
+    # harness.stats.pool_primary): lets one ranking span classification and regression
+    # datasets, since ranks are computed within each dataset
+    "primary": True,
 }
 
 CLASSIFICATION_METRICS = ("roc_auc", "log_loss", "accuracy", "balanced_accuracy")

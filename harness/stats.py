@@ -90,6 +90,28 @@ _FAILED = ("failed", "timeout")
 
 
 # ----------------------------------------------------------------------------- basics
+POOLED = "primary"
+
+
+def pool_primary(results: pd.DataFrame) -> pd.DataFrame:
+    """Add the column ``primary``: each row's primary metric, oriented greater-is-better.
+
+    Encoders are ranked within each dataset, so a ranking across datasets may mix
+    classification datasets judged on ROC AUC with regression datasets judged on RMSE
+    (Demšar 2006, JMLR 7, Sec. 3: ranks make performance measures on different scales
+    comparable). The sign flip keeps "greater is better" for error metrics.
+    """
+    out = results.copy()
+    out[POOLED] = np.nan
+    if "primary_metric" not in out:
+        return out
+    for metric in pd.unique(out["primary_metric"].dropna()):  # loop over metric names
+        rows = out["primary_metric"] == metric
+        if metric in out:
+            out.loc[rows, POOLED] = orientation(metric) * out.loc[rows, metric]
+    return out
+
+
 def ok_rows(results: pd.DataFrame) -> pd.DataFrame:
     """Return the rows of ``results`` with ``status == "ok"``.
 

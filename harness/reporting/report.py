@@ -75,7 +75,7 @@ def load_run(directory) -> Run:
                                                    results.loc[bad, "status"], bad[bad])
     manifest = {**manifest, "datasets": {names[d]: v for d, v in
                                          manifest.get("datasets", {}).items()}}
-    return Run(directory, results, manifest, private)
+    return Run(directory, stats.pool_primary(results), manifest, private)
 
 
 # ------------------------------------------------------------------------------ analysis
@@ -100,10 +100,12 @@ class Analysis:
 
 
 def _primary_metrics(results: pd.DataFrame, manifest: dict) -> tuple:
+    """The headline metric first: pooled over all datasets when tasks are mixed."""
     prot = manifest.get("protocol") or {}
     seen = set(stats.ok_rows(results)["primary_metric"].dropna())
     wanted = [prot.get("primary", "roc_auc"), prot.get("primary_regression", "rmse")]
-    return tuple([m for m in wanted if m in seen] + sorted(seen - set(wanted)))
+    own = [m for m in wanted if m in seen] + sorted(seen - set(wanted))
+    return tuple(([stats.POOLED] if len(own) > 1 else []) + own)
 
 
 def _models(results: pd.DataFrame, manifest: dict) -> tuple:
@@ -117,6 +119,8 @@ def _robustness(results, recs, metrics, low, high) -> pd.DataFrame:
     frames = []
     for metric in metrics:  # one headline per primary metric
         family = REGRESSION_METRICS if metric in REGRESSION_METRICS else CLASSIFICATION_METRICS
+        if metric == stats.POOLED:  # the pooled headline varies over the per-task primaries
+            family = (stats.POOLED,) + tuple(m for m in metrics if m != stats.POOLED)
         related = [m for m in family if m in results.columns]
         head = {mod: r.best_by_rank for (mod, met), r in recs.items()
                 if met == metric and r.best_by_rank is not None}
@@ -253,7 +257,17 @@ def answer_section(a: Analysis) -> list:
         return out + [Note("No cell of this run produced a score: there is nothing to "
                            "recommend. See the list of cells that did not run below.")]
     out.append(Table(_summary_frame(a), "Recommendation per model and primary metric."))
-    for rec in a.recommendations.values():  # loop over models
+    headline = a.metrics[0]
+    if headline == stats.POOLED:
+        out.append(Para("Rows judged on the 'primary metric (per dataset)' rank the encoders "
+                        "on every dataset with that dataset's own primary metric (ROC AUC for "
+                        "classification, the regression primary otherwise; ranks are taken "
+                        "within each dataset, so the scales need not match). They are the "
+                        "headline; the rows per metric repeat the analysis on each task type "
+                        "alone, with fewer datasets. The text below covers the headline."))
+    for (model, metric), rec in a.recommendations.items():  # loop over models
+        if metric != headline:
+            continue
         out.append(Para(_answer_text(a, rec)))
         caveats = list(rec.caveats) + _leak_caveats(a, rec)
         if caveats:

@@ -34,7 +34,7 @@ __all__ = [
 
 METRIC_NAMES = {"roc_auc": "ROC AUC", "log_loss": "log loss", "accuracy": "accuracy",
                 "balanced_accuracy": "balanced accuracy", "rmse": "RMSE", "mae": "MAE",
-                "r2": "R²"}
+                "r2": "R²", "primary": "primary metric (per dataset)"}
 NOT_RUN = ("failed", "timeout", "out-of-memory", "skipped", "not-applicable")
 
 

@@ -50,8 +50,10 @@ def test_answer_names_a_choice_and_caveats(report):
     md = (report[0] / "report.md").read_text()
     answer = md[md.index("## 1."):md.index("## 2.")]
     assert re.search(r"\*\*lin\*\* \(linear\).*(use|the rule.s pick is) \*\*[\w-]+\*\*", answer)
-    assert "Caveat: only 3 datasets" in answer  # three classification datasets in the sweep
-    assert "RMSE" in answer  # the regression dataset gets its own verdict
+    # the headline pools the 3 classification and 1 regression datasets of the sweep
+    assert "primary metric (per dataset) over 4 complete dataset(s)" in answer
+    assert "Caveat: only 4 datasets" in answer
+    assert "| RMSE |" in answer  # the regression dataset also gets its own row
 
 
 def test_methods_paragraph_from_manifest(report, sweep_dir):
