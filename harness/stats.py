@@ -1149,9 +1149,11 @@ class Recommendation:
 
 
 RULE = ("Settings that fit target statistics on the rows they encode (cross-fitting 'none' "
-        "or 'loo') are never recommended. Among the remaining encoders whose Holm-corrected "
-        "Wilcoxon signed-rank p-value against the best-ranked remaining encoder is >= alpha "
-        "(not significantly different), pick the lowest median encoder+model seconds, then "
+        "or 'loo') are never recommended. An encoder is equivalent to the best-ranked "
+        "remaining encoder when its Holm-corrected Wilcoxon signed-rank p-value against it "
+        "is >= alpha (not significantly worse) and its median relative shortfall from it "
+        "over datasets is at most 1 % (practically close). Among the equivalents, pick the "
+        "lowest median encoder+model seconds, then "
         "the fewest median output features, then the best average rank. When the datasets "
         "are too few for any Holm-corrected Wilcoxon test to reach alpha ((k-1)*2^(1-N) >= "
         "alpha), no comparison can separate the encoders and the best average rank is "
@@ -1204,7 +1206,22 @@ def _regime_caveats(results, datasets, low, high) -> list[str]:
             "cover it." for r in ("low", "medium", "high") if r not in seen]
 
 
-def _evidence(comp: Comparison, results, model, model_column, alpha) -> pd.DataFrame:
+def median_shortfall(matrix: ScoreMatrix, control: str) -> pd.Series:
+    """Median over datasets of each encoder's relative shortfall from ``control``.
+
+    Per dataset, ``(control - encoder) / |control|`` on oriented scores (positive = the
+    encoder is worse). Relative, so that datasets whose scores live on different scales
+    (AUC near 0.9, RMSE in thousands) count alike. Common practice, no source.
+    """
+    o = matrix.oriented
+    if control not in o or o.empty:
+        return pd.Series(np.nan, index=pd.Index(matrix.encoders, name="encoder"))
+    ref = o[control]
+    rel = (ref.to_numpy()[:, None] - o.to_numpy()) / np.abs(ref.to_numpy())[:, None]
+    return pd.Series(np.nanmedian(rel, axis=0), index=pd.Index(o.columns, name="encoder"))
+
+
+def _evidence(comp: Comparison, results, model, model_column, alpha, tolerance) -> pd.DataFrame:
     m = comp.matrix
     ok = ok_rows(results)
     ok = ok.loc[(ok[model_column] == model) & ok["dataset"].isin(list(m.scores.index))]
@@ -1214,14 +1231,16 @@ def _evidence(comp: Comparison, results, model, model_column, alpha) -> pd.DataF
     ev["wilcoxon_p_holm"] = p.reindex(ev.index)
     ev["median_time_s"] = cost["total_s"].reindex(ev.index)
     ev["median_features"] = cost["n_features_out"].reindex(ev.index)
-    ev["equivalent"] = ~(ev["wilcoxon_p_holm"] < alpha)  # NaN (untestable) -> equivalent
+    ev["median_shortfall"] = median_shortfall(m, comp.best).reindex(ev.index)
+    not_worse = ~(ev["wilcoxon_p_holm"] < alpha)  # NaN (untestable) -> not shown worse
+    ev["equivalent"] = not_worse & ~(ev["median_shortfall"] > tolerance)
     return ev
 
 
 def recommend(results: pd.DataFrame, model: str, metric: str, *, alpha: float = 0.05,
               min_datasets: int = 5, missing: str = "auto", low: int = 10,
               high: int = 100, n_boot: int = 2000, seed: int = 0,
-              model_column: str = "model") -> Recommendation:
+              model_column: str = "model", tolerance: float = 0.01) -> Recommendation:
     """Recommend one encoder for a model by the explicit rule in ``RULE``.
 
     Parameters
@@ -1234,6 +1253,9 @@ def recommend(results: pd.DataFrame, model: str, metric: str, *, alpha: float = 
         Level of the Holm-corrected Wilcoxon tests.
     min_datasets : int
         Fewer complete datasets than this add a caveat on the tests' power.
+    tolerance : float
+        Largest median relative shortfall from the best-ranked encoder that still counts
+        as practically equivalent (0.01 = 1 %).
     missing, low, high, n_boot, seed, model_column
         As in :func:`score_matrix`, :func:`cardinality_regime`, :func:`compare_encoders`.
 
@@ -1262,7 +1284,7 @@ def recommend(results: pd.DataFrame, model: str, metric: str, *, alpha: float = 
         return Recommendation(model, metric, None, None, (), pd.DataFrame(), 0,
                               comp.friedman, RULE, tuple(notes))
     notes += _regime_caveats(results, m.scores.index, low, high)
-    ev = _evidence(comp, eligible, model, model_column, alpha)
+    ev = _evidence(comp, eligible, model, model_column, alpha, tolerance)
     floor = wilcoxon_floor(m.n_datasets, len(m.encoders))
     pool = ev.loc[ev["equivalent"]].sort_values(
         ["median_time_s", "median_features", "avg_rank"], kind="stable", na_position="last")

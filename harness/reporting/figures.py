@@ -169,9 +169,9 @@ def rank_plot(comparisons, recommendations=None, *, ncols: int = 2):
         handles = [
             Line2D([], [], ls="", marker="D", mfc=ACCENT, mec=INK, ms=7, label="recommended"),
             Line2D([], [], ls="", marker="o", mfc=MID, mec=INK, ms=6,
-                   label="not significantly worse than the best (Holm–Wilcoxon)"),
+                   label="equivalent: not significantly worse (Holm–Wilcoxon), within 1 %"),
             Line2D([], [], ls="", marker="o", mfc="white", mec=INK, ms=6,
-                   label="significantly worse than the best"),
+                   label="worse than the best, or not equivalent"),
             Line2D([], [], color=INK, lw=1.2, label="95% bootstrap interval over datasets")]
         fig.legend(handles=handles, loc="outside lower center", ncols=2, frameon=False)
         fig.suptitle("Average rank of each encoder across datasets (lower is better)",

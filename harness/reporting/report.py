@@ -179,7 +179,8 @@ def _choice_sentence(rec: stats.Recommendation) -> str:
     p = c["wilcoxon_p_holm"]
     return (f" The best-ranked encoder is {rec.best_by_rank} ({b['avg_rank']:.2f}, "
             f"{b['median_time_s']:.3g} s), but the Holm-corrected Wilcoxon test does not "
-            f"separate the two (p = {p:.3g}) and {rec.choice} is cheaper.")
+            f"separate the two (p = {p:.3g}), {rec.choice} is within "
+            f"{100 * c['median_shortfall']:.2g} % of it on the median dataset, and it is cheaper.")
 
 
 def _answer_text(a: Analysis, rec: stats.Recommendation) -> str:
@@ -194,8 +195,9 @@ def _answer_text(a: Analysis, rec: stats.Recommendation) -> str:
     text += _choice_sentence(rec)
     others = [e for e in rec.equivalent if e != rec.choice]
     if others and rec.n_datasets >= 2 and not _provisional(rec):
-        text += (f" Not significantly different from the best: {', '.join(map(str, others))}"
-                 " — any of these is defensible on this evidence.")
+        text += (f" Also equivalent to the best (not significantly worse, median shortfall "
+                 f"within 1 %): {', '.join(map(str, others))} — any of these is defensible "
+                 "on this evidence.")
     if rec.n_datasets >= 2:
         text += (f" Friedman/Iman–Davenport test that all encoders are equal: "
                  f"p = {rec.friedman.f_p_value:.3g}.")
