@@ -133,6 +133,9 @@ def _encode(dataset, job: UnitJob):
 
 def _with_numeric(cat_train, cat_test, num_train: pd.DataFrame, num_test: pd.DataFrame):
     """Append numeric columns (median-imputed on the training fold) to the encoded block."""
+    # infinities count as missing: no model family accepts them
+    num_train = num_train.replace([np.inf, -np.inf], np.nan)
+    num_test = num_test.replace([np.inf, -np.inf], np.nan)
     medians = num_train.median(numeric_only=True).fillna(0.0)
     n_tr = num_train.fillna(medians).to_numpy(dtype=float)
     n_te = num_test.fillna(medians).to_numpy(dtype=float)

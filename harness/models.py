@@ -92,6 +92,9 @@ def _lightgbm(kind: str):
         params.setdefault("random_state", seed)
         params.setdefault("verbosity", -1)
         params.setdefault("n_jobs", 1)
+        # the row-/column-wise histogram choice is made by timing; fixing it keeps the
+        # numbers identical from run to run
+        params.setdefault("force_col_wise", True)
         return cls(**params)
 
     return build

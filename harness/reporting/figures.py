@@ -106,7 +106,7 @@ def _rank_panel(ax, comp, rec) -> None:
     r = comp.ranks
     k = len(r)
     y = np.arange(k)
-    equiv = (rec.evidence["equivalent"].reindex(r.index).fillna(True).to_numpy(bool)
+    equiv = (rec.evidence["equivalent"].reindex(r.index).fillna(False).to_numpy(bool)
              if rec is not None and len(rec.evidence) else np.zeros(k, bool))
     chosen = r.index == (rec.choice if rec is not None else None)
     if np.isfinite(r["ci_low"]).any():

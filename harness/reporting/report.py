@@ -139,13 +139,16 @@ def analyse(run: Run, *, n_boot: int = 2000, seed: int = 0) -> Analysis:
     low, high = int(bands[0]), int(bands[1])
     metrics, models = _primary_metrics(res, man), _models(res, man)
     comps, recs = {}, {}
+    # ranks shown are those the recommendation uses: leaky settings are not ranked
+    leaky = stats.leaky_settings(res)
+    ranked = res.loc[~res["encoder"].isin(leaky)] if leaky and not res["encoder"].isin(leaky).all() else res
     for metric in metrics:  # loops over metrics and models only
         for model in models:
             has = stats.ok_rows(res)
             has = has.loc[(has["model"] == model) & has[metric].notna()]
             if has.empty and metric != metrics[0]:
                 continue
-            m = stats.score_matrix(res, model, metric)
+            m = stats.score_matrix(ranked, model, metric)
             comps[(model, metric)] = stats.compare_encoders(m, n_boot=n_boot, seed=seed)
             recs[(model, metric)] = stats.recommend(res, model, metric, low=low, high=high,
                                                     n_boot=n_boot, seed=seed)
@@ -395,11 +398,14 @@ def _heatmaps(a: Analysis, root: Path) -> list:
 
 def figures_section(a: Analysis, root: Path) -> list:
     """Section 3: the four result figures and the main tables."""
-    comps, recs = list(a.comparisons.values()), a.recommendations
+    recs = a.recommendations
+    # figures show the headline metric; the per-task analyses are in the tables
+    comps = [c for (model, metric), c in a.comparisons.items() if metric == a.metrics[0]]
     out = [Heading("3. Results", 2, "results")]
     out += _figure(lambda: figures.rank_plot(comps, recs), root, "average_ranks",
                    "Average rank per encoder (1 = best) with 95% bootstrap intervals over "
-                   "datasets, one panel per model.", "average rank plot")
+                   "datasets, one panel per model. Settings that fit target statistics on the "
+                   "rows they encode are not ranked (see the leakage audit).", "average rank plot")
     out += _figure(lambda: figures.cd_diagram(comps), root, "critical_difference",
                    "Critical-difference diagrams (Demšar 2006): encoders joined by a bar do "
                    "not differ by more than the Nemenyi critical difference.",
