@@ -1153,8 +1153,9 @@ RULE = ("Settings that fit target statistics on the rows they encode (cross-fitt
         "remaining encoder when its Holm-corrected Wilcoxon signed-rank p-value against it "
         "is >= alpha (not significantly worse) and its median relative shortfall from it "
         "over datasets is at most 1 % (practically close). Among the equivalents, pick the "
-        "lowest median encoder+model seconds, then "
-        "the fewest median output features, then the best average rank. When the datasets "
+        "cheapest: the lowest median encoder+model seconds, timings within 10 % of the "
+        "fastest counting as tied; within that tier the fewest median output features, then "
+        "the best average rank. When the datasets "
         "are too few for any Holm-corrected Wilcoxon test to reach alpha ((k-1)*2^(1-N) >= "
         "alpha), no comparison can separate the encoders and the best average rank is "
         "recommended, marked provisional.")
@@ -1288,6 +1289,13 @@ def recommend(results: pd.DataFrame, model: str, metric: str, *, alpha: float = 
     floor = wilcoxon_floor(m.n_datasets, len(m.encoders))
     pool = ev.loc[ev["equivalent"]].sort_values(
         ["median_time_s", "median_features", "avg_rank"], kind="stable", na_position="last")
+    # timings within 10 % of the fastest are one cost tier: differences that small are
+    # noise of a shared machine, so features and then rank decide inside the tier
+    fastest = pool["median_time_s"].min()
+    if np.isfinite(fastest):
+        tier = pool.loc[~(pool["median_time_s"] > 1.1 * fastest)]
+        pool = pd.concat([tier.sort_values(["median_features", "avg_rank"], kind="stable"),
+                          pool.drop(tier.index)])
     choice = str(pool.index[0])
     if floor >= alpha:
         choice = str(comp.best)

@@ -441,6 +441,18 @@ def test_recommend_cheapest_among_equivalents(rng):
     assert rec.choice == "e2"  # e1 and e2 tie on time, e2 has fewer features
 
 
+def test_recommend_treats_timings_within_ten_percent_as_tied(rng):
+    # common practice, no source: timings on a shared machine differ by a few percent
+    # run to run, so e2 (5 % slower, far fewer features) wins over e1
+    base = rng.random((12, 1)) * 0.1 + 0.7
+    wobble = np.resize([0.001, -0.001], (12, 1))
+    means = frame(np.hstack([base, base + wobble, base - wobble]))
+    df = make_results(means, seconds={"e0": 5.0, "e1": 1.0, "e2": 1.05},
+                      features={"e0": 5, "e1": 300, "e2": 8})
+    rec = S.recommend(df, "lr", "roc_auc", n_boot=100)
+    assert rec.choice == "e2"
+
+
 def test_recommend_requires_practical_closeness(rng):
     # e1 is cheaper and, with 6 datasets and one loss, not significantly worse by the
     # Holm-corrected Wilcoxon test, but it is 5 % worse on the median dataset: not

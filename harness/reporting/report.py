@@ -153,7 +153,7 @@ def analyse(run: Run, *, n_boot: int = 2000, seed: int = 0) -> Analysis:
             recs[(model, metric)] = stats.recommend(res, model, metric, low=low, high=high,
                                                     n_boot=n_boot, seed=seed)
     return Analysis(run, metrics, models, (low, high), comps, recs,
-                    _robustness(res, recs, metrics, low, high), tables.cost_summary(res),
+                    _robustness(ranked, recs, metrics, low, high), tables.cost_summary(res),
                     tables.leakage_table(res), stats.dataset_regimes(res, low=low, high=high))
 
 
@@ -515,7 +515,7 @@ def leakage_section(a: Analysis, root: Path) -> list:
     flagged = audit.loc[audit["flagged"]]
     if len(flagged):
         out.append(Bullets(tuple(
-            f"**{r.encoder}** with {r.model} (cross-fitting '{r.crossfit}'): gap "
+            f"**{r.encoder}** with {r.model}, {metric_name(r.primary_metric)} (cross-fitting '{r.crossfit}'): gap "
             f"{r.gap_mean:.3f} [{r.ci_low:.3f}, {r.ci_high:.3f}] versus at most "
             f"{r.reference_max:.3f} for the reference settings — its test scores are honest, "
             "but its training-time encodings leak the target; do not use it as a default."
