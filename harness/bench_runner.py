@@ -18,7 +18,8 @@ from pathlib import Path
 
 import pandas as pd
 
-from harness.config import load_config
+from harness import datasets as _datasets
+from harness.config import load_config, parse_config
 from harness.runner import execute, plan
 from harness.store import read_results
 
@@ -63,19 +64,22 @@ def scaling(config_path: str, fractions=(0.25, 0.5, 1.0)) -> pd.DataFrame:
     """The same grid at fractions of each dataset's rows (via ``max_rows``)."""
     base = load_config(config_path)
     sizes = {d.label: _rows(base, d.label) for d in base.datasets}
+    import tomllib
+
+    raw = tomllib.loads(Path(config_path).read_text(encoding="utf-8"))
     rows = []
     for frac in fractions:
-        raw = dataclasses.replace(base).raw
         datasets = {}
         for spec in base.datasets:
             params = dict(spec.params)
-            params["max_rows"] = max(50, int(sizes[spec.label] * frac))
+            # real sources subsample with max_rows; the synthetic source is sized by n_rows
+            key = "max_rows" if "max_rows" in _datasets.params_of(spec.source) else "n_rows"
+            params[key] = max(50, int(sizes[spec.label] * frac))
             datasets[spec.label] = {"source": spec.source, **params}
-        from harness.config import parse_config
-
         config = parse_config({**raw, "datasets": datasets}, base.path)
         wall, df = _timed_run(config, jobs=1)
-        rows.append({"fraction": frac, "rows": sum(min(sizes[k], datasets[k]["max_rows"]) for k in sizes), "wall_s": wall, "cells": len(df)})
+        used = sum(min(sizes[k], datasets[k].get("max_rows", datasets[k].get("n_rows"))) for k in sizes)
+        rows.append({"fraction": frac, "rows": used, "wall_s": wall, "cells": len(df)})
     table = pd.DataFrame(rows)
     table["time_ratio_vs_first"] = table["wall_s"] / table["wall_s"].iloc[0]
     table["row_ratio_vs_first"] = table["rows"] / table["rows"].iloc[0]

@@ -1,0 +1,41 @@
+"""The runner benchmarks run end to end (their ratios are printed, never asserted: timed
+tests on a shared machine would be flaky)."""
+
+from __future__ import annotations
+
+import pandas as pd
+
+from harness import bench_runner
+
+TINY = """
+[experiment]
+name = "tiny-bench"
+[protocol]
+folds = 2
+[datasets.toy]
+source = "synthetic"
+n_rows = 400
+cardinalities = [5, 30]
+task = "binary"
+[encoders.codes]
+kind = "integer"
+[encoders.te]
+kind = "target"
+[models.lin]
+family = "linear"
+"""
+
+
+def test_overhead_speedup_and_scaling_run(tmp_path, capsys):
+    cfg = tmp_path / "tiny.toml"
+    cfg.write_text(TINY)
+    over = bench_runner.overhead(str(cfg))
+    assert over["cells"] == 4 and 0 < over["work_s"] <= over["wall_s"]
+    sp = bench_runner.speedup(str(cfg))
+    assert sp["jobs1_s"] > 0 and sp["jobs2_s"] > 0
+    table = bench_runner.scaling(str(cfg))
+    assert list(table["fraction"]) == [0.25, 0.5, 1.0]
+    assert table["rows"].is_monotonic_increasing and table["row_ratio_vs_first"].iloc[-1] == 4.0
+    assert bench_runner.main(["scaling", "--config", str(cfg), "--out", str(tmp_path / "b")]) == 0
+    assert "time_ratio_vs_first" in capsys.readouterr().out
+    assert len(pd.read_csv(tmp_path / "b" / "scaling.csv")) == 3
