@@ -126,7 +126,7 @@ def _encode(dataset, job: UnitJob):
             t2 = time.perf_counter()
             train, test = _with_numeric(cat_train, cat_test, X_train[num], X_test[num])
     except Exception as exc:  # noqa: BLE001 - every failure becomes rows
-        status, message = _classify(exc)
+        status, message = _classify(exc, dataset.private)
         return [base_row(c, dataset, job, status, message) for c in job.cells]
     return _Encoded(train, test, t1 - t0, t2 - t1, train.shape[1], _megabytes(train), peak_rss_mb())
 
@@ -171,11 +171,18 @@ def _megabytes(matrix) -> float:
     return matrix.nbytes / 2**20
 
 
-def _classify(exc: BaseException) -> tuple[str, str]:
+def _classify(exc: BaseException, private: bool = False) -> tuple[str, str]:
+    """Status and error text of a failed cell.
+
+    For a private dataset only the exception type is kept: library messages may quote
+    raw values (an unseen category, a column's contents), which must not leave the run.
+    """
     if isinstance(exc, CellTimeout):
         return "timeout", str(exc)
     if isinstance(exc, MemoryError):
         return "out-of-memory", "MemoryError: the cell exceeded its memory limit (execution.cell_memory_mb)"
+    if private:
+        return "failed", f"{type(exc).__name__} (message withheld: private dataset)"
     last = traceback.format_exception_only(type(exc), exc)[-1].strip()
     return "failed", last[:2000]
 
@@ -207,7 +214,7 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
             row.update(_fit_and_score(cell, dataset, job, train, test))
         row["peak_rss_mb"] = max(peak_rss_mb(), enc.peak_mb)
     except Exception as exc:  # noqa: BLE001
-        status, message = _classify(exc)
+        status, message = _classify(exc, dataset.private)
         row.update(status=status, error=message)
     if limit and row["status"] == "ok" and row.get("model_fit_s", 0) + row.get("predict_s", 0) > limit:
         # backends without SIGALRM (Dask threads) check the limit after the fact

@@ -65,12 +65,15 @@ def test_no_marker_in_any_report_file(private_run):
     assert leaks == []
 
 
-def test_failure_messages_were_present_and_withheld(private_run):
+def test_failure_messages_are_withheld_in_the_store_and_exports(private_run):
     from harness.store import read_results
 
     df = read_results(private_run)
     failed = df[df["status"] == "failed"]
-    assert len(failed) and failed["error"].str.contains(MARK).any()  # the store has them
+    assert len(failed) and not failed["error"].str.contains(MARK).any()
+    assert failed["error"].str.contains("message withheld: private dataset").all()
+    for export in ("results.csv", "results.parquet", "manifest.json"):
+        assert MARK.encode() not in (private_run / export).read_bytes(), export
     text = (private_run / "report" / "report.md").read_text()
     assert "message withheld: private dataset" in text
 
