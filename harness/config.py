@@ -177,6 +177,10 @@ def load_config(path: str | Path) -> Config:
         If the file is missing, is not valid TOML, or any key or value is invalid.
     """
     path = Path(path)
+    return parse_config(_read_toml(path), str(path))
+
+
+def _read_toml(path: Path) -> dict:
     try:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
@@ -184,10 +188,9 @@ def load_config(path: str | Path) -> Config:
     except (OSError, UnicodeDecodeError) as exc:
         raise ConfigError(f"config file {path} cannot be read: {exc}.") from None
     try:
-        raw = tomllib.loads(text)
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"config file {path} is not valid TOML: {exc}. Fix the syntax at that line and column.") from None
-    return parse_config(raw, str(path))
 
 
 def parse_config(raw: dict, path: str = "<config>") -> Config:
@@ -445,9 +448,12 @@ def private_config(data: str, target: str, base: str | Path) -> Config:
     Used by ``harness run --data FILE --target COLUMN [--config BASE]``.
     """
     base = Path(base)
-    if not base.exists():
-        raise ConfigError(f"--config {base} does not exist; pass a config whose encoders, models and protocol to use.")
-    raw = tomllib.loads(base.read_text(encoding="utf-8"))
+    if not base.is_file():
+        raise ConfigError(
+            f"--config {base} does not exist; pass a config whose encoders, models and protocol to use "
+            "(run from the project folder for the default configs/team-default.toml)."
+        )
+    raw = _read_toml(base)
     stem = Path(data).stem
     raw["datasets"] = {stem: {"source": "file", "path": str(data), "target": target}}
     experiment = dict(raw.get("experiment", {}))

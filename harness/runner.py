@@ -58,7 +58,8 @@ def load_datasets(config: Config) -> dict:
     loaded = {}
     for spec in config.datasets:
         params = dict(spec.params)
-        if config.protocol.group and "group" not in params:
+        takes_group = "group" in _datasets.params_of(spec.source)
+        if config.protocol.group and takes_group and "group" not in params:
             params["group"] = config.protocol.group
         loaded[spec.label] = _datasets.load(spec.source, spec.label, **params)
     return loaded

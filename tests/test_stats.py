@@ -99,13 +99,14 @@ def test_demsar_holm_vs_control_worked_example():
     (0.10, [1.645, 2.052, 2.291, 2.459, 2.589, 2.693, 2.780, 2.855, 2.920]),
 ])
 def test_nemenyi_q_matches_demsar_table5(k, alpha, table):
-    # atol 1.1e-3: some printed entries are not correctly rounded (REFERENCES.md).
+    # atol 1.1e-3: some printed entries of Table 5 are not correctly rounded (checked against scipy).
     assert S.nemenyi_q(k, alpha) == pytest.approx(table[k - 2], abs=1.1e-3)
 
 
 def test_nadeau_bengio_corrected_t():
     # Nadeau & Bengio (2003), Machine Learning 52; 10-fold CV so n_test/n_train = 1/9
-    # (Bouckaert & Frank 2004, PAKDD). Check values from REFERENCES.md.
+    # (Bouckaert & Frank 2004, PAKDD). Check values: the corrected t of Nadeau & Bengio (2003),
+    # Machine Learning 52, Sec. 5, recomputed here by hand; the naive paired t from scipy.
     d = np.array([.02, .01, .03, -.01, .02, 0, .04, .01, .02, .01])
     res = S.corrected_t(d, S.cv_test_train_ratio(10))
     assert res.t == pytest.approx(2.2770, abs=5e-5)
@@ -156,7 +157,8 @@ def test_holm_by_hand():
 # --------------------------------------------------------------------- Bayesian signed-rank
 def test_bayes_signed_rank_expectation_matches_dirichlet_moments():
     # Benavoli et al. (2017), JMLR 18(77); E[w_i w_j] = a_i a_j / (A(A+1)) for i != j and
-    # a_i (a_i + 1) / (A(A+1)) for i = j (Dirichlet moments, REFERENCES.md).
+    # a_i (a_i + 1) / (A(A+1)) for i = j (moments of the Dirichlet distribution, standard result;
+    # used by Benavoli et al. 2017, JMLR 18(77), Sec. 5).
     z = np.array([0.03, -0.02, 0.015, 0.0, 0.05, -0.005])
     rope, s = 0.01, 0.5
     res = S.bayesian_signed_rank(z, rope, prior_strength=s, n_samples=100_000, seed=1)

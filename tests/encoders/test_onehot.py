@@ -40,7 +40,7 @@ def test_equals_one_hot_encoder(rng):
 
 
 def test_published_infrequent_example():
-    # REFERENCES.md, scikit-learn 1.9.1 OneHotEncoder(min_frequency=3) read in its source:
+    # scikit-learn 1.9.1 OneHotEncoder(min_frequency=3), behaviour read in its source:
     # training counts b:5, a:3, c:2, d:1, nan:2 -> columns [a, b, infrequent]
     train = pd.DataFrame({"x": ["b"] * 5 + ["a"] * 3 + ["c"] * 2 + ["d"] + [np.nan] * 2})
     new = pd.DataFrame({"x": ["a", "c", "d", "zzz", np.nan]})

@@ -88,7 +88,7 @@ def test_feature_names_follow_sklearn_column_order(rng, target):
 
 
 def test_docstring_example_of_sklearn_target_encoder():
-    # scikit-learn 1.9.1 TargetEncoder docstring example; digits as listed in REFERENCES.md
+    # scikit-learn 1.9.1 TargetEncoder docstring example (digits as printed there)
     X = one_column(["dog"] * 20 + ["cat"] * 30 + ["snake"] * 38)
     y = np.array([90.3] * 5 + [80.1] * 15 + [20.4] * 5 + [20.1] * 25 + [21.2] * 8 + [49] * 30)
     prior = y.mean()
@@ -110,7 +110,7 @@ def test_docstring_example_of_sklearn_target_encoder():
 # --- sigmoid blending: Micci-Barreca (2001), SIGKDD Explorations 3(1), eq. 3-4 -----------
 @pytest.mark.parametrize(
     "n, positives, prior, k, f, expected",
-    [  # check values listed in REFERENCES.md for eq. 3-4
+    [  # Micci-Barreca (2001), SIGKDD Explorations 3(1), eq. 3-4; values recomputed below
         (2, 2, 1 / 3, 1.0, 1.0, 0.8207057191),
         (1, 1, 1 / 3, 1.0, 1.0, 0.6666666667),
         (5, 1, 0.5, 10.0, 20.0, 0.3686529503),
@@ -153,7 +153,7 @@ def test_sigmoid_infinite_width_weighs_half():
 # --- m-estimate: Cestnik (1990), ECAI'90 (formula recalled from memory) ---------------------
 @pytest.mark.parametrize(
     "n, positives, prior, m, expected",
-    [(2, 2, 1 / 3, 1.0, 0.7778), (10, 3, 0.5, 2.0, 0.3333)],  # values in REFERENCES.md [mem]
+    [(2, 2, 1 / 3, 1.0, 0.7778), (10, 3, 0.5, 2.0, 0.3333)],  # Cestnik (1990), ECAI; formula recalled from memory
 )
 def test_m_estimate_cestnik(n, positives, prior, m, expected):
     by_formula = (positives + m * prior) / (n + m)
@@ -193,7 +193,7 @@ def test_unseen_and_missing_values_at_transform(rng, smoothing, missing):
 
 # --- ordered target statistics: Prokhorenkova et al. (2018), NeurIPS ----------------------
 def test_ordered_target_statistics_toy_example():
-    # toy example listed in REFERENCES.md: a=1, p=0.5, order A,B,A,A,B, y=1,0,0,1,1
+    # Prokhorenkova et al. (2018), NeurIPS, Sec. 3.2 (ordered TS); toy example a=1, p=0.5, order A,B,A,A,B, y=1,0,0,1,1
     levels, y, a, p = ["A", "B", "A", "A", "B"], np.array([1, 0, 0, 1, 1]), 1.0, 0.5
     by_formula = [
         (sum(y[j] for j in range(k) if levels[j] == levels[k]) + a * p)
@@ -246,7 +246,7 @@ def woe_data(cells: dict[str, tuple[int, int]]):
 
 
 def test_weight_of_evidence_siddiqi():
-    # (G=900 goods, B=100 bads): (300, 50) -> -0.405465, (600, 30) -> 0.798508 (REFERENCES.md)
+    # (G=900 goods, B=100 bads): (300, 50) -> -0.405465, (600, 30) -> 0.798508 (Siddiqi 2006, Credit Risk Scorecards, Wiley: WoE formula; check values recalled from memory, recomputed below)
     cells = {"a": (300, 50), "b": (600, 30), "c": (0, 20)}
     X, y = woe_data(cells)
     G, B = 900, 100
