@@ -160,6 +160,7 @@ def _dry_run(the_plan, out: Path) -> int:
 
 
 def cmd_status(args) -> int:
+    from harness.runner import RETRY_STATUSES
     from harness.store import read_results
 
     df = read_results(args.dir)
@@ -167,7 +168,7 @@ def cmd_status(args) -> int:
     if len(df):
         table = df.pivot_table(index="dataset", columns="status", values="cell_id", aggfunc="count", fill_value=0)
         print(table.to_string())
-        failed = df[df["status"].isin(["failed", "timeout", "out-of-memory"])]
+        failed = df[df["status"].isin(RETRY_STATUSES)]
         for _, row in failed.head(10).iterrows():
             print(f"  {row['status']}: {row['dataset']}/{row['encoder']}/{row['model']} r{row['repeat']}f{row['fold']}: {row['error'][:150]}")
     return 0

@@ -100,12 +100,13 @@ class Config:
         """Hash of everything that affects results (execution settings excluded)."""
         payload = {k: v for k, v in self.raw.items() if k != "execution"}
         payload["experiment"] = {k: v for k, v in payload.get("experiment", {}).items() if k != "output"}
-        return _digest(payload)
+        return digest(payload)
 
 
-def _digest(obj) -> str:
+def digest(obj, length: int = 16) -> str:
+    """SHA-256 of the canonical JSON of ``obj`` (sorted keys), first ``length`` hex digits."""
     text = json.dumps(obj, sort_keys=True, default=str, separators=(",", ":"))
-    return hashlib.sha256(text.encode()).hexdigest()[:16]
+    return hashlib.sha256(text.encode()).hexdigest()[:length]
 
 
 # --------------------------------------------------------------------------- rules

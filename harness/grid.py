@@ -8,11 +8,9 @@ encodes once per unit and trains every model of the unit on that one matrix.
 from __future__ import annotations
 
 import fnmatch
-import hashlib
-import json
 from dataclasses import dataclass
 
-from harness.config import Config, DatasetSpec, EncoderSpec, ModelSpec
+from harness.config import Config, DatasetSpec, EncoderSpec, ModelSpec, digest
 
 __all__ = ["SCHEMA_VERSION", "Cell", "build_grid", "select", "units"]
 
@@ -50,8 +48,7 @@ def cell_hash(config: Config, dataset: DatasetSpec, encoder: EncoderSpec, model:
         "repeat": repeat,
         "fold": fold,
     }
-    text = json.dumps(payload, sort_keys=True, default=str, separators=(",", ":"))
-    return hashlib.sha256(text.encode()).hexdigest()[:24]
+    return digest(payload, 24)
 
 
 def build_grid(config: Config, layout: dict[str, tuple[int, int]] | None = None) -> list[Cell]:

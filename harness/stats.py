@@ -86,7 +86,7 @@ AGGREGATIONS = {
     "win_rate": ("win_rate", False),
 }
 _REQUIRED = ("dataset", "encoder", "model", "status")
-_FAILED = ("failed", "timeout")
+_FAILED = ("failed", "timeout", "out-of-memory")
 
 
 # ----------------------------------------------------------------------------- basics
@@ -1133,7 +1133,9 @@ class Recommendation:
     """The advised encoder for one model and metric, with its evidence and caveats.
 
     ``evidence`` has index ``encoder`` and columns ``avg_rank, ci_low, ci_high,
-    wilcoxon_p_holm, median_time_s, median_features, equivalent``.
+    wilcoxon_p_holm, median_time_s, median_features, median_shortfall, equivalent``.
+    ``comparison`` is the full comparison of the eligible encoders the choice rests on;
+    ``provisional`` is True when no test could reject at this number of datasets.
     """
 
     model: str
@@ -1146,6 +1148,8 @@ class Recommendation:
     friedman: FriedmanResult
     rule: str
     caveats: tuple
+    comparison: "Comparison | None" = None
+    provisional: bool = False
 
 
 RULE = ("Settings that fit target statistics on the rows they encode (cross-fitting 'none' "
@@ -1159,6 +1163,18 @@ RULE = ("Settings that fit target statistics on the rows they encode (cross-fitt
         "are too few for any Holm-corrected Wilcoxon test to reach alpha ((k-1)*2^(1-N) >= "
         "alpha), no comparison can separate the encoders and the best average rank is "
         "recommended, marked provisional.")
+
+
+def eligible_rows(results: pd.DataFrame) -> tuple[pd.DataFrame, set[str]]:
+    """The rows of settings that may be ranked and recommended, and the leaky labels.
+
+    When every setting is leaky, all rows are kept (there is nothing else to rank).
+    """
+    leaky = leaky_settings(results)
+    if not leaky:
+        return results, leaky
+    keep = ~results["encoder"].isin(leaky)
+    return (results.loc[keep], leaky) if keep.any() else (results, set())
 
 
 def wilcoxon_floor(n_datasets: int, n_encoders: int) -> float:
@@ -1269,21 +1285,18 @@ def recommend(results: pd.DataFrame, model: str, metric: str, *, alpha: float = 
     ----------
     Demšar (2006), JMLR 7:1-30 (Wilcoxon signed-rank over datasets); Holm (1979).
     """
-    leaky = leaky_settings(results)
-    eligible = results.loc[~results["encoder"].isin(leaky)] if leaky else results
-    if eligible.empty:
-        eligible = results
+    eligible, leaky = eligible_rows(results)
     m = score_matrix(eligible, model, metric, missing=missing, model_column=model_column)
     comp = compare_encoders(m, alpha=alpha, n_boot=n_boot, seed=seed,
                             min_datasets=min_datasets)
     notes = list(comp.caveats) + _failure_caveats(eligible, model, model_column)
-    if leaky and eligible is not results:
+    if leaky:
         notes.append("not eligible (target statistics fitted on the rows they encode): "
                      + ", ".join(sorted(leaky)) + ".")
     if m.n_datasets == 0 or not m.encoders:
         notes.append(f"no complete dataset for model '{model}' and metric '{metric}'.")
         return Recommendation(model, metric, None, None, (), pd.DataFrame(), 0,
-                              comp.friedman, RULE, tuple(notes))
+                              comp.friedman, RULE, tuple(notes), comp)
     notes += _regime_caveats(results, m.scores.index, low, high)
     ev = _evidence(comp, eligible, model, model_column, alpha, tolerance)
     floor = wilcoxon_floor(m.n_datasets, len(m.encoders))
@@ -1304,4 +1317,4 @@ def recommend(results: pd.DataFrame, model: str, metric: str, *, alpha: float = 
                      f"reachable p = {floor:.3g}); the best average rank is recommended.")
     return Recommendation(model, metric, choice, comp.best,
                           tuple(pool.index), ev, m.n_datasets, comp.friedman, RULE,
-                          tuple(notes))
+                          tuple(notes), comp, bool(floor >= alpha))

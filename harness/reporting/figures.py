@@ -34,6 +34,7 @@ from matplotlib.patches import Rectangle
 
 from harness import stats
 from harness.errors import DataError
+from harness.metrics import REGRESSION_METRICS
 from harness.reporting.tables import metric_name
 
 __all__ = ["NothingToPlot", "rank_plot", "cd_diagram", "cost_plot", "relative_heatmap",
@@ -51,10 +52,6 @@ STYLE = {
 
 class NothingToPlot(DataError):
     """The input holds nothing a figure can show; the message says why in one line."""
-
-
-def _name(metric: str) -> str:
-    return metric_name(metric)
 
 
 def save(fig, directory, stem: str, *, dpi: int = 150) -> tuple[Path, Path]:
@@ -129,7 +126,7 @@ def _rank_panel(ax, comp, rec) -> None:
     ax.set_axisbelow(True)
     ax.set_xlabel("average rank  (1 = best; further left is better)")
     n = comp.matrix.n_datasets
-    ax.set_title(f"{comp.matrix.model} · {_name(comp.matrix.metric)} · {n} dataset(s)"
+    ax.set_title(f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · {n} dataset(s)"
                  + ("  (no interval: 1 dataset)" if n == 1 else ""), loc="left")
 
 
@@ -246,7 +243,7 @@ def _cd_panel(ax, comp, alpha: float, margin: float) -> None:
     ax.set_xlim(0.35 - margin, k + 0.65 + margin)
     ax.axis("off")
     f = comp.friedman
-    ax.set_title(f"{comp.matrix.model} · {_name(comp.matrix.metric)} · {comp.matrix.n_datasets} "
+    ax.set_title(f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · {comp.matrix.n_datasets} "
                  f"datasets · Friedman/Iman–Davenport p = {f.f_p_value:.3g}", loc="left")
 
 
@@ -404,7 +401,7 @@ def _cost_panel(ax, comp, cost: pd.DataFrame, model_column: str):
     ax.set_axisbelow(True)
     ax.set_xlabel("median seconds per fold, encoder + model fit (log scale; left is cheaper)")
     ax.set_ylabel("average rank (up is better)")
-    ax.set_title(f"{comp.matrix.model} · {_name(comp.matrix.metric)} · "
+    ax.set_title(f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · "
                  f"{comp.matrix.n_datasets} dataset(s)", loc="left")
     return x, y, list(d.index), front
 
@@ -563,11 +560,11 @@ def _leak_panel(ax, part: pd.DataFrame, model: str, metric: str) -> None:
     ax.grid(axis="x", color=LIGHT, lw=0.6)
     ax.set_axisbelow(True)
     if stats.orientation(metric) > 0:
-        label = f"optimism gap: train − test {_name(metric)}"
+        label = f"optimism gap: train − test {metric_name(metric)}"
     else:
-        label = f"optimism gap: (test − train) / test {_name(metric)}"
+        label = f"optimism gap: (test − train) / test {metric_name(metric)}"
     ax.set_xlabel(f"{label}  (right = more optimistic)")
-    ax.set_title(f"{model} · {_name(metric)}", loc="left")
+    ax.set_title(f"{model} · {metric_name(metric)}", loc="left")
 
 
 def leakage_plot(audit: pd.DataFrame, *, models=None, model_column: str = "model",
@@ -597,7 +594,7 @@ def leakage_plot(audit: pd.DataFrame, *, models=None, model_column: str = "model
     keys = list(audit.groupby([model_column, "primary_metric"], sort=False).groups)
     if models is not None:
         order = {m: i for i, m in enumerate(models)}
-        keys.sort(key=lambda k: (order.get(k[0], len(order)), k[1] in ("rmse", "mae", "r2")))
+        keys.sort(key=lambda k: (order.get(k[0], len(order)), k[1] in REGRESSION_METRICS))
     with rc_context(STYLE):
         heights = [0.3 * int(((audit[model_column] == m) & (audit["primary_metric"] == p)).sum())
                    + 1.1 for m, p in keys]

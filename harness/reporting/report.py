@@ -140,18 +140,16 @@ def analyse(run: Run, *, n_boot: int = 2000, seed: int = 0) -> Analysis:
     metrics, models = _primary_metrics(res, man), _models(res, man)
     comps, recs = {}, {}
     # ranks shown are those the recommendation uses: leaky settings are not ranked
-    leaky = stats.leaky_settings(res)
-    ranked = res.loc[~res["encoder"].isin(leaky)] if leaky and not res["encoder"].isin(leaky).all() else res
+    ranked, _ = stats.eligible_rows(res)
+    ok = stats.ok_rows(res)
     for metric in metrics:  # loops over metrics and models only
         for model in models:
-            has = stats.ok_rows(res)
-            has = has.loc[(has["model"] == model) & has[metric].notna()]
+            has = ok.loc[(ok["model"] == model) & ok[metric].notna()]
             if has.empty and metric != metrics[0]:
                 continue
-            m = stats.score_matrix(ranked, model, metric)
-            comps[(model, metric)] = stats.compare_encoders(m, n_boot=n_boot, seed=seed)
-            recs[(model, metric)] = stats.recommend(res, model, metric, low=low, high=high,
-                                                    n_boot=n_boot, seed=seed)
+            rec = stats.recommend(res, model, metric, low=low, high=high, n_boot=n_boot, seed=seed)
+            recs[(model, metric)] = rec
+            comps[(model, metric)] = rec.comparison
     return Analysis(run, metrics, models, (low, high), comps, recs,
                     _robustness(ranked, recs, metrics, low, high), tables.cost_summary(res),
                     tables.leakage_table(res), stats.dataset_regimes(res, low=low, high=high))
@@ -167,9 +165,9 @@ def _family(run: Run, model: str) -> str:
     return fam
 
 
-def _provisional(rec: stats.Recommendation, alpha: float = 0.05) -> bool:
+def _provisional(rec: stats.Recommendation) -> bool:
     """True when no Holm-corrected Wilcoxon test could reach alpha at this size."""
-    return rec.choice is not None and not stats.wilcoxon_floor(rec.n_datasets, len(rec.evidence)) < alpha
+    return rec.choice is not None and rec.provisional
 
 
 def _choice_sentence(rec: stats.Recommendation) -> str:

@@ -109,8 +109,12 @@ def rank_table(comparisons, recommendations=None) -> pd.DataFrame:
         r = comp.ranks.copy()
         p = comp.pairwise["wilcoxon_p_holm"] if len(comp.pairwise) else pd.Series(dtype=float)
         r["wilcoxon_p_holm"] = p.reindex(r.index)
-        r["equivalent"] = ~(r["wilcoxon_p_holm"] < 0.05)
         rec = (recommendations or {}).get((m.model, m.metric))
+        if rec is not None and len(rec.evidence):
+            # the recommendation's own rule: not significantly worse and practically close
+            r["equivalent"] = rec.evidence["equivalent"].reindex(r.index).fillna(False).astype(bool)
+        else:
+            r["equivalent"] = ~(r["wilcoxon_p_holm"] < 0.05)
         r["recommended"] = r.index == (rec.choice if rec is not None else None)
         frames.append(r.reset_index().assign(model=m.model, metric=m.metric))
     cols = ["model", "metric", "encoder", "avg_rank", "ci_low", "ci_high", "median_rank",
