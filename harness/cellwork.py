@@ -70,7 +70,7 @@ def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") ->
         "n_features_in": len(dataset.categorical) + len(dataset.numeric),
         "n_train": len(job.train_idx),
         "n_test": len(job.test_idx),
-        "max_cardinality": int(dataset.fingerprint.get("max_cardinality", 0) or 0),
+        "max_cardinality": dataset.max_cardinality,
         "finished_at": datetime.now(timezone.utc).isoformat(timespec="seconds"),
     }
 
@@ -97,6 +97,9 @@ class _Encoded:
     n_out: int
     mb: float
     peak_mb: float
+    y_train: np.ndarray = None
+    y_test: np.ndarray = None
+    classes: np.ndarray | None = None  # every class of the dataset (classification only)
 
 
 def _encoder_seed(job: UnitJob, cell: Cell) -> int:
@@ -128,7 +131,12 @@ def _encode(dataset, job: UnitJob):
     except Exception as exc:  # noqa: BLE001 - every failure becomes rows
         status, message = _classify(exc, dataset.private)
         return [base_row(c, dataset, job, status, message) for c in job.cells]
-    return _Encoded(train, test, t1 - t0, t2 - t1, train.shape[1], _megabytes(train), peak_rss_mb())
+    # targets and the class list once per unit, shared by every model of the unit
+    classes = None if dataset.task == "regression" else np.unique(dataset.y.to_numpy())
+    return _Encoded(
+        train, test, t1 - t0, t2 - t1, train.shape[1], _megabytes(train), peak_rss_mb(),
+        y_train, dataset.y.iloc[job.test_idx].to_numpy(), classes,
+    )
 
 
 def _with_numeric(cat_train, cat_test, num_train: pd.DataFrame, num_test: pd.DataFrame):
@@ -211,7 +219,7 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
             train, test = enc.train, enc.test
             if sp.issparse(train) and not family.sparse:
                 train, test = train.toarray(), test.toarray()
-            row.update(_fit_and_score(cell, dataset, job, train, test))
+            row.update(_fit_and_score(cell, dataset, job, train, test, enc))
         row["peak_rss_mb"] = max(peak_rss_mb(), enc.peak_mb)
     except Exception as exc:  # noqa: BLE001
         status, message = _classify(exc, dataset.private)
@@ -222,10 +230,9 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
     return row
 
 
-def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test) -> dict:
+def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test, enc: _Encoded) -> dict:
     task = dataset.task
-    y_train = dataset.y.iloc[job.train_idx].to_numpy()
-    y_test = dataset.y.iloc[job.test_idx].to_numpy()
+    y_train, y_test = enc.y_train, enc.y_test
     if train.shape[1] == 0:
         # nothing left to learn from (e.g. `drop` on a table without numeric columns):
         # the honest baseline is a constant prediction, the training prior or mean
@@ -242,10 +249,9 @@ def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test) -> dict:
     t2 = time.perf_counter()
     pred_train = _predict(model, train, task)
     out = {"model_fit_s": t1 - t0, "predict_s": t2 - t1}
-    classes = None
+    classes = enc.classes
     if task != "regression":
         # a class missing from the training fold still counts in the test fold's metrics
-        classes = np.unique(dataset.y.to_numpy())
         pred_test, pred_train = (_align(p, model.classes_, classes) for p in (pred_test, pred_train))
     for name in job.metrics:
         if name in _metrics.metrics_for(task):

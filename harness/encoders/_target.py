@@ -29,8 +29,8 @@ from sklearn.utils.validation import (
 )
 
 from harness.encoders import _crossfit
-from harness.encoders._base import MISSING, CategoricalEncoder
-from harness.errors import ConfigError, EncoderInputError, closest
+from harness.encoders._base import MISSING, CategoricalEncoder, check_option
+from harness.errors import ConfigError, EncoderInputError
 
 __all__ = ["TargetStatistics", "smooth", "weight_of_evidence"]
 
@@ -128,15 +128,6 @@ def _half_count_bound(rate, n):
 
 
 # --- parameter validation -------------------------------------------------------------
-def _check_choice(name, value, allowed):
-    if not isinstance(value, str) or value not in allowed:
-        hint = closest(value, allowed) if isinstance(value, str) else ""
-        raise ConfigError(
-            f"TargetStatistics parameter '{name}' must be one of "
-            f"{', '.join(repr(a) for a in allowed)}; got {value!r}.{hint}"
-        )
-
-
 def _check_number(name, value, *, low, high=np.inf, open_ends=""):
     ok = isinstance(value, Real) and not isinstance(value, bool) and np.isfinite(value)
     if ok:
@@ -352,7 +343,7 @@ class TargetStatistics(CategoricalEncoder):
             ("missing", MISSING_POLICIES),
             ("target_type", TARGET_TYPES),
         ):
-            _check_choice(name, getattr(self, name), allowed)
+            check_option(self, name, allowed)
         _check_number("m", self.m, low=0)
         _check_number("ramp_center", self.ramp_center, low=-np.inf)
         _check_number("ramp_width", self.ramp_width, low=0)
