@@ -18,7 +18,8 @@ import pandas as pd
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils.validation import check_is_fitted
 
-from harness.errors import ConfigError, EncoderInputError, closest
+from harness.encoders._rules import check_params
+from harness.errors import EncoderInputError
 
 UNSEEN = -1
 MISSING = -2
@@ -29,9 +30,6 @@ __all__ = [
     "CategoricalEncoder",
     "LevelCodeEncoder",
     "as_frame",
-    "check_count",
-    "check_flag",
-    "check_option",
     "normalize_column",
 ]
 
@@ -90,14 +88,59 @@ def normalize_column(s: pd.Series, force_str: bool = False) -> pd.Series:
 class CategoricalEncoder(TransformerMixin, BaseEstimator):
     """Base class: validates input and learns one level table per column.
 
+    Declarations (class attributes, read by the runner, the report and the bibliography
+    through ``harness.encoders.declaration``; never rediscovered from parameters):
+
+    ``uses_target``
+        True when ``fit``/``fit_transform`` read ``y``.
+    ``leaky_when``
+        ``{parameter: values}``: settings under which ``fit_transform`` encodes a training
+        row with statistics that include the row's own target.
+    ``references``, ``references_when``
+        Keys of ``harness.reporting._bib.BIB`` for the method, and per parameter value.
+    ``param_rules``
+        ``{parameter: (rule, ...)}`` of ``_rules``; checked once at ``fit``.
+
     Subclasses call ``self._fit_levels(X, order=...)`` in ``fit`` and ``self._codes(X)`` in
     ``transform``. Fitted attributes: ``feature_names_in_``, ``n_features_in_``,
     ``levels_`` (list of ``pd.Index``, missing never included), ``counts_`` (list of int64
     arrays aligned with ``levels_``), ``n_missing_`` (int64 array, one per column).
     """
 
+    uses_target: bool = False
+    leaky_when: dict[str, tuple] = {}
+    references: tuple[str, ...] = ()
+    references_when: dict[str, dict[str, tuple[str, ...]]] = {}
+    param_rules: dict[str, tuple] = {}
+
+    @classmethod
+    def settings(cls, params: dict) -> dict:
+        """``params`` completed with the class defaults (what an instance would hold)."""
+        return {**cls().get_params(deep=False), **params}
+
+    @classmethod
+    def is_leaky(cls, params: dict) -> bool:
+        """True when ``params`` make ``fit_transform`` use each row's own target."""
+        full = cls.settings(params)
+        return cls.uses_target and any(full.get(k) in v for k, v in cls.leaky_when.items())
+
+    @classmethod
+    def cited(cls, params: dict) -> tuple[str, ...]:
+        """Reference keys of the method under ``params``, in declaration order."""
+        full = cls.settings(params)
+        keys = list(cls.references)
+        for name, by_value in cls.references_when.items():
+            keys += by_value.get(full.get(name), ())
+        return tuple(dict.fromkeys(keys))
+
+    def _check_params(self) -> None:
+        check_params(self)
+
     # --- input ---------------------------------------------------------------------------
     def _frame(self, X, *, reset: bool) -> pd.DataFrame:
+        """``X`` as a checked DataFrame; ``reset`` (every ``fit``) first checks the parameters."""
+        if reset:
+            self._check_params()
         frame = as_frame(X)
         if any(getattr(dtype, "kind", "") == "c" for dtype in frame.dtypes):
             # scikit-learn's rule (check_array): complex numbers are no category labels
@@ -249,44 +292,3 @@ def _lexical_argsort(uniques) -> np.ndarray:
         return np.argsort(values, kind="stable")
     except TypeError:
         return np.argsort(values.astype(str), kind="stable")
-
-
-def check_option(encoder, name: str, allowed) -> None:
-    """Raise ``ConfigError`` unless ``encoder.<name>`` is one of ``allowed``.
-
-    Parameters are checked at ``fit`` (scikit-learn's rule: ``__init__`` only stores), so a
-    bad value from a config is reported with the encoder, the allowed values and the value
-    received.
-    """
-    value = getattr(encoder, name)
-    if isinstance(value, str) and value in allowed:
-        return
-    shown = ", ".join(repr(a) for a in allowed)
-    hint = closest(value, allowed) if isinstance(value, str) else ""
-    raise ConfigError(
-        f"{type(encoder).__name__}: parameter '{name}' must be one of {shown}; "
-        f"got {value!r}.{hint}"
-    )
-
-
-def check_count(encoder, name: str, low: int, allow_none: bool = False) -> None:
-    """Raise ``ConfigError`` unless ``encoder.<name>`` is an integer >= ``low`` (or None)."""
-    value = getattr(encoder, name)
-    if value is None and allow_none:
-        return
-    if isinstance(value, (int, np.integer)) and not isinstance(value, bool) and value >= low:
-        return
-    extra = " or None" if allow_none else ""
-    raise ConfigError(
-        f"{type(encoder).__name__}: parameter '{name}' must be an integer >= {low}{extra}; "
-        f"got {value!r}."
-    )
-
-
-def check_flag(encoder, name: str) -> None:
-    """Raise ``ConfigError`` unless ``encoder.<name>`` is a bool."""
-    value = getattr(encoder, name)
-    if not isinstance(value, (bool, np.bool_)):
-        raise ConfigError(
-            f"{type(encoder).__name__}: parameter '{name}' must be true or false; got {value!r}."
-        )

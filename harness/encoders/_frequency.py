@@ -5,7 +5,8 @@ from __future__ import annotations
 import numpy as np
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import LevelCodeEncoder, check_option
+from harness.encoders._base import LevelCodeEncoder
+from harness.encoders._rules import Options
 
 __all__ = ["FrequencyCodes"]
 
@@ -33,6 +34,8 @@ class FrequencyCodes(LevelCodeEncoder):
     levels_, counts_, n_missing_ : see ``CategoricalEncoder``.
     """
 
+    param_rules = {"scale": (Options(*SCALES),)}
+
     def __init__(self, scale="count"):
         self.scale = scale
 
@@ -43,7 +46,6 @@ class FrequencyCodes(LevelCodeEncoder):
         return np.asarray([f"{name}__{self.scale}" for name in names], dtype=object)
 
     def _fit_codes(self, X) -> list[np.ndarray]:
-        check_option(self, "scale", SCALES)
         frame = self._frame(X, reset=True)
         # no level order is needed: appearance order skips the sort
         codes = self._fit_levels(frame, order="appearance")
