@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
+from harness.encoders._base import factorised
 from harness.encoders._frequency import FrequencyCodes
 from harness.encoders._hashing import HashedCodes
 from harness.encoders._integer import IntegerCodes
@@ -42,6 +43,7 @@ __all__ = [
     "ParameterError",
     "build",
     "check",
+    "factorised",
     "declaration",
     "params_of",
     "DropColumns",

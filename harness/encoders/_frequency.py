@@ -47,8 +47,7 @@ class FrequencyCodes(LevelCodeEncoder):
 
     def _fit_codes(self, X) -> list[np.ndarray]:
         frame = self._frame(X, reset=True)
-        # no level order is needed: appearance order skips the sort
-        codes = self._fit_levels(frame, order="appearance")
+        codes = self._fit_levels(frame, order="any")  # no level order is needed: no sort
         n_rows = frame.shape[0]
         divisor = float(n_rows) if self.scale == "proportion" else 1.0
         # trailing entries are read by negative codes: [-2] MISSING, [-1] UNSEEN (0 rows)

@@ -71,12 +71,13 @@ class HashedCodes(CategoricalEncoder):
 
     def fit_transform(self, X, y=None, **fit_params):
         """Fit and return the hashed training rows (one factorisation instead of two)."""
-        return self._to_output(*self._fit_codes(X))
+        codes = self._fit_codes(X)
+        return self._to_output(codes, [None] * len(codes))
 
     def transform(self, X):
         """Return the hashed features as a CSR matrix."""
         frame = self._frame(X, reset=False)
-        return self._to_output(frame, self._codes(frame))
+        return self._to_output(*self._codes(frame, with_values=True))
 
     def get_feature_names_out(self, input_features=None):
         """``hash_<k>`` (shared) or ``<column>__hash_<k>`` (per-column)."""
@@ -88,9 +89,9 @@ class HashedCodes(CategoricalEncoder):
         return np.asarray([f"{name}__{slot}" for name in names for slot in slots], dtype=object)
 
     # --- helpers ---------------------------------------------------------------------------
-    def _fit_codes(self, X) -> tuple[pd.DataFrame, list[np.ndarray]]:
+    def _fit_codes(self, X) -> list[np.ndarray]:
         frame = self._frame(X, reset=True)
-        codes = self._fit_levels(frame, order="appearance")  # no order needed: skip the sort
+        codes = self._fit_levels(frame, order="any")  # no order needed: skip the sort
         # per column: column and sign of every level, then of the missing token; the
         # missing entry is read by MISSING (-2) through negative indexing, and the last
         # (UNSEEN, -1) entry is overwritten per row by hashing the unseen value itself
@@ -101,21 +102,24 @@ class HashedCodes(CategoricalEncoder):
             tokens.append(f"{name}={MISSING_TOKEN}")
             index, sign = self._hash(tokens)
             self.lookups_.append((np.append(index, 0), np.append(sign, 0.0)))
-        return frame, codes
+        return codes
 
     def _hash(self, tokens) -> tuple[np.ndarray, np.ndarray]:
         index, sign = hash_tokens(tokens, self.width)
         return index, (sign if self.signed else np.ones_like(sign))
 
-    def _to_output(self, frame: pd.DataFrame, codes: list[np.ndarray]):
+    def _to_output(self, codes: list[np.ndarray], values: list):
+        """``values[j]``: ``(raw codes, distinct values)`` of column ``j`` at transform."""
         names, n = self._input_names(), self.width
         columns, signs = [], []
         for j, ((index, sign), col) in enumerate(zip(self.lookups_, codes)):
             column, value = index[col], sign[col]
             unseen = col == UNSEEN
             if unseen.any():  # hash the distinct unseen values only
-                new_codes, uniques = pd.factorize(frame.iloc[:, j].to_numpy()[unseen])
-                new_index, new_sign = self._hash([f"{names[j]}={v}" for v in uniques])
+                raw, uniques = values[j]
+                new_codes, distinct = pd.factorize(raw[unseen])
+                tokens = [f"{names[j]}={v}" for v in uniques.take(distinct).tolist()]
+                new_index, new_sign = self._hash(tokens)
                 column[unseen], value[unseen] = new_index[new_codes], new_sign[new_codes]
             columns.append(column)
             signs.append(value)
