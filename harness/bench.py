@@ -1,16 +1,20 @@
-"""Speed benchmarks: our encoders against their scikit-learn (or pandas) counterparts.
+"""Speed benchmarks: our encoders against scikit-learn (or pandas) and against the floor.
 
 ``run_encoder_bench`` times ``fit_transform`` of each encoder kind and of its reference on
-the same synthetic column, in one process, best of ``repeats`` wall times, and checks
-that both return the same numbers. ``main`` prints the table and writes a CSV.
+the same synthetic frame, in one process, best of ``repeats`` wall times, and checks that
+both return the same numbers. Frames come in three dtypes (``object``, pandas ``str`` and
+``category``), several cardinalities, with one column or ``wide`` columns. The *floor* is
+``pd.factorize`` plus ``np.bincount`` on each column of the same frame: the least work
+any encoder that learns levels and their counts must do. ``main`` prints the table, each
+ratio against its target, and writes a CSV.
 
 What is timed
 -------------
-Both sides receive the same DataFrame (one pandas ``str`` column) and are timed from
-that input to the encoded output, except for feature hashing: ``FeatureHasher`` needs
-one list of ``"column=value"`` strings per row, and building those strings is input
-preparation done *before* its clock starts. That favours the reference (our timing
-includes everything), so the hashing ratio is conservative.
+Both sides receive the same DataFrame and are timed from that input to the encoded
+output, except for feature hashing: ``FeatureHasher`` needs one list of
+``"column=value"`` strings per row, and building those strings is input preparation done
+*before* its clock starts. That favours the reference (our timing includes everything),
+so the hashing ratio is conservative.
 """
 
 from __future__ import annotations
@@ -31,14 +35,28 @@ from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, TargetEncoder
 from harness.encoders import build
 from harness.errors import ConfigError
 
-__all__ = ["run_encoder_bench", "zipf_column", "main"]
+__all__ = ["run_encoder_bench", "check_targets", "floor", "zipf_column", "zipf_frame", "main"]
 
 COLUMN = "city"
 HASH_COMPONENTS = 256
 FOLDS = 5
+WIDE = 10  # columns of the wide frame
 ZIPF_EXPONENT = 1.1  # word and city-size frequencies follow Zipf's law with s close to 1
+DTYPES = ("object", "str", "category")
 DEFAULT_OUTPUT = Path("results/bench/encoders.csv")
-RESULT_COLUMNS = ["kind", "cardinality", "ours_s", "reference_s", "ratio", "identical"]
+RESULT_COLUMNS = [
+    "kind", "dtype", "columns", "cardinality", "ours_s", "reference", "reference_s", "ratio",
+    "floor_s", "over_floor", "floor_ratio", "identical",
+]
+
+#: the targets of the speed work: (kinds, measure, dtypes it applies to, bound)
+#: ``ratio`` = reference / ours must be >= the bound; ``over_floor`` = ours / floor <= it
+TARGETS = (
+    (("integer", "onehot", "target"), "ratio", DTYPES, 5.0),
+    (("frequency",), "ratio", ("object", "str"), 3.0),
+    (("hashing",), "ratio", ("object",), 10.0),
+    (("integer", "onehot", "frequency"), "over_floor", DTYPES, 3.0),
+)
 
 
 @dataclass(frozen=True)
@@ -46,6 +64,7 @@ class Case:
     """One timed comparison: our call, the reference call, and how outputs are compared."""
 
     kind: str
+    reference_name: str
     ours: Callable[[], object]
     reference: Callable[[], object]
     same: Callable[[object, object], bool]
@@ -63,6 +82,33 @@ def zipf_column(n_rows: int, cardinality: int, rng: np.random.Generator) -> pd.S
     return pd.Series(names[codes], name=COLUMN, dtype="str")
 
 
+def zipf_frame(n_rows: int, cardinality: int, n_columns: int, dtype: str, rng) -> pd.DataFrame:
+    """``n_columns`` independent Zipf columns of one ``dtype`` (``object``, ``str``, ``category``).
+
+    A ``category`` column's categories are its levels in the order a data loader would
+    leave them (first appearance), not sorted: the encoder must find the sorted order.
+    """
+    columns = {}
+    for j in range(n_columns):
+        s = zipf_column(n_rows, cardinality, rng)
+        if dtype == "object":
+            s = s.astype(object)
+        elif dtype == "category":
+            codes, uniques = pd.factorize(s)
+            s = pd.Series(pd.Categorical.from_codes(codes, categories=uniques))
+        columns[COLUMN if n_columns == 1 else f"{COLUMN}{j}"] = s
+    return pd.DataFrame(columns)
+
+
+def floor(frame: pd.DataFrame):
+    """The least work of any encoder: factorise each column, count its levels."""
+    out = []
+    for name in frame.columns:
+        codes, uniques = pd.factorize(frame[name])
+        out.append(np.bincount(codes[codes >= 0], minlength=len(uniques)))
+    return out
+
+
 def binary_target(column: pd.Series, rng: np.random.Generator) -> np.ndarray:
     """A 0/1 target whose rate depends on the level (so target statistics matter)."""
     codes, uniques = pd.factorize(column)
@@ -70,43 +116,39 @@ def binary_target(column: pd.Series, rng: np.random.Generator) -> np.ndarray:
     return (rng.random(len(column)) < 1.0 / (1.0 + np.exp(-effect[codes]))).astype(np.int64)
 
 
+def _value_counts_map(frame: pd.DataFrame) -> np.ndarray:
+    out = np.empty(frame.shape, dtype=np.float64)
+    for j, name in enumerate(frame.columns):
+        column = frame[name]
+        out[:, j] = column.map(column.value_counts()).to_numpy(dtype=np.float64)
+    return out
+
+
 def _cases(frame: pd.DataFrame, y: np.ndarray, seed: int) -> list[Case]:
     splitter = KFold(FOLDS, shuffle=True, random_state=seed)
-    tokens = (COLUMN + "=" + frame[COLUMN]).to_numpy(dtype=object).reshape(-1, 1)
-    column = frame[COLUMN]
+    tokens = [
+        [f"{name}={v}" for name, v in zip(frame.columns, row)]
+        for row in zip(*(frame[c].astype(str).tolist() for c in frame.columns))
+    ]
+    close = lambda a, b: bool(np.allclose(a, b, rtol=1e-9, atol=1e-12))  # noqa: E731
     return [
-        Case(
-            "integer",
-            lambda: build("integer").fit_transform(frame),
-            lambda: OrdinalEncoder().fit_transform(frame),
-            _arrays_equal,
-        ),
-        Case(
-            "onehot",
-            lambda: build("onehot").fit_transform(frame),
-            lambda: OneHotEncoder(handle_unknown="ignore").fit_transform(frame),
-            _arrays_equal,
-        ),
-        Case(
-            "hashing",
-            lambda: build("hashing", width=HASH_COMPONENTS).fit_transform(frame),
-            lambda: FeatureHasher(HASH_COMPONENTS, input_type="string").transform(tokens),
-            _arrays_equal,
-        ),
-        Case(
-            "frequency",
-            lambda: build("frequency").fit_transform(frame),
-            lambda: column.map(column.value_counts()).to_numpy(dtype=np.float64)[:, None],
-            _arrays_equal,
-        ),
-        Case(
-            "target",
-            lambda: build(
-                "target", smoothing="empirical-bayes", crossfit="kfold", cv=splitter
-            ).fit_transform(frame, y),
-            lambda: TargetEncoder(smooth="auto", cv=splitter).fit_transform(frame, y),
-            lambda a, b: bool(np.allclose(a, b, rtol=1e-9, atol=1e-12)),
-        ),
+        Case("integer", "OrdinalEncoder",
+             lambda: build("integer").fit_transform(frame),
+             lambda: OrdinalEncoder().fit_transform(frame), _arrays_equal),
+        Case("onehot", "OneHotEncoder(handle_unknown='ignore')",
+             lambda: build("onehot").fit_transform(frame),
+             lambda: OneHotEncoder(handle_unknown="ignore").fit_transform(frame), _arrays_equal),
+        Case("hashing", "FeatureHasher(input_type='string')",
+             lambda: build("hashing", width=HASH_COMPONENTS).fit_transform(frame),
+             lambda: FeatureHasher(HASH_COMPONENTS, input_type="string").transform(tokens),
+             _arrays_equal),
+        Case("frequency", "pandas map(value_counts())",
+             lambda: build("frequency").fit_transform(frame),
+             lambda: _value_counts_map(frame), _arrays_equal),
+        Case("target", "TargetEncoder(smooth='auto'), same KFold",
+             lambda: build("target", smoothing="empirical-bayes", crossfit="kfold",
+                           cv=splitter).fit_transform(frame, y),
+             lambda: TargetEncoder(smooth="auto", cv=splitter).fit_transform(frame, y), close),
     ]
 
 
@@ -132,63 +174,114 @@ def run_encoder_bench(
     cardinalities=(10, 1_000, 100_000),
     repeats: int = 3,
     seed: int = 0,
+    dtypes=DTYPES,
+    wide: int = WIDE,
+    wide_cardinality: int = 1_000,
 ) -> pd.DataFrame:
-    """Time each encoder kind against its reference on Zipf-distributed string columns.
+    """Time each encoder kind against its reference and the floor, per dtype.
 
     Parameters
     ----------
     n_rows : int
-        Rows of the synthetic column.
+        Rows of the synthetic frame.
     cardinalities : iterable of int
-        Number of distinct levels; one column (and one target) per value.
+        Number of distinct levels of the one-column frames.
     repeats : int
         Calls per timing; the best is kept.
     seed : int
         Seeds the data and the cross-fitting folds.
+    dtypes : iterable of str
+        Column dtypes, each of ``object``, ``str``, ``category``.
+    wide, wide_cardinality : int
+        Also time a frame of ``wide`` columns with ``wide_cardinality`` levels each
+        (0 skips it).
 
     Returns
     -------
     pandas.DataFrame
-        Columns ``kind, cardinality, ours_s, reference_s, ratio, identical``;
-        ``ratio = reference_s / ours_s`` (above 1: ours is faster); ``identical`` says
-        whether both outputs hold the same numbers (``allclose`` for target statistics).
+        Columns ``kind, dtype, columns, cardinality, ours_s, reference, reference_s, ratio,
+        floor_s, over_floor, floor_ratio, identical``; ``ratio = reference_s / ours_s``
+        (above 1: ours is faster), ``over_floor = ours_s / floor_s``, ``floor_ratio =
+        reference_s / floor_s`` (the ratio an encoder doing only the floor's work would
+        reach: the ceiling of ``ratio`` for any encoder that factorises its input); ``identical`` says whether both
+        outputs hold the same numbers (``allclose`` for target statistics).
 
     References
     ----------
     Zipf, G. K. (1949). Human Behavior and the Principle of Least Effort. Addison-Wesley
     (the rank-frequency law used for the synthetic levels).
     """
+    shapes = [(1, int(c)) for c in cardinalities] + ([(wide, wide_cardinality)] if wide else [])
     rows = []
-    for cardinality in cardinalities:
-        rng = np.random.default_rng(seed)
-        frame = zipf_column(n_rows, int(cardinality), rng).to_frame()
-        y = binary_target(frame[COLUMN], rng)
-        for case in _cases(frame, y, seed):
-            ours_s, ours = best_time(case.ours, repeats)
-            reference_s, reference = best_time(case.reference, repeats)
-            rows.append(
-                {
-                    "kind": case.kind,
-                    "cardinality": int(cardinality),
-                    "ours_s": ours_s,
-                    "reference_s": reference_s,
-                    "ratio": reference_s / ours_s,
+    for dtype in dtypes:
+        for n_columns, cardinality in shapes:
+            rng = np.random.default_rng(seed)
+            frame = zipf_frame(n_rows, cardinality, n_columns, dtype, rng)
+            y = binary_target(frame.iloc[:, 0], rng)
+            floor_s, _ = best_time(lambda: floor(frame), repeats)
+            for case in _cases(frame, y, seed):
+                ours_s, ours = best_time(case.ours, repeats)
+                reference_s, reference = best_time(case.reference, repeats)
+                rows.append({
+                    "kind": case.kind, "dtype": dtype, "columns": n_columns,
+                    "cardinality": cardinality, "ours_s": ours_s,
+                    "reference": case.reference_name, "reference_s": reference_s,
+                    "ratio": reference_s / ours_s, "floor_s": floor_s,
+                    "over_floor": ours_s / floor_s, "floor_ratio": reference_s / floor_s,
                     "identical": case.same(ours, reference),
-                }
-            )
+                })
     return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+
+
+def target_of(kind: str, dtype: str, measure: str) -> float | None:
+    """The bound of ``measure`` for ``kind`` on ``dtype`` (``None``: no target)."""
+    for kinds, name, dtypes, bound in TARGETS:
+        if kind in kinds and name == measure and dtype in dtypes:
+            return bound
+    return None
+
+
+def check_targets(table: pd.DataFrame) -> pd.DataFrame:
+    """One row per (kind, dtype, measure) with a target: worst value, bound, met."""
+    rows = []
+    for (kind, dtype), part in table.groupby(["kind", "dtype"], sort=False):
+        for measure in ("ratio", "over_floor"):
+            bound = target_of(kind, dtype, measure)
+            if bound is None:
+                continue
+            worst = part[measure].min() if measure == "ratio" else part[measure].max()
+            met = worst >= bound if measure == "ratio" else worst <= bound
+            rows.append({"kind": kind, "dtype": dtype, "measure": measure,
+                         "worst": worst, "target": bound, "met": bool(met)})
+    return pd.DataFrame(rows, columns=["kind", "dtype", "measure", "worst", "target", "met"])
 
 
 def format_table(table: pd.DataFrame) -> str:
     """The result table as aligned text: seconds to 4 decimals, ratios to 1."""
-    return table.to_string(
+    shown = table.drop(columns=["reference"])
+    return shown.to_string(
         index=False,
         formatters={
             "ours_s": "{:.4f}".format,
             "reference_s": "{:.4f}".format,
+            "floor_s": "{:.4f}".format,
             "ratio": "{:.1f}x".format,
+            "over_floor": "{:.2f}x".format,
+            "floor_ratio": "{:.1f}x".format,
         },
     )
+
+
+def format_targets(checked: pd.DataFrame) -> str:
+    lines = []
+    for r in checked.itertuples():
+        if r.measure == "ratio":
+            lines.append(f"{r.kind:<10}{r.dtype:<9} reference / ours  worst {r.worst:5.1f}x  "
+                         f"target >= {r.target:g}x  {'met' if r.met else 'NOT MET'}")
+        else:
+            lines.append(f"{r.kind:<10}{r.dtype:<9} ours / floor      worst {r.worst:5.2f}x  "
+                         f"target <= {r.target:g}x  {'met' if r.met else 'NOT MET'}")
+    return "\n".join(lines)
 
 
 def _positive_ints(text: str) -> tuple[int, ...]:
@@ -213,20 +306,29 @@ def main(argv=None) -> int:
     parser.add_argument("--cardinalities", default="10,1000,100000", help="comma-separated")
     parser.add_argument("--repeats", type=int, default=3, help="timings per call; best kept")
     parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("--dtypes", default=",".join(DTYPES), help="comma-separated: object,str,category")
+    parser.add_argument("--wide", type=int, default=WIDE, help="columns of the wide frame (0: none)")
     parser.add_argument("--output", type=Path, default=DEFAULT_OUTPUT, help="CSV path")
     args = parser.parse_args(argv)
-    if args.rows < 1 or args.repeats < 1:
+    if args.rows < 1 or args.repeats < 1 or args.wide < 0:
         raise ConfigError(
-            f"--rows and --repeats must be integers >= 1; got {args.rows} and {args.repeats}."
+            f"--rows and --repeats must be integers >= 1 and --wide >= 0; got {args.rows}, "
+            f"{args.repeats} and {args.wide}."
         )
+    dtypes = tuple(d.strip() for d in args.dtypes.split(",") if d.strip())
+    if not dtypes or set(dtypes) - set(DTYPES):
+        raise ConfigError(f"--dtypes must be a comma-separated list of {', '.join(DTYPES)}; got {args.dtypes!r}.")
     table = run_encoder_bench(
-        args.rows, _positive_ints(args.cardinalities), repeats=args.repeats, seed=args.seed
+        args.rows, _positive_ints(args.cardinalities), repeats=args.repeats, seed=args.seed,
+        dtypes=dtypes, wide=args.wide,
     )
     print(
         f"encoder fit_transform, {args.rows:,} rows, best of {args.repeats}; "
-        "ratio = reference / ours"
+        "ratio = reference / ours; over_floor = ours / (pd.factorize + np.bincount)"
     )
     print(format_table(table))
+    print("\ntargets (worst case over cardinalities and frames):")
+    print(format_targets(check_targets(table)))
     args.output.parent.mkdir(parents=True, exist_ok=True)
     table.to_csv(args.output, index=False)
     print(f"written: {args.output}")

@@ -104,9 +104,23 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
         ``{parameter: (rule, ...)}`` of ``_rules``; checked once at ``fit``.
 
     Subclasses call ``self._fit_levels(X, order=...)`` in ``fit`` and ``self._codes(X)`` in
-    ``transform``. Fitted attributes: ``feature_names_in_``, ``n_features_in_``,
-    ``levels_`` (list of ``pd.Index``, missing never included), ``counts_`` (list of int64
-    arrays aligned with ``levels_``), ``n_missing_`` (int64 array, one per column).
+    ``transform``.
+
+    Attributes
+    ----------
+    n_features_in_ : int
+        Number of input columns.
+    feature_names_in_ : ndarray of str
+        Input column names (only when ``X`` was a DataFrame).
+    levels_ : list of pandas.Index
+        Levels of each column seen at fit, in the encoder's order; missing is never one.
+    counts_ : list of int64 ndarray
+        Training rows per level, aligned with ``levels_``.
+    n_missing_ : int64 ndarray
+        Missing training rows per column.
+    stringified_ : list of bool
+        Per column, whether its values were taken by their text (an object column of
+        mixed types); new data of that column is then compared by text too.
     """
 
     uses_target: bool = False
@@ -278,16 +292,53 @@ class LevelCodeEncoder(CategoricalEncoder):
     """
 
     def fit(self, X, y=None):
-        """Learn the levels of each column. ``y`` is ignored."""
+        """Learn the levels of each column.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features)
+            Categorical columns (object, ``str``, ``category``, bool or numbers).
+        y : ignored
+            Accepted for the scikit-learn API.
+
+        Returns
+        -------
+        self : the fitted encoder.
+
+        Raises
+        ------
+        ParameterError
+            If a parameter breaks the class's ``param_rules``.
+        """
         self._fit_codes(X)
         return self
 
     def fit_transform(self, X, y=None, **fit_params):
-        """Fit and return the encoded training rows. ``y`` is ignored."""
+        """Fit and return the encoded training rows (one factorisation, not two).
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features)
+        y : ignored
+
+        Returns
+        -------
+        ndarray or scipy.sparse.csr_matrix of shape (n_samples, n_features_out)
+            Equal to ``fit(X).transform(X)``.
+        """
         return self._to_output(self._fit_codes(X))
 
     def transform(self, X):
         """Encode ``X`` with the fitted levels.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features_in_)
+
+        Returns
+        -------
+        ndarray or scipy.sparse.csr_matrix of shape (n_samples, n_features_out)
+            Column ``k`` is named ``get_feature_names_out()[k]``.
 
         Raises
         ------

@@ -31,7 +31,21 @@ class FrequencyCodes(LevelCodeEncoder):
 
     Attributes
     ----------
-    levels_, counts_, n_missing_ : see ``CategoricalEncoder``.
+    lookups_ : list of float64 ndarray
+        Per column, the output of each level code, then of missing and unseen values.
+    n_features_in_, feature_names_in_, levels_, counts_, n_missing_, stringified_
+        See ``CategoricalEncoder``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from harness.encoders import build
+    >>> X = pd.DataFrame({"city": ["Oslo", "Rome", "Oslo", None, "Lima"]})
+    >>> enc = build("frequency").fit(X)
+    >>> enc.transform(pd.DataFrame({"city": ["Oslo", "Paris", None]})).ravel().tolist()
+    [2.0, 0.0, 1.0]
+    >>> build("frequency", scale="proportion").fit_transform(X).ravel().tolist()
+    [0.4, 0.2, 0.4, 0.2, 0.2]
     """
 
     param_rules = {"scale": (Options(*SCALES),)}

@@ -46,10 +46,32 @@ class HashedCodes(CategoricalEncoder):
     (because it holds a NaN) still hashes as at fit. Only distinct values are hashed: the
     levels at fit, the distinct unseen values at transform; rows are mapped by codes.
 
+    Attributes
+    ----------
+    lookups_ : list of (int64 ndarray, float64 ndarray)
+        Per column, the hash column and sign of each level, then of the missing token
+        (a cache: values not seen at fit are hashed at transform).
+    n_features_in_, feature_names_in_, levels_, counts_, n_missing_, stringified_
+        See ``CategoricalEncoder``.
+
     References
     ----------
     .. [1] Weinberger, K., Dasgupta, A., Langford, J., Smola, A., Attenberg, J. (2009).
        Feature hashing for large scale multitask learning. ICML, 1113-1120.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from harness.encoders import build
+    >>> X = pd.DataFrame({"city": ["Oslo", "Rome", None]})
+    >>> out = build("hashing", width=4).fit_transform(X)
+    >>> out.shape, out.nnz
+    ((3, 4), 3)
+    >>> from sklearn.feature_extraction import FeatureHasher
+    >>> ref = FeatureHasher(4, input_type="string").transform(
+    ...     [["city=Oslo"], ["city=Rome"], ["city=<missing>"]])
+    >>> bool((out != ref).nnz == 0)
+    True
     """
 
     references = ("weinberger2009",)
@@ -65,7 +87,17 @@ class HashedCodes(CategoricalEncoder):
         self.signed = signed
 
     def fit(self, X, y=None):
-        """Hash the levels seen in ``X`` (a cache; any value can be hashed later)."""
+        """Hash the levels seen in ``X`` (a cache; any value can be hashed later).
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features)
+        y : ignored
+
+        Returns
+        -------
+        self : the fitted encoder.
+        """
         self._fit_codes(X)
         return self
 
@@ -75,7 +107,17 @@ class HashedCodes(CategoricalEncoder):
         return self._to_output(codes, [None] * len(codes))
 
     def transform(self, X):
-        """Return the hashed features as a CSR matrix."""
+        """Return the hashed features.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features_in_)
+
+        Returns
+        -------
+        scipy.sparse.csr_matrix of shape (n_samples, width) or (n_samples, width * n_features_in_)
+            Shared or per-column blocks (``space``).
+        """
         frame = self._frame(X, reset=False)
         return self._to_output(*self._codes(frame, with_values=True))
 

@@ -40,14 +40,25 @@ class IntegerCodes(LevelCodeEncoder):
     ----------
     levels_ : list of pandas.Index
         Levels of each column in code order; missing is never a level.
-    counts_ : list of ndarray
-        Training rows per level, aligned with ``levels_``.
-    n_missing_ : ndarray
-        Missing training rows per column.
+    lookups_ : list of float64 ndarray
+        Per column, the output of each level code, then of missing and unseen values.
+    n_features_in_, feature_names_in_, levels_, counts_, n_missing_, stringified_
+        See ``CategoricalEncoder``.
 
     See Also
     --------
     sklearn.preprocessing.OrdinalEncoder : the same codes in ``order="lexical"``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from harness.encoders import build
+    >>> X = pd.DataFrame({"city": ["Oslo", "Rome", "Oslo", None, "Lima"]})
+    >>> enc = build("integer").fit(X)
+    >>> enc.levels_[0].tolist(), enc.counts_[0].tolist()
+    (['Lima', 'Oslo', 'Rome'], [1, 2, 1])
+    >>> enc.transform(pd.DataFrame({"city": ["Rome", "Paris", None]})).ravel().tolist()
+    [2.0, 3.0, 4.0]
     """
 
     param_rules = {

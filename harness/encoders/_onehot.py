@@ -48,8 +48,24 @@ class OneHotCodes(LevelCodeEncoder):
     lookups_ : list of ndarray
         Per input column, the output column (within the block; -1 for none) of every
         level, followed by the entries for missing and unseen values.
+    kept_ : list of (ndarray, bool)
+        Per input column, the levels (then missing) with a column of their own, and
+        whether a trailing ``<other>`` column pools the rest.
     widths_ : ndarray
         Number of output columns per input column.
+    n_features_in_, feature_names_in_, levels_, counts_, n_missing_, stringified_
+        See ``CategoricalEncoder``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from harness.encoders import build
+    >>> X = pd.DataFrame({"city": ["Oslo", "Rome", "Oslo", None, "Lima"]})
+    >>> enc = build("onehot").fit(X)
+    >>> enc.get_feature_names_out().tolist()
+    ['city=Lima', 'city=Oslo', 'city=Rome', 'city=<missing>']
+    >>> enc.transform(pd.DataFrame({"city": ["Rome", "Paris"]})).toarray().tolist()
+    [[0.0, 0.0, 1.0, 0.0], [0.0, 0.0, 0.0, 0.0]]
     """
 
     param_rules = {
@@ -72,41 +88,50 @@ class OneHotCodes(LevelCodeEncoder):
         check_is_fitted(self)
         names = _check_feature_names_in(self, input_features)
         out = []
-        for name, labels in zip(names, self.labels_):
+        for name, labels in zip(names, self._labels()):
             out.extend(f"{name}={label}" for label in labels)
         return np.asarray(out, dtype=object)
+
+    def _labels(self) -> list[list[str]]:
+        """Column labels per block, built from the layout only when names are asked for."""
+        out = []
+        for levels, n_missing, (kept, pooled) in zip(self.levels_, self.n_missing_, self.kept_):
+            labels = [str(v) for v in levels.tolist()] + ([MISSING_NAME] if n_missing else [])
+            labels = [labels[k] for k in kept] + ([OTHER_NAME] if pooled else [])
+            out.append(labels[1:] if self.drop_one and labels else labels)
+        return out
 
     # --- fit helpers -----------------------------------------------------------------------
     def _fit_codes(self, X) -> list[np.ndarray]:
         frame = self._frame(X, reset=True)
         codes = self._fit_levels(frame, order="lexical")
-        self.lookups_, self.labels_ = [], []
+        self.lookups_, self.kept_, widths = [], [], []
         for levels, counts, n_missing in zip(self.levels_, self.counts_, self.n_missing_):
-            lookup, labels = self._layout(levels, counts, int(n_missing))
+            lookup, kept, pooled = self._layout(levels, counts, int(n_missing))
             self.lookups_.append(lookup)
-            self.labels_.append(labels)
-        self.widths_ = np.asarray([len(labels) for labels in self.labels_], dtype=np.int64)
+            self.kept_.append((kept, pooled))
+            widths.append(max(len(kept) + pooled - bool(self.drop_one), 0))
+        self.widths_ = np.asarray(widths, dtype=np.int64)
         return codes
 
-    def _layout(self, levels, counts, n_missing) -> tuple[np.ndarray, list[str]]:
-        """Output column of each level (then missing, then unseen) and the column labels."""
+    def _layout(self, levels, counts, n_missing) -> tuple[np.ndarray, np.ndarray, bool]:
+        """Output column of each level (then missing, then unseen), the kept levels (index
+        into levels then missing) and whether an ``<other>`` column pools the rest."""
         # missing is one more level, sorted last, when seen at fit (as scikit-learn does)
         all_counts = np.append(counts, n_missing) if n_missing else counts
-        labels = [str(v) for v in levels.tolist()] + ([MISSING_NAME] if n_missing else [])
         rare = rare_levels(all_counts, self.min_count, self.max_levels)
         kept = np.flatnonzero(~rare)
+        pooled = bool(rare.any())
         column = np.full(len(all_counts), -1, dtype=np.int64)
         column[kept] = np.arange(len(kept))
         column[rare] = len(kept)  # the trailing <other> column
-        labels = [labels[k] for k in kept] + ([OTHER_NAME] if rare.any() else [])
-        if self.drop_one and labels:
+        if self.drop_one and (len(kept) or pooled):
             column -= 1  # the first column becomes -1: no column
-            labels = labels[1:]
         missing_column = column[-1] if n_missing else -1
         # lookup[codes]: codes >= 0 index levels; MISSING (-2) and UNSEEN (-1) read the
         # two trailing entries through negative indexing
         lookup = np.concatenate([column[: len(levels)], [missing_column, -1]])
-        return lookup, labels
+        return lookup, kept, pooled
 
     # --- transform helpers -----------------------------------------------------------------
     def _to_output(self, codes: list[np.ndarray]):

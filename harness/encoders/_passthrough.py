@@ -23,15 +23,46 @@ class DropColumns(CategoricalEncoder):
 
     The runner then keeps the dataset's numeric columns only, which measures what the
     categorical columns add under every other encoder.
+
+    Attributes
+    ----------
+    n_features_in_, feature_names_in_
+        See ``CategoricalEncoder``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from harness.encoders import build
+    >>> build("drop").fit_transform(pd.DataFrame({"city": ["Oslo", "Rome"]})).shape
+    (2, 0)
     """
 
     def fit(self, X, y=None):
-        """Record the input columns. ``y`` is ignored."""
+        """Record the input columns.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features)
+        y : ignored
+
+        Returns
+        -------
+        self : the fitted encoder.
+        """
         self._frame(X, reset=True)
         return self
 
     def transform(self, X):
-        """Return an empty ``(n_samples, 0)`` float64 array."""
+        """Return an empty array.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features_in_)
+
+        Returns
+        -------
+        ndarray of shape (n_samples, 0), float64
+        """
         frame = self._frame(X, reset=False)
         return np.empty((frame.shape[0], 0), dtype=np.float64)
 
@@ -53,15 +84,50 @@ class NativeCategories(CategoricalEncoder):
     -----
     The only encoder kind whose ``transform`` returns a ``pandas.DataFrame`` (whatever
     ``set_output`` says); the index of a DataFrame input is kept.
+
+    Attributes
+    ----------
+    n_features_in_, feature_names_in_, levels_, counts_, n_missing_, stringified_
+        See ``CategoricalEncoder``.
+        ``levels_[j]`` are column ``j``'s categories.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from harness.encoders import build
+    >>> enc = build("native").fit(pd.DataFrame({"city": ["Oslo", "Rome", "Lima"]}))
+    >>> out = enc.transform(pd.DataFrame({"city": ["Rome", "Paris"]}))
+    >>> out["city"].tolist(), out["city"].cat.categories.tolist()
+    (['Rome', nan], ['Lima', 'Oslo', 'Rome'])
     """
 
     def fit(self, X, y=None):
-        """Learn the categories of each column. ``y`` is ignored."""
+        """Learn the categories of each column.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features)
+        y : ignored
+
+        Returns
+        -------
+        self : the fitted encoder.
+        """
         self._fit_levels(self._frame(X, reset=True), order="lexical")
         return self
 
     def transform(self, X):
-        """Return a DataFrame of ``category`` columns, one per input column."""
+        """Return the columns as ``category`` dtype with the categories fixed at fit.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features_in_)
+
+        Returns
+        -------
+        pandas.DataFrame of shape (n_samples, n_features_in_)
+            One ``category`` column per input column; unseen and missing values are NaN.
+        """
         frame = self._frame(X, reset=False)
         names = self.get_feature_names_out()
         columns = {

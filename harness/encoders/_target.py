@@ -236,6 +236,25 @@ class TargetStatistics(CategoricalEncoder):
     encodings_ : list of ndarray of shape (n_levels_j [+1 missing level], n_targets)
     default_ : ndarray of shape (n_targets,)
         Output for an unseen or (under ``missing="prior"``) missing value.
+    n_features_in_, feature_names_in_, levels_, counts_, n_missing_, stringified_
+        See ``CategoricalEncoder``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from harness.encoders import build
+    >>> X = pd.DataFrame({"city": ["Oslo", "Rome", "Oslo", "Lima", "Lima"]})
+    >>> y = [1, 0, 1, 0, 0]
+    >>> enc = build("target", smoothing="m-estimate", m=2.0, crossfit="kfold", cv=2,
+    ...             random_state=0)
+    >>> train = enc.fit_transform(X, y)  # cross-fitted: no row sees its own label
+    >>> train.shape
+    (5, 1)
+    >>> enc.prior_.tolist()
+    [0.4]
+    >>> # Oslo: (2 positives + 2 * 0.4) / (2 rows + 2) = 0.7 ; Paris is unseen: the prior
+    >>> enc.transform(pd.DataFrame({"city": ["Oslo", "Paris"]})).round(4).ravel().tolist()
+    [0.7, 0.4]
 
     References
     ----------
@@ -304,18 +323,52 @@ class TargetStatistics(CategoricalEncoder):
 
     # --- public API ---------------------------------------------------------------------
     def fit(self, X, y):
-        """Learn one table per column from all rows of ``(X, y)``; return ``self``."""
+        """Learn one table per column from all rows of ``(X, y)``.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features)
+        y : array-like of shape (n_samples,)
+            Binary, multiclass or continuous target (``target_type``).
+
+        Returns
+        -------
+        self : the fitted encoder.
+        """
         _, _, Y, _, codes = self._prepare(X, y)
         for j, c in enumerate(codes):
             self._store_table(j, _crossfit.in_sample(c, Y, self._n_stat_levels(j), self._spread))
         return self
 
     def fit_transform(self, X, y):
-        """Fit, then return cross-fitted encodings of the training rows (see ``crossfit``)."""
+        """Fit, then return cross-fitted encodings of the training rows (see ``crossfit``).
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features)
+        y : array-like of shape (n_samples,)
+
+        Returns
+        -------
+        ndarray of shape (n_samples, n_features_out)
+            Differs from ``fit(X, y).transform(X)`` except under ``crossfit="none"``.
+        """
         return self._fit_transform(X, y)
 
     def transform(self, X):
-        """Encode ``X`` with the full-data tables; unseen (and missing) values get ``default_``."""
+        """Encode ``X`` with the full-data tables.
+
+        Parameters
+        ----------
+        X : DataFrame or array-like of shape (n_samples, n_features_in_)
+
+        Returns
+        -------
+        ndarray of shape (n_samples, n_features_out)
+            One column per input column (per class and input column for a multiclass
+            target); unseen (and, under ``missing="prior"``, missing) values get
+            ``default_``.
+        """
         frame = self._frame(X, reset=False)
         out = []
         for j, codes in enumerate(self._codes(frame)):
