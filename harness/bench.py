@@ -85,8 +85,9 @@ def zipf_column(n_rows: int, cardinality: int, rng: np.random.Generator) -> pd.S
 def zipf_frame(n_rows: int, cardinality: int, n_columns: int, dtype: str, rng) -> pd.DataFrame:
     """``n_columns`` independent Zipf columns of one ``dtype`` (``object``, ``str``, ``category``).
 
-    A ``category`` column's categories are its levels in the order a data loader would
-    leave them (first appearance), not sorted: the encoder must find the sorted order.
+    A ``category`` column is built as pandas builds one (``astype("category")``: the
+    categories sorted), which is also how R factors and the runner's once-per-dataset
+    level tables arrive.
     """
     columns = {}
     for j in range(n_columns):
@@ -94,8 +95,7 @@ def zipf_frame(n_rows: int, cardinality: int, n_columns: int, dtype: str, rng) -
         if dtype == "object":
             s = s.astype(object)
         elif dtype == "category":
-            codes, uniques = pd.factorize(s)
-            s = pd.Series(pd.Categorical.from_codes(codes, categories=uniques))
+            s = s.astype("category")
         columns[COLUMN if n_columns == 1 else f"{COLUMN}{j}"] = s
     return pd.DataFrame(columns)
 

@@ -210,7 +210,11 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
         self.levels_, self.counts_, codes_out, self.stringified_ = [], [], [], []
         self.n_missing_ = np.zeros(frame.shape[1], dtype=np.int64)
         for j in range(frame.shape[1]):
-            raw, uniques = raw_codes(frame.iloc[:, j])
+            col = frame.iloc[:, j]
+            raw, uniques = raw_codes(col)
+            # categories already in lexical order (pandas' astype("category") sorts them,
+            # and so does the runner's once-per-dataset table) need no sort of their own
+            presorted = isinstance(col.dtype, pd.CategoricalDtype) and _is_sorted(uniques)
             # one pass: bincount of codes + 1 counts the missing rows (code -1) in slot 0
             counts = np.bincount(raw + 1, minlength=len(uniques) + 1).astype(np.int64)
             self.n_missing_[j] = counts[0]
@@ -222,24 +226,26 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
             counts = np.bincount(kept[kept >= 0], weights=counts[kept >= 0],
                                  minlength=len(uniques)).astype(np.int64)
             first = _first_seen(raw, kept, len(uniques)) if order == "appearance" else None
-            perm = self._level_order(uniques, counts, order, first)
+            presorted = presorted and not stringified
+            perm = self._level_order(uniques, counts, order, first, presorted)
             # raw code -> level code; the trailing entry maps the NA code (-1) to MISSING
             inverse = np.full(len(perm) + 1, MISSING, dtype=np.int64)
             inverse[perm] = np.arange(len(perm))
             to_level = np.append(np.where(kept >= 0, inverse[kept], MISSING), MISSING)
-            self.levels_.append(uniques.take(perm))
+            identity = len(perm) == 0 or (perm[0] == 0 and np.all(np.diff(perm) == 1))
+            self.levels_.append(uniques if identity else uniques.take(perm))
             self.counts_.append(counts[perm])
             codes_out.append(to_level[raw])
         return codes_out
 
     @staticmethod
-    def _level_order(uniques, counts: np.ndarray, order: str, first=None) -> np.ndarray:
+    def _level_order(uniques, counts: np.ndarray, order: str, first=None, presorted=False) -> np.ndarray:
         n = len(uniques)
         if order == "any" or n == 0:
             return np.arange(n)
         if order == "appearance":
             return np.argsort(first, kind="stable")
-        lexical = _lexical_argsort(uniques)
+        lexical = np.arange(n) if presorted else _lexical_argsort(uniques)
         if order == "lexical":
             return lexical
         if order == "frequency":
@@ -391,7 +397,9 @@ def factorised(frame: pd.DataFrame, columns) -> pd.DataFrame:
         categories = pd.Index(uniques, dtype=uniques.dtype, copy=False)
         small = codes.astype(np.min_scalar_type(-max(len(categories), 1)), copy=False)
         dtype = pd.CategoricalDtype(categories, ordered=False)
-        out[name] = pd.Series(pd.Categorical.from_codes(small, dtype=dtype), index=frame.index, name=name)
+        column = pd.Series(pd.Categorical.from_codes(small, dtype=dtype), index=frame.index, name=name)
+        # sorted once here, so that no fold x encoder unit sorts the levels again
+        out[name] = column if _mixed_values(categories) else sort_categories(column)
     return out
 
 
@@ -442,6 +450,34 @@ def _first_seen(raw: np.ndarray, kept: np.ndarray, n_levels: int) -> np.ndarray:
     # the earliest distinct value of each level wins (merged values share a level)
     np.minimum.at(first, levels[ok], rank[ok])
     return first
+
+
+def _is_sorted(categories: pd.Index) -> bool:
+    """True when ``categories`` are strictly in the order ``_lexical_argsort`` gives.
+
+    pandas caches the answer on the Index, so the check runs once per level table.
+    Object categories of mixed types are sorted by their text, never taken as sorted.
+    """
+    if categories.dtype == object and _mixed_values(categories):
+        return False
+    try:
+        return bool(categories.is_monotonic_increasing and categories.is_unique)
+    except TypeError:
+        return False
+
+
+def sort_categories(s: pd.Series) -> pd.Series:
+    """A ``category`` column with its categories put in lexical order (codes remapped)."""
+    categories = s.dtype.categories
+    order = _lexical_argsort(categories)
+    if np.array_equal(order, np.arange(len(order))):
+        return s
+    rank = np.empty(len(order), dtype=np.int64)
+    rank[order] = np.arange(len(order))
+    codes = s.cat.codes.to_numpy()
+    new = np.where(codes >= 0, rank[np.maximum(codes, 0)], -1).astype(codes.dtype)
+    dtype = pd.CategoricalDtype(categories.take(order), ordered=False)
+    return pd.Series(pd.Categorical.from_codes(new, dtype=dtype), index=s.index, name=s.name)
 
 
 def _lexical_argsort(uniques) -> np.ndarray:
