@@ -188,6 +188,7 @@ def cmd_list(args) -> int:
     print("encoder kinds:")
     for kind in encoders.KINDS:
         print(f"  {kind:<10} parameters: {', '.join(encoders.params_of(kind)) or '-'}")
+        print(f"  {'':<10} {encoders.describe(kind)}")
     print("model families:")
     for name, fam in sorted(models.FAMILIES.items()):
         caps = ", ".join(c for c, ok in (("sparse", fam.sparse), ("native categoricals", fam.native_categorical)) if ok)

@@ -45,6 +45,7 @@ __all__ = [
     "check",
     "factorised",
     "declaration",
+    "describe",
     "params_of",
     "DropColumns",
     "FrequencyCodes",
@@ -110,6 +111,19 @@ def declaration(kind: str, params: dict) -> Declaration:
     """The declarations of ``kind`` under ``params`` (defaults filled from the class)."""
     cls = _cls(kind)
     return Declaration(bool(cls.uses_target), bool(cls.is_leaky(params)), cls.cited(params))
+
+
+def describe(kind: str) -> str:
+    """One line of what ``kind`` declares: target use, leaky settings, references."""
+    cls = _cls(kind)
+    if not cls.uses_target:
+        text = "target-free"
+    else:
+        leaks = "; ".join(f"{k} in {', '.join(map(str, v))}" for k, v in cls.leaky_when.items())
+        text = "uses the target" + (f"; leaky when {leaks}" if leaks else "")
+    refs = sorted({k for by in cls.references_when.values() for v in by.values() for k in v}
+                  | set(cls.references))
+    return text + (f"; references: {', '.join(refs)}" if refs else "")
 
 
 def _cls(kind: str):

@@ -153,3 +153,12 @@ def _re_repr(value) -> str:
 @pytest.mark.parametrize("kind", KINDS)
 def test_defaults_pass_the_rules(kind):
     check(kind, {})
+
+
+def test_harness_list_shows_the_declarations(capsys):
+    from harness.cli import main
+
+    assert main(["list"]) == 0
+    out = capsys.readouterr().out
+    assert "uses the target; leaky when crossfit in none, loo" in out
+    assert out.count("target-free") == sum(not ENCODERS[k].uses_target for k in KINDS)
