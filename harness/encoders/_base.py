@@ -31,6 +31,7 @@ __all__ = [
     "LevelCodeEncoder",
     "as_frame",
     "factorised",
+    "looked_up",
     "normalize_column",
     "raw_codes",
 ]
@@ -356,6 +357,18 @@ class LevelCodeEncoder(CategoricalEncoder):
         if getattr(self, "unseen", None) == "error":
             self._refuse_unseen(frame, codes)
         return self._to_output(codes)
+
+
+def looked_up(lookups: list[np.ndarray], codes: list[np.ndarray]) -> np.ndarray:
+    """float64 ``(n_rows, n_columns)``: column ``j`` is ``lookups[j][codes[j]]``.
+
+    Laid out column by column (Fortran order), so each column is written contiguously;
+    the values are those of a C-ordered array.
+    """
+    out = np.empty((len(codes[0]), len(codes)), dtype=np.float64, order="F")
+    for j, (lookup, col) in enumerate(zip(lookups, codes)):
+        np.take(lookup, col, out=out[:, j])
+    return out
 
 
 def raw_codes(s: pd.Series) -> tuple[np.ndarray, pd.Index]:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import LevelCodeEncoder
+from harness.encoders._base import LevelCodeEncoder, looked_up
 from harness.encoders._rules import Options
 
 __all__ = ["FrequencyCodes"]
@@ -72,7 +72,4 @@ class FrequencyCodes(LevelCodeEncoder):
         return codes
 
     def _to_output(self, codes: list[np.ndarray]) -> np.ndarray:
-        out = np.empty((len(codes[0]), len(codes)), dtype=np.float64)
-        for j, (lookup, col) in enumerate(zip(self.lookups_, codes)):
-            out[:, j] = lookup[col]
-        return out
+        return looked_up(self.lookups_, codes)

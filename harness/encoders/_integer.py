@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import UNSEEN, LevelCodeEncoder
+from harness.encoders._base import UNSEEN, LevelCodeEncoder, looked_up
 from harness.encoders._rules import Options
 from harness.errors import EncoderInputError
 
@@ -92,10 +92,7 @@ class IntegerCodes(LevelCodeEncoder):
         return np.concatenate([np.arange(n_levels, dtype=np.float64), [missing, unseen]])
 
     def _to_output(self, codes: list[np.ndarray]) -> np.ndarray:
-        out = np.empty((len(codes[0]), len(codes)), dtype=np.float64)
-        for j, (lookup, col) in enumerate(zip(self.lookups_, codes)):
-            out[:, j] = lookup[col]
-        return out
+        return looked_up(self.lookups_, codes)
 
     def _refuse_unseen(self, frame, codes: list[np.ndarray]) -> None:
         for j, col in enumerate(codes):
