@@ -134,6 +134,10 @@ def cmd_run(args) -> int:
         f"{summary.total} cells ({summary.computed} computed, {summary.reused} reused) in {summary.wall_s:.1f} s: {counts}.\n"
         f"results: {out / 'results.sqlite'}  table: {out / 'results.csv'}  manifest: {out / 'manifest.json'}"
     )
+    if summary.set_aside:
+        from harness.store import describe_set_aside
+
+        _say("note: " + describe_set_aside(summary.set_aside))
     if summary.interrupted:
         _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
         return 130
@@ -161,24 +165,34 @@ def _dry_run(the_plan, out: Path) -> int:
 
 def cmd_status(args) -> int:
     from harness.runner import RETRY_STATUSES
-    from harness.store import read_results
+    from harness.store import Store, read_results
 
     df = read_results(args.dir)
-    print(f"{args.dir}: {len(df)} rows")
+    with Store(args.dir, lock=False, create=False) as store:
+        grid, aside = store.grid(), store.set_aside()
+    finished = int(df["cell_id"].isin(grid).sum()) if grid else len(df)
+    missing = len(grid) - finished if grid else 0
+    print(f"{args.dir}: {len(grid) or len(df)} cells in the current grid: {finished} finished, {missing} missing; "
+          f"{sum(aside.values())} superseded rows set aside")
     if len(df):
         table = df.pivot_table(index="dataset", columns="status", values="cell_id", aggfunc="count", fill_value=0)
         print(table.to_string())
         failed = df[df["status"].isin(RETRY_STATUSES)]
         for _, row in failed.head(10).iterrows():
             print(f"  {row['status']}: {row['dataset']}/{row['encoder']}/{row['model']} r{row['repeat']}f{row['fold']}: {row['error'][:150]}")
+    for reason, n in aside.items():
+        print(f"  superseded ({n} rows): {reason}")
     return 0
 
 
 def cmd_export(args) -> int:
-    from harness.store import export, read_results
+    from harness.store import describe_set_aside, export, read_results, read_set_aside
 
     path = export(read_results(args.dir), args.to)
-    print(f"wrote {path}")
+    print(f"wrote {path} (the current grid's rows only)")
+    note = describe_set_aside(read_set_aside(args.dir))
+    if note:
+        _say("note: " + note)
     return 0
 
 

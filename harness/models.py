@@ -8,6 +8,7 @@ input and whether it takes pandas categorical columns natively; the runner pairs
 from __future__ import annotations
 
 import inspect
+import json
 from dataclasses import dataclass, field
 from typing import Callable
 
@@ -194,6 +195,21 @@ def family_params(family: str) -> tuple[str, ...]:
             return ()  # LightGBM takes **kwargs: any parameter passes through
         names |= set(inspect.signature(est).parameters)
     return tuple(sorted(names))
+
+
+def resolved_params(family: str, params: dict | None = None) -> dict:
+    """Every estimator parameter in effect, per task type: config values, the family's
+    defaults and the estimator's own defaults (part of a cell's identity).
+
+    The seed is left out: it is derived from the experiment seed and the repeat, which
+    the identity holds separately.
+    """
+    out = {}
+    for task in ("binary", "regression"):
+        est = build_model(family, task, seed=0, params=dict(params or {}))
+        got = est.get_params(deep=True)
+        out[task] = {k: v for k, v in got.items() if not k.endswith("random_state")}
+    return json.loads(json.dumps(out, sort_keys=True, default=repr))
 
 
 def build_model(family: str, task: str, seed: int, params: dict | None = None, sparse_input=False):

@@ -39,7 +39,8 @@ class Plan:
     config: Config
     datasets: dict
     splits: dict  # label -> {(repeat, fold): (train_idx, test_idx)}
-    cells: list[Cell]
+    cells: list[Cell]  # the cells to run (after --only)
+    grid: list[Cell] = field(default_factory=list)  # every cell of the config
 
 
 @dataclass
@@ -51,6 +52,7 @@ class RunSummary:
     counts: dict = field(default_factory=dict)
     wall_s: float = 0.0
     interrupted: bool = False
+    set_aside: dict = field(default_factory=dict)  # reason -> rows set aside by this run
 
 
 def load_datasets(config: Config) -> dict:
@@ -114,8 +116,9 @@ def plan(config: Config, only: str | None = None) -> Plan:
         if ds.splits is not None:
             keys = list(splits[label])
             layout[label] = (max(r for r, _ in keys) + 1, max(f for _, f in keys) + 1)
-    cells = select(build_grid(config, layout), only)
-    return Plan(config, loaded, splits, cells)
+    checksums = {label: ds.fingerprint["checksum"] for label, ds in loaded.items()}
+    grid = build_grid(config, layout, checksums)
+    return Plan(config, loaded, splits, select(grid, only), grid)
 
 
 def _warn_no_categorical(loaded: dict) -> None:
@@ -171,9 +174,10 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
     started = time.perf_counter()
     start_iso = datetime.now(timezone.utc).isoformat(timespec="seconds")
     with Store(out, fresh=fresh) as store:
+        set_aside = store.bind_grid(plan_.grid or plan_.cells)
         done = store.done_ids(RETRY_STATUSES if retry_failed else ())
         todo = [c for c in plan_.cells if c.cell_id not in done]
-        summary = RunSummary(out, len(plan_.cells), len(todo), len(plan_.cells) - len(todo))
+        summary = RunSummary(out, len(plan_.cells), len(todo), len(plan_.cells) - len(todo), set_aside=set_aside)
         _write_manifest(out, plan_, start_iso, None, summary)
         if todo:
             summary.interrupted = _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress)

@@ -33,7 +33,7 @@ from _runtools import (
 )
 from harness.cli import main
 from harness.config import load_config, parse_config
-from harness.grid import SCHEMA_VERSION, build_grid
+from harness.grid import SCHEMA_VERSION
 from harness.runner import execute, plan
 from harness.store import Store, read_results
 
@@ -42,7 +42,7 @@ SMALL_CONFIG = CONFIGS / "small.toml"
 
 
 def _grid_ids(path) -> list[str]:
-    return sorted(c.cell_id for c in build_grid(load_config(path)))
+    return sorted(c.cell_id for c in plan(load_config(path)).cells)
 
 
 @pytest.fixture(scope="module")

@@ -28,7 +28,7 @@ from harness.reporting import _bib, figures, tables
 from harness.reporting._html import (Bullets, Code, Figure, Heading, Note, Para, Table,
                                      to_html, to_markdown)
 from harness.reporting.tables import metric_name
-from harness.store import read_results
+from harness.store import describe_set_aside, read_results, read_set_aside
 
 __all__ = ["Run", "Analysis", "load_run", "analyse", "write_report"]
 
@@ -42,6 +42,7 @@ class Run:
     results: pd.DataFrame = field(repr=False)
     manifest: dict = field(repr=False)
     private: tuple = ()
+    set_aside: dict = field(default_factory=dict)  # reason -> superseded rows not used
 
 
 def _aliases(manifest: dict) -> dict:
@@ -75,7 +76,7 @@ def load_run(directory) -> Run:
                                                    results.loc[bad, "status"], bad[bad])
     manifest = {**manifest, "datasets": {names[d]: v for d, v in
                                          manifest.get("datasets", {}).items()}}
-    return Run(directory, stats.pool_primary(results), manifest, private)
+    return Run(directory, stats.pool_primary(results), manifest, private, read_set_aside(directory))
 
 
 # ------------------------------------------------------------------------------ analysis
@@ -631,7 +632,8 @@ def _header(a: Analysis) -> list:
             f"{a.run.results['encoder'].nunique()} encoders, "
             f"{a.run.results['model'].nunique()} models; config hash "
             f"{man.get('config_hash', '?')}.")
-    return [Heading(title, 1), *([Para(desc)] if desc else []), Para(line)]
+    aside = describe_set_aside(a.run.set_aside)
+    return [Heading(title, 1), *([Para(desc)] if desc else []), Para(line), *([Note(aside)] if aside else [])]
 
 
 def write_report(directory, compare=None) -> Path:
