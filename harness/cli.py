@@ -116,8 +116,12 @@ def _load_for_run(args):
 def cmd_run(args) -> int:
     from harness.runner import execute, plan
 
+    from harness.config import check_jobs
+
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be an integer >= 1; got {args.jobs}.")
+    if args.jobs is not None:
+        check_jobs(args.jobs, "--jobs")
     config = _load_for_run(args)
     the_plan = plan(config, args.only)
     out = Path(args.out or config.output)

@@ -186,14 +186,30 @@ HARNESS_KEYS = ("family", "max_rows", "cell_timeout_s")
 
 
 def family_params(family: str) -> tuple[str, ...]:
-    """Estimator parameter names a family accepts (union of both task types)."""
+    """Estimator parameter names a family accepts (union of both task types).
+
+    LightGBM's scikit-learn classes take any keyword and hand it to the library, which
+    ignores an unknown one with a warning: its names are the class's own parameters
+    plus every parameter and alias the compiled library declares (``LGBM_DumpParamAliases``,
+    read through ``lightgbm.basic._ConfigAliases``).
+    """
     fam = _family(family)
     names = set()
     for builder in (fam.classifier, fam.regressor):
         est = getattr(builder, "estimator", None)
         if est is None:
-            return ()  # LightGBM takes **kwargs: any parameter passes through
+            return lightgbm_params()
         names |= set(inspect.signature(est).parameters)
+    return tuple(sorted(names))
+
+
+def lightgbm_params() -> tuple[str, ...]:
+    import lightgbm as lgb
+    from lightgbm.basic import _ConfigAliases
+
+    names = set(inspect.signature(lgb.LGBMModel).parameters) - {"kwargs"}
+    for name, aliases in _ConfigAliases._get_all_param_aliases().items():
+        names |= {name, *aliases}
     return tuple(sorted(names))
 
 
