@@ -314,12 +314,7 @@ def leave_one_group_out(
     EncoderInputError
         With fewer than two groups (no other group to learn from).
     """
-    n_groups = int(groups.max(initial=-1)) + 1
-    if n_groups < 2:
-        raise EncoderInputError(
-            "TargetStatistics with groups needs at least 2 groups in the training rows to "
-            f"cross-fit; got {n_groups}. Use a group column with more groups, or no group."
-        )
+    n_groups = _n_groups(groups)
     width = n_levels + 1
     key = _keyed(codes, n_levels)
     pairs, index = np.unique(groups.astype(np.int64) * width + key, return_inverse=True)
@@ -335,6 +330,17 @@ def leave_one_group_out(
     if sq is not None:
         sq[level_of == n_levels] = 0.0
     return CellStats(n, total, sq, prior, tau2, index)
+
+
+def _n_groups(groups: np.ndarray) -> int:
+    """Number of groups (codes ``0..G-1``); at least two are needed to cross-fit."""
+    n_groups = int(groups.max(initial=-1)) + 1
+    if n_groups < 2:
+        raise EncoderInputError(
+            "TargetStatistics with groups needs at least 2 groups in the training rows to "
+            f"cross-fit; got {n_groups}. Use a group column with more groups, or no group."
+        )
+    return n_groups
 
 
 def _drop_part(whole: LevelStats, part: LevelStats, whole_of: np.ndarray):
@@ -497,12 +503,7 @@ def group_folds(groups: np.ndarray, n_folds: int, rng: np.random.RandomState) ->
     EncoderInputError
         With fewer than two groups.
     """
-    n_groups = int(groups.max(initial=-1)) + 1
-    if n_groups < 2:
-        raise EncoderInputError(
-            f"TargetStatistics with groups needs at least 2 groups in the training rows to "
-            f"cross-fit; got {n_groups}. Use a group column with more groups, or no group."
-        )
+    n_groups = _n_groups(groups)
     k = min(n_folds, n_groups)
     fold_of_group = np.empty(n_groups, dtype=np.int64)
     fold_of_group[rng.permutation(n_groups)] = np.arange(n_groups) % k
@@ -518,12 +519,7 @@ def group_holdout(groups: np.ndarray, fraction: float, rng: np.random.RandomStat
     EncoderInputError
         With fewer than two groups.
     """
-    n_groups = int(groups.max(initial=-1)) + 1
-    if n_groups < 2:
-        raise EncoderInputError(
-            "TargetStatistics(crossfit='holdout') with groups needs at least 2 groups in the "
-            f"training rows; got {n_groups}."
-        )
+    n_groups = _n_groups(groups)
     order = rng.permutation(n_groups)
     filled = np.cumsum(np.bincount(groups, minlength=n_groups)[order])
     n_first = int(np.clip(np.searchsorted(filled, fraction * len(groups), side="right"), 1, n_groups - 1))
