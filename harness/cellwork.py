@@ -245,7 +245,7 @@ def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test, enc: _Encoded
     else:
         model = _models.build_model(
             cell.model.family, task, seed=(job.seed + cell.repeat) % 2**31, params=dict(cell.model.params),
-            sparse_input=sp.issparse(train),
+            n_numeric=len(dataset.numeric),
         )
     t0 = time.perf_counter()
     model.fit(train, y_train)
