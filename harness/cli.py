@@ -31,7 +31,10 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--data", help="a private CSV/Parquet file to use as the only dataset")
     run.add_argument("--target", help="target column of --data")
     run.add_argument("--config", dest="config_opt", help="config whose encoders, models and protocol --data uses")
-    run.add_argument("--out", help="output directory (default results/<experiment name>)")
+    run.add_argument("--alias", help="name of the --data dataset in every output (hides the file name)")
+    run.add_argument("--description", help="one-line description of the --data experiment for the report")
+    run.add_argument("--out", help="output directory (default results/<experiment name>; with --data, "
+                     "results/private-<name>-<config hash>)")
     run.add_argument("--jobs", type=int, help="parallel worker processes")
     run.add_argument("--backend", choices=["local", "dask"], help="execution backend")
     run.add_argument("--scheduler", help="Dask scheduler address (tcp://host:8786); none = local cluster")
@@ -107,7 +110,11 @@ def _load_for_run(args):
             raise ConfigError("give either a CONFIG or --data FILE (with --config for its settings), not both.")
         if not args.target:
             raise ConfigError("--data needs --target COLUMN naming the target column of the file.")
-        return private_config(args.data, args.target, args.config_opt or DEFAULT_PRIVATE_CONFIG)
+        return private_config(args.data, args.target, args.config_opt or DEFAULT_PRIVATE_CONFIG,
+                              alias=args.alias, description=args.description)
+    if args.alias or args.description:
+        raise ConfigError("--alias and --description name a --data dataset; with a CONFIG, set `alias` in its "
+                          "[datasets.<label>] table and `description` in [experiment].")
     if not args.config:
         raise ConfigError("`harness run` needs a CONFIG file (e.g. configs/quickstart.toml) or --data FILE --target COLUMN.")
     return load_config(args.config)

@@ -6,6 +6,7 @@ and suggests the closest valid key for a typo. Nothing downstream re-validates.
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import hashlib
 import inspect
@@ -579,10 +580,19 @@ def _check_native(encoders, models, path: str) -> None:
         )
 
 
-def private_config(data: str, target: str, base: str | Path) -> Config:
+PRIVATE_TITLE = "private dataset"
+
+
+def private_config(data: str, target: str, base: str | Path, alias: str | None = None,
+                   description: str | None = None) -> Config:
     """The encoders, models and protocol of ``base`` with one private file as the dataset.
 
-    Used by ``harness run --data FILE --target COLUMN [--config BASE]``.
+    Used by ``harness run --data FILE --target COLUMN [--config BASE] [--alias NAME]
+    [--description TEXT]``. The experiment is named after ``alias`` (else "private
+    dataset"), its description is ``description`` (never the borrowed config's), no output
+    carries the file's path (only its name, and not even that with an alias), and the
+    default output directory ``results/private-<name>-<config hash>`` is its own for
+    every combination of file, target, alias and settings.
     """
     base = Path(base)
     if not base.is_file():
@@ -591,10 +601,21 @@ def private_config(data: str, target: str, base: str | Path) -> Config:
             "(run from the project folder for the default configs/team-default.toml)."
         )
     raw = _read_toml(base)
-    stem = Path(data).stem
-    raw["datasets"] = {stem: {"source": "file", "path": str(data), "target": target}}
+    label = _slug(alias) if alias else _slug(Path(data).stem)
+    spec = {"source": "file", "path": str(data), "target": target, **({"alias": alias} if alias else {})}
+    raw["datasets"] = {label: spec}
     experiment = dict(raw.get("experiment", {}))
-    experiment["name"] = f"private-{stem}"
+    experiment["name"] = alias or PRIVATE_TITLE
+    experiment["description"] = description or ""
     experiment.pop("output", None)
     raw["experiment"] = experiment
-    return parse_config(raw, f"{base} with --data {data}")
+    shown = alias or Path(data).name
+    cfg = parse_config(raw, f"{base} with --data {shown}")
+    return dataclasses.replace(cfg, output=f"results/private-{label}-{cfg.hash[:8]}")
+
+
+def _slug(text: str) -> str:
+    """A name safe in a path and a config label: letters, digits, '-' and '_'."""
+    import re
+
+    return re.sub(r"[^A-Za-z0-9_-]+", "-", text).strip("-") or "dataset"

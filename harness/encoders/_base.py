@@ -96,6 +96,14 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
     arrays aligned with ``levels_``), ``n_missing_`` (int64 array, one per column).
     """
 
+    def missing_rule(self) -> str:
+        """How this encoder, as configured, treats a missing categorical value (report text).
+
+        The default across encoders is a level of its own; encoders with a ``missing``
+        option say what the other choice does.
+        """
+        return "a level of its own"
+
     # --- input ---------------------------------------------------------------------------
     def _frame(self, X, *, reset: bool) -> pd.DataFrame:
         frame = as_frame(X)

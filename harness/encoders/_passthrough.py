@@ -25,6 +25,9 @@ class DropColumns(CategoricalEncoder):
     categorical columns add under every other encoder.
     """
 
+    def missing_rule(self) -> str:
+        return "not used (categorical columns dropped)"
+
     def fit(self, X, y=None):
         """Record the input columns. ``y`` is ignored."""
         self._frame(X, reset=True)
@@ -54,6 +57,9 @@ class NativeCategories(CategoricalEncoder):
     The only encoder kind whose ``transform`` returns a ``pandas.DataFrame`` (whatever
     ``set_output`` says); the index of a DataFrame input is kept.
     """
+
+    def missing_rule(self) -> str:
+        return "a missing category, left to the model's own rule"
 
     def fit(self, X, y=None):
         """Learn the categories of each column. ``y`` is ignored."""

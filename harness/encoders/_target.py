@@ -262,8 +262,9 @@ class TargetStatistics(CategoricalEncoder):
     holdout_fraction : float in (0, 1), default=0.5
         Under ``crossfit="holdout"``, the share of rows in the first of the two random
         parts; each part is encoded from the other (``_crossfit.holdout_folds``).
-    missing : {"prior", "category"}, default="prior"
-        A missing value gets the prior, or is a level of its own (as scikit-learn).
+    missing : {"category", "prior"}, default="category"
+        A missing value is a level of its own with its own smoothed statistic (as
+        scikit-learn, and as every other encoder here by default), or gets the prior.
     target_type : {"auto", "binary", "multiclass", "continuous"}, default="auto"
         ``auto`` uses ``sklearn.utils.multiclass.type_of_target``.
     prior : float or None, default=None
@@ -297,7 +298,7 @@ class TargetStatistics(CategoricalEncoder):
         statistic="mean",
         noise=0.0,
         holdout_fraction=0.5,
-        missing="prior",
+        missing="category",
         target_type="auto",
         prior=None,
     ):
@@ -358,6 +359,9 @@ class TargetStatistics(CategoricalEncoder):
         tags = super().__sklearn_tags__()
         tags.target_tags.required = True
         return tags
+
+    def missing_rule(self) -> str:
+        return "a level of its own" if self.missing == "category" else "the prior (missing = \"prior\")"
 
     # --- fitting ------------------------------------------------------------------------
     def _check_params(self):
