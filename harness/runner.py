@@ -24,6 +24,7 @@ from sklearn.model_selection import GroupKFold, KFold, StratifiedGroupKFold, Str
 
 from harness import datasets as _datasets
 from harness import encoders as _encoders
+from harness import models as _models
 from harness.backends import make_backend
 from harness.cellwork import UnitJob
 from harness.config import Config
@@ -311,11 +312,15 @@ def _write_manifest(out: Path, plan_: Plan, start: str, end: str | None, summary
                 "fingerprint": ds.fingerprint,
                 "group": _group_column(cfg, label) if ds.groups is not None else None,
                 "duplicate_test_share": plan_.duplicates.get(label, 0.0),
+                "clustered": plan_.duplicates.get(label, 0.0) >= CLUSTERED_SHARE,
             }
             for label, ds in plan_.datasets.items()
         },
         "missing_values": {e.label: _encoders.build(e.kind, **e.params).missing_rule() for e in cfg.encoders},
-        "scaling": SCALING_POLICY,
+        "scaling": {
+            "policy": SCALING_POLICY,
+            "scaled_models": [m.label for m in cfg.models if _models.FAMILIES[m.family].scaled],
+        },
         "encoders": {e.label: {"kind": e.kind, **e.params} for e in cfg.encoders},
         "models": {m.label: {"family": m.family, **m.params} for m in cfg.models},
         "protocol": cfg.raw.get("protocol", {}),

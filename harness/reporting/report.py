@@ -305,9 +305,48 @@ def _protocol_text(man: dict) -> str:
     folds, repeats = p.get("folds", "?"), p.get("repeats", 1)
     strat = ("stratified by class for classification" if p.get("stratify", True)
              else "not stratified")
-    group = f", grouped by column '{p['group']}'" if p.get("group") else ""
-    return (f"{repeats} × {folds}-fold cross-validation ({strat}{group}; seed "
+    return (f"{repeats} × {folds}-fold cross-validation ({strat}; seed "
             f"{man.get('seed', '?')}; encoders are fitted on the training folds only)")
+
+
+def _grouping_text(man: dict) -> str:
+    """Each dataset's grouping, grouped cross-fitting, and tables that look clustered."""
+    ds = man.get("datasets", {})
+    grouped = {n: d["group"] for n, d in ds.items() if d.get("group")}
+    if grouped:
+        parts = ", ".join(f"{n} by column '{g}'" for n, g in grouped.items())
+        rest = [n for n in ds if n not in grouped]
+        text = (f"Outer folds were grouped for {parts}: every group fell in one fold. For these datasets "
+                "target statistics were cross-fitted on inner folds of whole groups (k-fold, holdout and "
+                "the ordered permutation over groups; leave-one-out became leave-one-group-out), so no "
+                "training row's statistic used a row of its own group. ")
+        text += (f"The other datasets ({', '.join(rest)}) were split by row, their rows treated as independent. "
+                 if rest else "")
+    else:
+        text = "No dataset was grouped: rows were split at random and treated as independent. "
+    flagged = [f"{n} ({d.get('duplicate_test_share', 0.0):.0%})" for n, d in ds.items() if d.get("clustered")]
+    if flagged:
+        text += ("Share of test rows with an exact duplicate (features and target) in their training fold, "
+                 f"a sign of clustered rows that inflates scores: {', '.join(flagged)}. ")
+    return text
+
+
+def _policy_text(man: dict) -> str:
+    """The scaling and missing-value policies as the run recorded them."""
+    text = ""
+    scaling = man.get("scaling") or {}
+    if scaling.get("scaled_models"):
+        text += (f"For the models on scaled inputs ({', '.join(scaling['scaled_models'])}), "
+                 f"{scaling['policy']}; the other models took the columns unscaled. ")
+    rules: dict = {}
+    for label, rule in (man.get("missing_values") or {}).items():
+        rules.setdefault(rule, []).append(label)
+    if len(rules) == 1:
+        text += f"A missing categorical value was {next(iter(rules))} under every encoder. "
+    elif rules:
+        text += ("A missing categorical value was " + "; ".join(
+            f"{rule} under {', '.join(labels)}" for rule, labels in rules.items()) + ". ")
+    return text
 
 
 def _methods_text(a: Analysis) -> str:
@@ -330,7 +369,10 @@ def _methods_text(a: Analysis) -> str:
     return (
         f"We compared {len(man.get('encoders') or {})} categorical encodings ({enc}) with "
         f"{len(man.get('models') or {})} model(s) ({mod}) on {len(ds)} dataset(s): {dtext}. "
-        f"Each dataset × encoder × model was evaluated by {_protocol_text(man)}. The primary "
+        f"Each dataset × encoder × model was evaluated by {_protocol_text(man)}. "
+        f"{_grouping_text(man)}"
+        f"{_policy_text(man)}"
+        f"{describe_set_aside(run.set_aside) + ' ' if run.set_aside else ''}The primary "
         f"metric was {mets} (ROC AUC: macro one-vs-rest average for multiclass targets). "
         f"Per-dataset means carry corrected resampled t intervals ({_bib.cite('nadeau2003')}; "
         f"J = repeats × folds resamples, {_bib.cite('bouckaert2004')}). Across datasets, "
