@@ -169,6 +169,9 @@ def _dry_run(the_plan, out: Path) -> int:
         f"{cfg.name}: {len(cfg.datasets)} datasets x {len(cfg.encoders)} encoders x {len(cfg.models)} models x "
         f"{cfg.protocol.repeats} repeats x {cfg.protocol.folds} folds = {n} cells; {todo} to compute, {n - todo} already in {out}."
     )
+    stale = len(done - {c.cell_id for c in the_plan.grid})
+    if stale:
+        print(f"  {stale} stored row(s) of cells not in this config would be set aside as superseded.")
     for cell in the_plan.cells:
         print(("  todo " if cell.cell_id not in done else "  done ") + cell.path)
     return 0
