@@ -50,17 +50,26 @@ class Cell:
         return f"{self.dataset}/{self.encoder.label}/{self.model.label}/r{self.repeat}f{self.fold}"
 
 
-def _parts(config: Config, dataset: DatasetSpec, encoder: EncoderSpec, model: ModelSpec, checksum) -> dict:
-    """Digest of each part of a cell's identity that does not depend on its position."""
+def _shared_parts(config: Config) -> dict:
+    """Identity parts common to every cell of a config (protocol, seed, code)."""
     p = config.protocol
     return {
         "code": digest([harness_version(), CODE_VERSION, SCHEMA_VERSION], 12),
         "seed": digest(config.seed, 12),
         "protocol": digest([p.folds, p.repeats, p.stratify, p.group, sorted(p.metrics), p.primary, p.primary_regression], 12),
-        "dataset": digest([dataset.label, dataset.source, dataset.params, checksum], 12),
-        "encoder": digest([encoder.label, encoder.kind, resolved_encoder_params(encoder)], 12),
-        "model": digest([model.label, model.family, _models.resolved_params(model.family, model.params), model.max_rows], 12),
     }
+
+
+def _dataset_part(dataset: DatasetSpec, checksum) -> str:
+    return digest([dataset.label, dataset.source, dataset.params, checksum], 12)
+
+
+def _encoder_part(encoder: EncoderSpec) -> str:
+    return digest([encoder.label, encoder.kind, resolved_encoder_params(encoder)], 12)
+
+
+def _model_part(model: ModelSpec) -> str:
+    return digest([model.label, model.family, _models.resolved_params(model.family, model.params), model.max_rows], 12)
 
 
 def cell_hash(identity: dict, repeat: int, fold: int) -> str:
@@ -101,10 +110,15 @@ def build_grid(config: Config, layout: dict[str, tuple[int, int]] | None = None,
     """
     layout = layout or {}
     checksums = checksums or {}
+    shared = _shared_parts(config)
+    enc_parts = {e.label: _encoder_part(e) for e in config.encoders}
+    model_parts = {m.label: _model_part(m) for m in config.models}
     cells = []
     for ds in config.datasets:
         repeats, folds = layout.get(ds.label, (config.protocol.repeats, config.protocol.folds))
-        parts = {(e.label, m.label): _parts(config, ds, e, m, checksums.get(ds.label)) for e in config.encoders for m in config.models}
+        data_part = _dataset_part(ds, checksums.get(ds.label))
+        parts = {(e, m): {**shared, "dataset": data_part, "encoder": enc_parts[e], "model": model_parts[m]}
+                 for e in enc_parts for m in model_parts}
         for repeat in range(repeats):
             for fold in range(folds):
                 for enc in config.encoders:
