@@ -121,15 +121,14 @@ def _load_for_run(args):
 
 
 def cmd_run(args) -> int:
-    from harness.runner import execute, plan
-
     from harness.config import check_jobs
+    from harness.runner import execute, plan
 
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be an integer >= 1; got {args.jobs}.")
-    if args.jobs is not None:
-        check_jobs(args.jobs, "--jobs")
     config = _load_for_run(args)
+    if args.jobs is not None and not (args.scheduler or config.execution.scheduler):
+        check_jobs(args.jobs, "--jobs")
     the_plan = plan(config, args.only)
     out = Path(args.out or config.output)
     if not the_plan.cells:

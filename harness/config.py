@@ -229,7 +229,8 @@ def parse_config(raw: dict, path: str = "<config>") -> Config:
             raise ConfigError(f"`{section}` in {path} must be a table of [{section}.<label>] tables; got {raw[section]!r}.")
     _check_finite(raw, path, "")
     sections = {name: _fill(raw.get(name, {}), RULES[name], path, name) for name in RULES}
-    check_jobs(sections["execution"]["jobs"], f"`execution.jobs` in {path}")
+    if not sections["execution"]["scheduler"]:  # workers of a remote cluster are not forked here
+        check_jobs(sections["execution"]["jobs"], f"`execution.jobs` in {path}")
     _check_grid_size(raw, sections, path)
     exp = sections["experiment"]
     if exp["name"] is None:
