@@ -10,6 +10,7 @@ from harness.encoders._base import LevelCodeEncoder, check_option
 __all__ = ["FrequencyCodes"]
 
 SCALES = ("count", "proportion")
+MISSING_RULES = ("category", "unseen")
 
 
 class FrequencyCodes(LevelCodeEncoder):
@@ -20,6 +21,9 @@ class FrequencyCodes(LevelCodeEncoder):
     scale : {"count", "proportion"}, default="count"
         Raw number of training rows holding the level, or that number divided by the
         number of training rows (missing rows included in the denominator).
+    missing : {"category", "unseen"}, default="category"
+        A missing value gets the frequency of missingness (a level of its own), or 0 as
+        an unseen value does.
 
     Notes
     -----
@@ -33,8 +37,12 @@ class FrequencyCodes(LevelCodeEncoder):
     levels_, counts_, n_missing_ : see ``CategoricalEncoder``.
     """
 
-    def __init__(self, scale="count"):
+    def __init__(self, scale="count", missing="category"):
         self.scale = scale
+        self.missing = missing
+
+    def missing_rule(self) -> str:
+        return "a level of its own" if self.missing == "category" else '0, as an unseen value (missing = "unseen")'
 
     def get_feature_names_out(self, input_features=None):
         """``<column>__count`` (or ``__proportion``) per input column."""
@@ -44,6 +52,7 @@ class FrequencyCodes(LevelCodeEncoder):
 
     def _fit_codes(self, X) -> list[np.ndarray]:
         check_option(self, "scale", SCALES)
+        check_option(self, "missing", MISSING_RULES)
         frame = self._frame(X, reset=True)
         # no level order is needed: appearance order skips the sort
         codes = self._fit_levels(frame, order="appearance")
@@ -51,7 +60,7 @@ class FrequencyCodes(LevelCodeEncoder):
         divisor = float(n_rows) if self.scale == "proportion" else 1.0
         # trailing entries are read by negative codes: [-2] MISSING, [-1] UNSEEN (0 rows)
         self.lookups_ = [
-            np.concatenate([counts, [n_missing, 0]]).astype(np.float64) / divisor
+            np.concatenate([counts, [n_missing if self.missing == "category" else 0, 0]]).astype(np.float64) / divisor
             for counts, n_missing in zip(self.counts_, self.n_missing_)
         ]
         return codes

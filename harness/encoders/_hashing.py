@@ -20,6 +20,7 @@ __all__ = ["HashedCodes", "hash_tokens"]
 
 SPACES = ("shared", "per-column")
 MISSING_TOKEN = "<missing>"
+MISSING_RULES = ("category", "zeros")
 
 
 class HashedCodes(CategoricalEncoder):
@@ -40,6 +41,9 @@ class HashedCodes(CategoricalEncoder):
     signed : bool, default=True
         Use the hash's sign bit as the entry's sign, so that collisions cancel in
         expectation (Weinberger et al., 2009); False makes every entry +1.
+    missing : {"category", "zeros"}, default="category"
+        A missing value is hashed as a level of its own (the token below), or gives no
+        entry at all.
 
     Notes
     -----
@@ -57,10 +61,14 @@ class HashedCodes(CategoricalEncoder):
        Feature hashing for large scale multitask learning. ICML, 1113-1120.
     """
 
-    def __init__(self, n_components=256, space="shared", signed=True):
+    def __init__(self, n_components=256, space="shared", signed=True, missing="category"):
         self.n_components = n_components
         self.space = space
         self.signed = signed
+        self.missing = missing
+
+    def missing_rule(self) -> str:
+        return "a level of its own" if self.missing == "category" else 'no entry (missing = "zeros")'
 
     def fit(self, X, y=None):
         """Hash the levels seen in ``X`` (a cache; any value can be hashed later)."""
@@ -90,6 +98,7 @@ class HashedCodes(CategoricalEncoder):
         check_count(self, "n_components", 1)
         check_option(self, "space", SPACES)
         check_flag(self, "signed")
+        check_option(self, "missing", MISSING_RULES)
         frame = self._frame(X, reset=True)
         codes = self._fit_levels(frame, order="appearance")  # no order needed: skip the sort
         # per column: column and sign of every level, then of the missing token; the
@@ -101,6 +110,8 @@ class HashedCodes(CategoricalEncoder):
             tokens = [f"{name}={value}" for value in levels.tolist()]
             tokens.append(f"{name}={MISSING_TOKEN}")
             index, sign = self._hash(tokens)
+            if self.missing == "zeros":
+                index[-1] = -1  # the missing token's column: none
             self.lookups_.append((np.append(index, 0), np.append(sign, 0.0)))
         return frame, codes
 

@@ -18,6 +18,7 @@ from harness.errors import EncoderInputError
 __all__ = ["OneHotCodes", "indicator_matrix"]
 
 UNSEEN_RULES = ("zeros", "error")
+MISSING_RULES = ("category", "zeros")
 MISSING_NAME = "<missing>"
 OTHER_NAME = "<other>"
 
@@ -47,6 +48,9 @@ class OneHotCodes(LevelCodeEncoder):
         with an intercept (for unpenalised linear models).
     sparse : bool, default=True
         Return a scipy CSR matrix; False returns a dense float64 array.
+    missing : {"category", "zeros"}, default="category"
+        A missing value is a level of its own (its ``<missing>`` column, when missing
+        values were seen at fit), or a row of zeros in the block (never an error).
 
     Attributes
     ----------
@@ -57,12 +61,17 @@ class OneHotCodes(LevelCodeEncoder):
         Number of output columns per input column.
     """
 
-    def __init__(self, unseen="zeros", min_count=1, max_levels=None, drop_one=False, sparse=True):
+    def __init__(self, unseen="zeros", min_count=1, max_levels=None, drop_one=False, sparse=True,
+                 missing="category"):
         self.unseen = unseen
         self.min_count = min_count
         self.max_levels = max_levels
         self.drop_one = drop_one
         self.sparse = sparse
+        self.missing = missing
+
+    def missing_rule(self) -> str:
+        return "a level of its own" if self.missing == "category" else 'a row of zeros (missing = "zeros")'
 
     def get_feature_names_out(self, input_features=None):
         """``<column>=<level>``, ``<column>=<missing>`` and ``<column>=<other>`` names."""
@@ -80,11 +89,12 @@ class OneHotCodes(LevelCodeEncoder):
         check_count(self, "max_levels", 1, allow_none=True)
         check_flag(self, "drop_one")
         check_flag(self, "sparse")
+        check_option(self, "missing", MISSING_RULES)
         frame = self._frame(X, reset=True)
         codes = self._fit_levels(frame, order="lexical")
         self.lookups_, self.labels_ = [], []
         for levels, counts, n_missing in zip(self.levels_, self.counts_, self.n_missing_):
-            lookup, labels = self._layout(levels, counts, int(n_missing))
+            lookup, labels = self._layout(levels, counts, int(n_missing) if self.missing == "category" else 0)
             self.lookups_.append(lookup)
             self.labels_.append(labels)
         self.widths_ = np.asarray([len(labels) for labels in self.labels_], dtype=np.int64)
@@ -120,7 +130,7 @@ class OneHotCodes(LevelCodeEncoder):
     def _refuse_unseen(self, frame, codes: list[np.ndarray]) -> None:
         for j, (lookup, col) in enumerate(zip(self.lookups_, codes)):
             # a missing value with no missing column at fit counts as unseen too
-            bad = (col == UNSEEN) | ((lookup[-2] < 0) & (col < 0))
+            bad = (col == UNSEEN) | ((lookup[-2] < 0) & (col < 0) & (self.missing == "category"))
             if bad.any():
                 values = frame.iloc[:, j][bad].unique()[:5]
                 raise EncoderInputError(

@@ -51,14 +51,39 @@ def test_target_statistic_of_missing_is_the_m_estimate_of_its_rows():
     assert not np.isclose(expected, prior)
 
 
-@pytest.mark.parametrize("kind, params, rule", [("target", {"missing": "prior"}, "the prior"),
-                                                ("integer", {"missing": "nan"}, "NaN")])
+@pytest.mark.parametrize("kind, params, rule", [
+    ("target", {"missing": "prior"}, "the prior"),
+    ("integer", {"missing": "nan"}, "NaN"),
+    ("onehot", {"missing": "zeros"}, "a row of zeros"),
+    ("hashing", {"missing": "zeros"}, "no entry"),
+    ("frequency", {"missing": "unseen"}, "0, as an unseen value"),
+])
 def test_missing_is_configurable_per_encoder(kind, params, rule):
     X, y = _frame()
     enc = build(kind, **params).fit(X, y)
     assert enc.missing_rule().startswith(rule)
     got = enc.transform(X)[X["colour"].isna().to_numpy()]
+    got = got.toarray() if hasattr(got, "toarray") else np.asarray(got, dtype=float)
     if kind == "target":
         np.testing.assert_allclose(got, y.mean())
-    else:
+    elif kind == "integer":
         assert np.isnan(got).all()
+    else:  # no column, no entry, or the frequency of a value never seen
+        assert (got == 0).all()
+    if kind == "onehot":
+        assert not any("<missing>" in n for n in enc.get_feature_names_out())
+
+
+def test_onehot_missing_zeros_is_not_an_error_under_unseen_error():
+    X, y = _frame()
+    enc = build("onehot", missing="zeros", unseen="error").fit(X, y)
+    assert enc.transform(X).shape[0] == len(X)
+
+
+@pytest.mark.parametrize("kind", ["onehot", "hashing", "frequency", "integer", "target"])
+def test_bad_missing_option_is_refused(kind):
+    from harness.errors import ConfigError
+
+    X, y = _frame()
+    with pytest.raises((ConfigError, ValueError), match="'missing' must be one of"):
+        build(kind, missing="drop").fit(X, y)
