@@ -64,3 +64,10 @@ def test_nan_anywhere_is_refused():
     raw = _raw(encoder={"kind": "target", "noise": float("nan")})
     with pytest.raises(ConfigError, match=r"`encoders.e.noise` .* must be a finite number; got nan"):
         parse_config(raw)
+
+
+def test_a_bound_set_by_the_probe_tables_size_is_left_to_the_data():
+    # max_samples = 1000 exceeds the 40-row probe table but is valid on a larger dataset
+    parse_config(_raw({"family": "forest", "max_samples": 1000}))
+    with pytest.raises(ConfigError, match=r"rejects its parameters \(max_samples = -3\)"):
+        parse_config(_raw({"family": "forest", "max_samples": -3}))

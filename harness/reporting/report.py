@@ -312,6 +312,8 @@ def _protocol_text(man: dict) -> str:
 def _grouping_text(man: dict) -> str:
     """Each dataset's grouping, grouped cross-fitting, and tables that look clustered."""
     ds = man.get("datasets", {})
+    if not ds or any("group" not in d for d in ds.values()):
+        return ""  # a manifest written before grouping was recorded: say nothing rather than guess
     grouped = {n: d["group"] for n, d in ds.items() if d.get("group")}
     if grouped:
         parts = ", ".join(f"{n} by column '{g}'" for n, g in grouped.items())

@@ -84,3 +84,10 @@ def test_set_aside_rows_are_stated(methods):
     assert n == 2 * 3 * 2  # datasets x folds x models
     assert f"{n} row(s) of cells no longer in the current config were set aside" in text
     assert set(run.results["encoder"]) == {"codes", "te"}
+
+
+def test_a_manifest_without_grouping_records_states_nothing_about_grouping():
+    from harness.reporting.report import _grouping_text, _policy_text
+
+    old = {"datasets": {"a": {"task": "binary"}, "b": {"task": "regression"}}}
+    assert _grouping_text(old) == "" and _policy_text(old) == ""
