@@ -1,0 +1,165 @@
+"""The answer section: the choice per model, its verdict, effect, cost and caveats.
+
+Every sentence is formatted from the numbers of a :class:`harness.stats.Decision` and
+its rule; no fixed phrase states a comparison.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from harness import stats
+from harness.reporting import figures
+from harness.reporting._blocks import cost_phrase, family, figure, fmt_p, pct, table
+from harness.reporting._html import Bullets, Heading, Note, Para, Table
+from harness.reporting.tables import metric_name
+
+__all__ = ["answer_section", "decision_sentence", "decision_caveats"]
+
+_FAILED = ("failed", "timeout", "out-of-memory")
+
+
+def _evidence_phrase(row: pd.Series, d: stats.Decision) -> str:
+    test = ("Holm-adjusted one-sided Wilcoxon" if d.method == "datasets"
+            else "Holm-adjusted one-sided corrected resampled t")
+    return (f"{row['verdict']} ({test} {fmt_p(row['p_ni_holm'])} against 'worse by more "
+            f"than {100 * d.rule.margin:g} %'), effect {pct(row['effect'])} "
+            f"[{pct(row['lower'])}, {pct(row['upper'])}], P(practically worse) = "
+            f"{row['prob_worse']:.2f}")
+
+
+def _scope(d: stats.Decision, a) -> str:
+    if d.method == "folds":
+        ds = stats.ok_rows(a.run.results)
+        name = ", ".join(map(str, pd.unique(ds.loc[ds["model"] == d.model, "dataset"])))
+        n = int(d.table["n_folds"].max())
+        return (f" Scope: this answer holds for the dataset {name} only; it rests on {n} "
+                "fold-paired differences, not on a sample of datasets.")
+    return ""
+
+
+def decision_sentence(d: stats.Decision, a) -> str:
+    """The answer for one model, generated from its decision table."""
+    head = (f"**{d.model}** ({family(a.run, d.model)}), judged on {metric_name(d.metric)} "
+            f"over {d.n_datasets} dataset(s) against the reference **{d.reference}**")
+    if not d.choice:
+        return f"{head}: **no choice** — no encoder has a score for this model."
+    t = d.table
+    if d.switch:
+        names = " or ".join(f"**{c}**" for c in d.choice)
+        row = t.loc[d.choice[0]]
+        text = (f"{head}: use {names} — {_evidence_phrase(row, d)}; it is "
+                f"{cost_phrase(row['cost_ratio'], row['saving_s'])}.")
+    else:
+        text = (f"{head}: keep **{d.reference}** — no candidate is shown non-inferior "
+                f"and cheaper by at least {100 * d.rule.min_saving:g} % and "
+                f"{d.rule.min_saving_s:g} s per fold.")
+    good = t.loc[t["verdict"].isin(stats.SHOWN_NOT_WORSE) & ~t["chosen"]]
+    if len(good):
+        text += " Also shown non-inferior or better, not chosen: " + "; ".join(
+            f"{e} ({r['verdict']}, {cost_phrase(r['cost_ratio'], r['saving_s'])}"
+            f"{'' if r['eligible'] else ', excluded: leaky'})" for e, r in good.iterrows()) + "."
+    return text + _scope(d, a)
+
+
+def _power_caveats(d: stats.Decision) -> list[str]:
+    t = d.table.loc[(d.table["verdict"] == "inconclusive") & d.table["eligible"]]
+    out = []
+    for enc, r in t.iterrows():  # loop over inconclusive candidates
+        need, unit = r["needed"], r["needed_unit"]
+        if np.isfinite(need):
+            out.append(f"'{enc}' is inconclusive: at its observed spread of effects about "
+                       f"{need:.0f} {unit} would be needed for the non-inferiority test "
+                       f"to reject at the margin (power {d.rule.power:g}).")
+        elif np.isinf(need):
+            out.append(f"'{enc}' is inconclusive and its estimated effect is not above "
+                       f"−{pct(d.rule.margin, False)} (or the fold spread is too large): "
+                       f"more {unit} would not be expected to show it non-inferior.")
+    return out
+
+
+def decision_caveats(d: stats.Decision, a) -> list[str]:
+    """Caveats of one decision: notes, reference, folds, failures, leaky, power."""
+    notes = [n[0].upper() + n[1:] + "." for n in d.notes]
+    if d.reference_from_data and d.choice:
+        notes.append(f"No reference was configured: '{d.reference}' has the best average "
+                     "rank among eligible settings. A reference chosen from the data makes "
+                     "the non-inferiority tests conservative; set `decision.reference` to "
+                     "the team's incumbent.")
+    if d.method == "folds":
+        n = int(d.table["n_folds"].max())
+        if n < stats.MIN_FOLDS_ONE_DATASET:
+            folds = int(stats.ok_rows(a.run.results)["fold"].nunique())
+            need = int(np.ceil(stats.MIN_FOLDS_ONE_DATASET / max(folds, 1)))
+            notes.append(f"Only {n} outer folds in total: the one-dataset tests have few "
+                         f"degrees of freedom; use `protocol.repeats = {need}` with "
+                         f"{folds} folds to reach {stats.MIN_FOLDS_ONE_DATASET}.")
+    res = a.run.results
+    bad = res.loc[(res["model"] == d.model) & res["status"].isin(_FAILED)]
+    for enc, ds in bad.groupby("encoder")["dataset"].unique().items():  # per encoder
+        notes.append(f"Encoder '{enc}' failed or timed out on {len(ds)} dataset(s): "
+                     f"{', '.join(map(str, sorted(ds)))}.")
+    leaky = d.table.index[~d.table["eligible"]]
+    if len(leaky):
+        notes.append("Never chosen (target statistics fitted on the rows they encode): "
+                     + ", ".join(map(str, leaky)) + ".")
+    return notes + _power_caveats(d)
+
+
+def _summary(a) -> pd.DataFrame:
+    rows = []
+    for (model, metric), d in a.decisions.items():  # loop over models x metrics
+        if not d.choice:
+            continue
+        r = d.table.loc[d.choice[0]]
+        if not d.switch:
+            r = r.copy()
+            r["verdict"] = "kept: no candidate qualifies"
+            r[["effect", "lower", "upper"]] = np.nan
+        rows.append({"model": model, "metric": metric_name(metric),
+                     "analysis": "confirmatory" if metric == a.metrics[0] else
+                     "exploratory, uncorrected", "reference": d.reference,
+                     "choice": " | ".join(d.choice), "verdict": r["verdict"],
+                     "effect": pct(r["effect"]) if d.switch else "—",
+                     "interval": f"[{pct(r['lower'])}, {pct(r['upper'])}]" if d.switch else "—", "cost ratio": round(float(r["cost_ratio"]), 3),
+                     "datasets": d.n_datasets, "evidence": d.method})
+    return pd.DataFrame(rows)
+
+
+def _decision_tables(a, root: Path) -> list:
+    full = stats.decision_table(a.headline)
+    shown = full[stats.DECISION_COLUMNS].copy()
+    out = [table(full, root, "decision", "Decision per model and encoder (headline analysis, "
+                 "confirmatory): verdict against the reference, effect (unit-free, positive = "
+                 "better) with its one-sided bounds, Holm-adjusted non-inferiority p, Bayesian "
+                 "P(practically worse), median per-dataset cost ratio.", shown=shown)]
+    out += figure(lambda: figures.delta_plot(a.headline), root, "decision_effects",
+                  f"Effect of each candidate against its reference with one-sided bounds at "
+                  f"α = {a.rule.alpha:g}; the dashed line is the margin −"
+                  f"{pct(a.rule.margin, False)}; marker shapes give the verdict.",
+                  "decision effects")
+    return out
+
+
+def answer_section(a, root: Path) -> list:
+    """The question, the choice per model, the decision table and the caveats."""
+    n_cand = max((len(d.table) - 1 for d in a.headline), default=0)
+    out = [Heading("Which encoding should be the default?", 2, "answer"),
+           Para("Question: for each model in this run, which categorical encoding should be "
+                "the default, and at what cost? Decision rule, applied per model: "
+                + a.rule.describe(n_cand or None))]
+    if not a.decisions:
+        return out + [Note("No cell of this run produced a score: there is nothing to "
+                           "decide. See the list of cells that did not run below.")]
+    out.append(Table(_summary(a), "Choice per model and metric. The headline metric is the "
+                     "confirmatory analysis; rows per metric are exploratory and "
+                     "uncorrected for their number."))
+    for d in a.headline:  # loop over models
+        out.append(Para(decision_sentence(d, a)))
+        caveats = decision_caveats(d, a)
+        if caveats:
+            out.append(Bullets(tuple("Caveat: " + c for c in caveats)))
+    return out + _decision_tables(a, root)
