@@ -143,4 +143,6 @@ def unit_free_delta(candidate, reference, greater_is_better) -> np.ndarray:
         rel = (c - r) / np.abs(r)
         ratio = np.log(r / c)
     out = np.where(g, rel, ratio)
-    return np.where(np.isfinite(out), out, np.nan)
+    # rounded to 12 decimals: rescaled inputs may differ in the last bit, which would
+    # otherwise split ties of the signed-rank test (a rescaling must change nothing)
+    return np.where(np.isfinite(out), np.round(out, 12), np.nan)

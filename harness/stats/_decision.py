@@ -134,7 +134,7 @@ def _over_folds(d: np.ndarray, ratio: float, n_folds: int, rule: DecisionRule) -
 
 def _candidate(cells, per, ref, enc, method, rule) -> dict:
     a, b = per.xs(enc, level="encoder"), per.xs(ref, level="encoder")
-    j = a.join(b, rsuffix="_ref", how="inner")
+    j = a.join(b.add_suffix("_ref"), how="inner")
     ratio_cost = (j["cost"] / j["cost_ref"]).replace([np.inf, -np.inf], np.nan)
     row = {"n_datasets": len(j), "cost_ratio": float(ratio_cost.median()),
            "saving_s": float((j["cost_ref"] - j["cost"]).median()),
@@ -146,7 +146,7 @@ def _candidate(cells, per, ref, enc, method, rule) -> dict:
     keys = ["repeat", "fold"]
     fa = cells.loc[cells["encoder"] == enc].set_index(keys)
     fb = cells.loc[cells["encoder"] == ref].set_index(keys)
-    f = fa.join(fb[["value"]], rsuffix="_ref", how="inner")
+    f = fa.join(fb[["value"]].add_suffix("_ref"), how="inner")
     d = unit_free_delta(f["value"], f["value_ref"], f["gib"])
     row["n_folds"] = int(np.isfinite(d).sum())
     n_folds = int(cells["fold"].nunique())

@@ -115,7 +115,7 @@ def _audit_pair(part: pd.DataFrame, enc: str, twin: str, alpha: float) -> dict |
     keys = ["repeat", "fold"]
     a = part.loc[part["encoder"] == enc].groupby(keys)[["value", "gap", "ratio"]].mean()
     b = part.loc[part["encoder"] == twin].groupby(keys)[["value", "gap"]].mean()
-    j = a.join(b, rsuffix="_twin", how="inner").dropna(subset=["value", "value_twin"])
+    j = a.join(b.add_suffix("_twin"), how="inner").dropna(subset=["value", "value_twin"])
     if len(j) < 2:
         return None
     gib = bool(part["gib"].iloc[0])
