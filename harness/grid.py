@@ -14,7 +14,7 @@ from harness.config import Config, DatasetSpec, EncoderSpec, ModelSpec, digest
 
 __all__ = ["SCHEMA_VERSION", "Cell", "build_grid", "select", "units"]
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2  # 2: uses_target and leaky columns (encoder declarations)
 
 
 @dataclass(frozen=True)

@@ -7,6 +7,7 @@ cells whose content hash is not in the store yet.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import platform
@@ -25,6 +26,7 @@ from harness import datasets as _datasets
 from harness.backends import make_backend
 from harness.cellwork import UnitJob
 from harness.config import Config
+from harness.encoders import factorised
 from harness.errors import DataError
 from harness.grid import Cell, build_grid, select, units
 from harness.store import Store, export
@@ -105,7 +107,7 @@ def _enumerate_splits(splits):
 
 def plan(config: Config, only: str | None = None) -> Plan:
     """Load data and build the full list of cells to run (before skipping finished ones)."""
-    loaded = load_datasets(config)
+    loaded = {label: _factorised(ds) for label, ds in load_datasets(config).items()}
     _warn_no_categorical(loaded)
     p = config.protocol
     splits = {label: outer_splits(ds, p.folds, p.repeats, p.stratify, config.seed) for label, ds in loaded.items()}
@@ -116,6 +118,15 @@ def plan(config: Config, only: str | None = None) -> Plan:
             layout[label] = (max(r for r, _ in keys) + 1, max(f for _, f in keys) + 1)
     cells = select(build_grid(config, layout), only)
     return Plan(config, loaded, splits, cells)
+
+
+def _factorised(ds):
+    """The dataset with its categorical columns factorised once (codes + level table),
+    so that every fold x encoder unit works on integer codes (``encoders.factorised``)."""
+    if not ds.categorical:
+        return ds
+    X = factorised(ds.X, ds.categorical)
+    return dataclasses.replace(ds, X=X, fingerprint=ds.fingerprint)
 
 
 def _warn_no_categorical(loaded: dict) -> None:

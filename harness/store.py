@@ -59,6 +59,8 @@ COLUMNS = [
     ("task", "TEXT"),
     ("encoder_kind", "TEXT"),
     ("encoder_params", "TEXT"),
+    ("uses_target", "INTEGER"),
+    ("leaky", "INTEGER"),
     ("model_family", "TEXT"),
     ("model_params", "TEXT"),
     ("primary_metric", "TEXT"),
@@ -79,6 +81,8 @@ COLUMNS = [
     ("finished_at", "TEXT"),
 ]
 NAMES = [c for c, _ in COLUMNS]
+#: INTEGER columns that hold a boolean (SQLite has no boolean type); read back as bool
+BOOL_COLUMNS = ("uses_target", "leaky")
 
 
 class Store:
@@ -163,6 +167,16 @@ class Store:
         except sqlite3.DatabaseError:
             row = None
         version = int(row[0]) if row else None
+        if version is not None and version < SCHEMA_VERSION:
+            db.close()
+            self.close()
+            raise StoreError(
+                f"the results store {self.path} has schema version {version}, this harness reads "
+                f"version {SCHEMA_VERSION}, which records each encoder's declarations (uses_target, "
+                "leaky) in every row and identifies cells by the new version, so its cells would all "
+                "be computed again anyway. Nothing was changed. Rerun with --fresh (the old file is "
+                "kept as results.sqlite.old), or export it with the harness version that wrote it."
+            )
         if version != SCHEMA_VERSION:
             db.close()
             self.close()
@@ -234,6 +248,8 @@ def read_results(out) -> pd.DataFrame:
         if typ == "REAL":
             df[col] = pd.to_numeric(df[col], errors="coerce").astype(float)
     df["error"] = df["error"].fillna("")
+    for col in BOOL_COLUMNS:
+        df[col] = df[col].fillna(0).astype(bool)
     return df
 
 

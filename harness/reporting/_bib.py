@@ -1,11 +1,14 @@
 """References of the methods a run used: short citations and BibTeX entries.
 
 ``used_references(encoders)`` picks the statistics references every report relies on
-plus those of the encoder settings present in the run (read from the manifest's
+plus those that the encoder settings present in the run declare on their classes
+(``references`` and ``references_when``; the settings come from the manifest's
 ``encoders`` table: ``{label: {"kind": ..., **params}}``).
 """
 
 from __future__ import annotations
+
+from harness import encoders as _encoders
 
 __all__ = ["BIB", "STATS_KEYS", "used_references", "cite"]
 
@@ -176,19 +179,12 @@ def cite(key: str) -> str:
     return BIB[key][0]
 
 
-def _encoder_keys(spec: dict) -> list[str]:
+def _encoder_keys(spec: dict) -> tuple[str, ...]:
+    """References an encoder setting declares (``CategoricalEncoder.references``)."""
     kind = spec.get("kind")
-    if kind == "hashing":
-        return ["weinberger2009"]
-    if kind != "target":
-        return []
-    keys = ["pargent2022", "prokhorenkova2018"]  # benchmark of target encoders; leakage audit
-    smoothing = spec.get("smoothing", "m-estimate")  # TargetStatistics' default
-    keys += {"m-estimate": ["cestnik1990"], "sigmoid": ["micci2001"],
-             "empirical-bayes": ["micci2001"]}.get(smoothing, [])
-    if spec.get("statistic") == "woe":
-        keys.append("siddiqi2006")
-    return keys
+    if kind not in _encoders.ENCODERS:  # a manifest from a run with other kinds
+        return ()
+    return _encoders.declaration(kind, {k: v for k, v in spec.items() if k != "kind"}).references
 
 
 def used_references(encoders: dict) -> list[str]:
