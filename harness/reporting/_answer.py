@@ -84,6 +84,8 @@ def _power_caveats(d: stats.Decision) -> list[str]:
 def decision_caveats(d: stats.Decision, a) -> list[str]:
     """Caveats of one decision: notes, reference, folds, failures, leaky, power."""
     notes = [n[0].upper() + n[1:] + "." for n in d.notes]
+    if d.table.empty:
+        return notes
     if d.reference_from_data and d.choice:
         notes.append(f"No reference was configured: '{d.reference}' has the best average "
                      "rank among eligible settings. A reference chosen from the data makes "
