@@ -120,6 +120,8 @@ def cmd_run(args) -> int:
         raise ConfigError(f"--jobs must be an integer >= 1; got {args.jobs}.")
     config = _load_for_run(args)
     the_plan = plan(config, args.only)
+    if len(config.datasets) == 1:
+        _warn_few_folds(config)
     out = Path(args.out or config.output)
     if not the_plan.cells:
         raise ConfigError(f"--only '{args.only}' matches no cell; labels are dataset, encoder and model names from {config.path}.")
@@ -138,6 +140,20 @@ def cmd_run(args) -> int:
         _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
         return 130
     return 0
+
+
+def _warn_few_folds(config) -> None:
+    """One dataset is answered from its folds: fewer than 10 in total leave the tests weak."""
+    from harness.stats import MIN_FOLDS_ONE_DATASET
+
+    p = config.protocol
+    total = p.folds * p.repeats
+    if total < MIN_FOLDS_ONE_DATASET:
+        need = -(-MIN_FOLDS_ONE_DATASET // p.folds)
+        _say(f"warning: one dataset with {p.folds} folds x {p.repeats} repeat(s) = {total} "
+             f"outer folds; the one-dataset decision rests on fold-paired differences and wants "
+             f"at least {MIN_FOLDS_ONE_DATASET}: set `protocol.repeats = {need}` in "
+             f"{config.path} (or pass --config with such a protocol).")
 
 
 def _dry_run(the_plan, out: Path) -> int:

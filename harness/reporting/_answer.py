@@ -75,10 +75,25 @@ def _power_caveats(d: stats.Decision) -> list[str]:
                        f"{need:.0f} {unit} would be needed for the non-inferiority test "
                        f"to reject at the margin (power {d.rule.power:g}).")
         elif np.isinf(need):
-            out.append(f"'{enc}' is inconclusive and its estimated effect is not above "
-                       f"−{pct(d.rule.margin, False)} (or the fold spread is too large): "
+            why = ("its estimated effect is not above the margin" if d.method == "datasets"
+                   or r["effect"] <= -d.rule.margin else "the spread of its fold effects "
+                   "stays too large however many repeats are run")
+            out.append(f"'{enc}' is inconclusive and {why} (−{100 * d.rule.margin:g} %): "
                        f"more {unit} would not be expected to show it non-inferior.")
     return out
+
+
+def _floor_caveat(d: stats.Decision) -> list[str]:
+    """With few datasets no exact one-sided signed-rank test can reject after Holm."""
+    if d.reachable or d.method != "datasets":
+        return []
+    m, floor = d.holm_floor
+    need = int(np.floor(np.log2(m / d.rule.alpha))) + 1
+    return [f"With {d.n_datasets} datasets the smallest one-sided signed-rank p is "
+            f"2^-{d.n_datasets} = {2.0 ** -d.n_datasets:.3g}, times {m} for Holm = "
+            f"{floor:.3g} ≥ α = {d.rule.alpha:g}: no candidate can be shown non-inferior, so "
+            f"every verdict is inconclusive and the reference is kept; at least {need} "
+            "datasets are needed for any verdict."]
 
 
 def decision_caveats(d: stats.Decision, a) -> list[str]:
@@ -108,7 +123,7 @@ def decision_caveats(d: stats.Decision, a) -> list[str]:
     if len(leaky):
         notes.append("Never chosen (target statistics fitted on the rows they encode): "
                      + ", ".join(map(str, leaky)) + ".")
-    return notes + _power_caveats(d)
+    return notes + _floor_caveat(d) + _power_caveats(d)
 
 
 def _summary(a) -> pd.DataFrame:

@@ -30,10 +30,11 @@ def _delta_panel(ax, d) -> None:
     hi = 100 * t["upper"].replace(np.inf, np.nan).to_numpy(float)
     ax.hlines(y, np.where(np.isfinite(lo), lo, eff), np.where(np.isfinite(hi), hi, eff),
               color=INK, lw=1.2)
-    for yi, e, open_end in zip(y, eff, ~(np.isfinite(lo) & np.isfinite(hi))):  # per row
-        if open_end:
-            ax.annotate("bound unbounded: too few datasets", (e, yi), xytext=(0, 7),
-                        textcoords="offset points", ha="center", fontsize=7, color=MID)
+    unbounded = ~(np.isfinite(lo) & np.isfinite(hi))
+    if unbounded.any() and not unbounded.all():
+        for yi, e in zip(y[unbounded], eff[unbounded]):  # rows without a finite bound
+            ax.annotate("no bound", (e, yi), xytext=(0, 7), textcoords="offset points",
+                        ha="center", fontsize=7, color=MID)
     for verdict, (mk, face, ms) in VERDICT_MARKERS.items():  # loop over verdict kinds
         sel = (t["verdict"] == verdict).to_numpy()
         ax.plot(eff[sel], y[sel], mk, mfc=face, mec=INK, ms=ms, ls="")
@@ -48,10 +49,11 @@ def _delta_panel(ax, d) -> None:
     n = d.n_datasets if d.method == "datasets" else int(t["n_folds"].max())
     unit = "datasets" if d.method == "datasets" else "folds of one dataset"
     ax.set_xlabel(f"effect against {d.reference}, %  (right = better)")
-    ax.set_title(f"{d.model} · {metric_name(d.metric)} · {n} {unit}", loc="left")
+    note = "  (no bounds: too few datasets for any test to reject)" if unbounded.all() else ""
+    ax.set_title(f"{d.model} · {metric_name(d.metric)} · {n} {unit}{note}", loc="left")
 
 
-def delta_plot(decisions, *, ncols: int = 2):
+def delta_plot(decisions, *, ncols: int = 1):
     """Each candidate's effect against the reference with its one-sided bounds, per model.
 
     The dashed line is the non-inferiority margin; marker shapes give the verdict
@@ -66,13 +68,13 @@ def delta_plot(decisions, *, ncols: int = 2):
     if not ds:
         raise NothingToPlot("decision effects: no model has a candidate besides its reference.")
     with rc_context(STYLE):
-        fig, axes = grid(len(ds), ncols, 5.8, [0.32 * len(d.table) + 1.1 for d in ds])
+        fig, axes = grid(len(ds), ncols, 7.5, [0.32 * len(d.table) + 1.1 for d in ds])
         for ax, d in zip(axes, ds):  # loop over panels
             _delta_panel(ax, d)
         handles = [Line2D([], [], ls="", marker=mk, mfc=face, mec=INK, ms=ms, label=v)
                    for v, (mk, face, ms) in VERDICT_MARKERS.items()]
         handles.append(Line2D([], [], ls="--", color=INK, lw=1, label="margin"))
-        fig.legend(handles=handles, loc="outside lower center", ncols=3, frameon=False)
+        fig.legend(handles=handles, loc="outside lower center", ncols=6, frameon=False)
         fig.suptitle("Effect against the reference\n(one-sided bounds; dashed: the margin)",
                      fontweight="bold", fontsize=10.5)
     return fig
@@ -84,7 +86,7 @@ def _rank_panel(ax, comp, decision) -> None:
     k = len(r)
     y = np.arange(k)
     ref = r.index == (decision.reference if decision is not None else None)
-    chosen = r.index.isin(list(decision.choice) if decision is not None else [])
+    chosen = r.index.isin(list(decision.choice) if decision is not None else []) & ~ref
     if np.isfinite(r["ci_low"]).any():
         ax.hlines(y, r["ci_low"], r["ci_high"], color=INK, lw=1.2)
     other = ~ref & ~chosen
@@ -103,11 +105,11 @@ def _rank_panel(ax, comp, decision) -> None:
     ax.set_xlabel("average rank  (1 = best; further left is better)")
     n = comp.matrix.n_datasets
     ax.set_title(f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · {n} dataset(s)"
-                 + ("" if np.isfinite(r["ci_low"]).any() else "  (no interval: too few datasets)"),
-                 loc="left")
+                 + ("" if np.isfinite(r["ci_low"]).any() else
+                    "\nno interval: too few datasets for its coverage"), loc="left")
 
 
-def rank_plot(comparisons, decisions=None, *, ncols: int = 2):
+def rank_plot(comparisons, decisions=None, *, ncols: int = 1):
     """Average rank of each encoder with its bootstrap interval, one panel per model.
 
     The reference and the choice of the decision are marked; the figure makes no claim
@@ -126,15 +128,16 @@ def rank_plot(comparisons, decisions=None, *, ncols: int = 2):
     comps = usable(comparisons, 1, "average-rank plot")
     decs = decisions or {}
     with rc_context(STYLE):
-        fig, axes = grid(len(comps), ncols, 5.6, [0.3 * len(c.ranks) + 1.0 for c in comps])
+        fig, axes = grid(len(comps), ncols, 6.5, [0.3 * len(c.ranks) + 1.2 for c in comps])
         for ax, comp in zip(axes, comps):  # loop over panels
             _rank_panel(ax, comp, decs.get((comp.matrix.model, comp.matrix.metric)))
         handles = [
             Line2D([], [], ls="", marker="s", mfc=MID, mec=INK, ms=7, label="reference"),
-            Line2D([], [], ls="", marker="D", mfc=INK, mec=INK, ms=6, label="chosen"),
+            Line2D([], [], ls="", marker="D", mfc=INK, mec=INK, ms=6,
+                   label="chosen (when not the reference)"),
             Line2D([], [], ls="", marker="o", mfc="white", mec=INK, ms=6, label="other"),
             Line2D([], [], color=INK, lw=1.2, label="95% bootstrap interval over datasets")]
-        fig.legend(handles=handles, loc="outside lower center", ncols=4, frameon=False)
+        fig.legend(handles=handles, loc="outside lower center", ncols=2, frameon=False)
         fig.suptitle("Average rank of each encoder across datasets (lower is better)",
                      fontweight="bold", fontsize=10.5)
     return fig
@@ -199,7 +202,7 @@ def _cd_panel(ax, comp, alpha: float) -> None:
     kind = "exact permutation" if f.perm_exact else "permutation" if np.isfinite(f.perm_p) \
         else "Iman–Davenport"
     ax.set_title(f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · "
-                 f"{comp.matrix.n_datasets} datasets · Friedman {kind} {ptext}", loc="left")
+                 f"{comp.matrix.n_datasets} datasets\nFriedman test, {kind} {ptext}", loc="left")
 
 
 def cd_diagram(comparisons, *, alpha: float = 0.05):
@@ -219,7 +222,7 @@ def cd_diagram(comparisons, *, alpha: float = 0.05):
     """
     comps = usable(comparisons, 2, "critical-difference diagram")
     with rc_context(STYLE):
-        fig, axes = grid(len(comps), 1, 7.0, [0.3 * len(c.ranks) + 1.1 for c in comps])
+        fig, axes = grid(len(comps), 1, 7.0, [0.3 * len(c.ranks) + 1.4 for c in comps])
         for ax, comp in zip(axes, comps):  # loop over panels
             _cd_panel(ax, comp, alpha)
         fig.suptitle("Which average ranks the Nemenyi test separates\n(a shared letter: not "

@@ -319,7 +319,7 @@ def _leak_panel(ax, part: pd.DataFrame, model: str) -> None:
     ax.set_title(model, loc="left")
 
 
-def leakage_plot(audit: pd.DataFrame, *, models=None, ncols: int = 2):
+def leakage_plot(audit: pd.DataFrame, *, models=None, ncols: int = 1):
     """Per dataset, each setting's optimism gap minus its cross-fitted twin's, with its
     corrected-t bounds; flagged rows (gap larger and test score worse) are filled squares.
 
@@ -342,7 +342,7 @@ def leakage_plot(audit: pd.DataFrame, *, models=None, ncols: int = 2):
         keys = [m for m in models if m in keys] + [m for m in keys if m not in models]
     with rc_context(STYLE):
         heights = [0.28 * int((audit["model"] == m).sum()) + 1.1 for m in keys]
-        fig, axes = grid(len(keys), ncols, 6.2, heights)
+        fig, axes = grid(len(keys), ncols, 7.5, heights)
         for ax, model in zip(axes, keys):  # loop over panels
             _leak_panel(ax, audit.loc[audit["model"] == model], model)
         handles = [

@@ -53,6 +53,29 @@ class Decision:
     notes: tuple
 
     @property
+    def holm_floor(self) -> tuple[int, float]:
+        """(m, smallest Holm-adjusted p reachable over datasets).
+
+        With all N effects on one side the exact one-sided signed-rank p is ``2^-N``; Holm
+        multiplies the smallest p by m, the number of eligible candidates. On one dataset
+        (corrected t) any p can be reached: the floor is 0.
+
+        References
+        ----------
+        Wilcoxon (1945), Biometrics Bulletin 1(6); Holm (1979), Scand. J. Statistics 6(2).
+        """
+        t = self.table
+        m = max(int(t["eligible"].sum()) - 1, 1) if len(t) else 1
+        if self.method != "datasets":
+            return m, 0.0
+        return m, float(m * 2.0 ** -self.n_datasets)
+
+    @property
+    def reachable(self) -> bool:
+        """Whether any candidate could be shown non-inferior at this size at all."""
+        return bool(len(self.table)) and self.holm_floor[1] < self.rule.alpha
+
+    @property
     def switch(self) -> bool:
         """True when the choice is another encoder than the reference."""
         return bool(self.choice) and self.choice != (self.reference,)

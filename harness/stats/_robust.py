@@ -53,8 +53,8 @@ def dataset_regimes(results: pd.DataFrame, *, low: int = 10, high: int = 100) ->
 
 
 
-ROBUSTNESS_COLUMNS = ["model", "axis", "slice", "n_datasets", "choice", "verdict", "effect",
-                      "lower", "agrees", "label"]
+ROBUSTNESS_COLUMNS = ["model", "axis", "slice", "n_datasets", "method", "choice", "verdict",
+                      "effect", "lower", "reachable", "agrees", "label"]
 
 
 def _slices(ok: pd.DataFrame, model: str, metric: str, metrics, regimes) -> list:
@@ -95,7 +95,9 @@ def choice_robustness(results: pd.DataFrame, decisions, *, metrics=(), low: int 
     -------
     DataFrame
         Columns :data:`ROBUSTNESS_COLUMNS`; one row per model and distinct slice;
-        ``verdict`` and ``effect``/``lower`` are those of the headline choice in the slice.
+        ``verdict``, ``effect`` and ``lower`` belong to the slice's own choice (``"kept"``
+        when it keeps the reference); ``reachable`` says whether any verdict could be
+        reached at the slice's size (``Decision.reachable``).
     """
     ok = ok_rows(results)
     regimes = dataset_regimes(ok, low=low, high=high)
@@ -106,14 +108,15 @@ def choice_robustness(results: pd.DataFrame, decisions, *, metrics=(), low: int 
         rule = replace(d.rule, reference=d.reference)
         for axis, name, metric, ds in _slices(ok, d.model, d.metric, metrics, regimes):
             part = decide(ok.loc[ok["dataset"].isin(ds)], d.model, metric, rule)
-            head = d.choice[0]
-            t = part.table
-            got = t.loc[head] if head in t.index else None
+            got = part.table.loc[part.choice[0]] if part.choice else None
+            kept = got is None or not part.switch
             rows.append({"model": d.model, "axis": axis, "slice": name,
-                         "n_datasets": part.n_datasets, "choice": " | ".join(part.choice),
-                         "verdict": got["verdict"] if got is not None else "",
-                         "effect": got["effect"] if got is not None else np.nan,
-                         "lower": got["lower"] if got is not None else np.nan,
+                         "n_datasets": part.n_datasets, "method": part.method,
+                         "choice": " | ".join(part.choice),
+                         "verdict": "kept" if kept else got["verdict"],
+                         "effect": np.nan if kept else got["effect"],
+                         "lower": np.nan if kept else got["lower"],
+                         "reachable": part.reachable,
                          "agrees": tuple(part.choice) == tuple(d.choice),
                          "label": "exploratory, uncorrected"})
     return pd.DataFrame(rows, columns=ROBUSTNESS_COLUMNS)

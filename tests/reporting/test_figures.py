@@ -107,8 +107,12 @@ def test_cost_labels_do_not_overlap(wide):
 
 
 def test_rank_plot_shapes_carry_meaning_without_colour(wide):
-    comps, recs = _comparisons(wide)
-    fig = figures.rank_plot(comps, recs)
+    from dataclasses import replace
+
+    comps, decs = _comparisons(wide)
+    d = decs[("lin", "roc_auc")]
+    other = next(e for e in comps[0].ranks.index if e != d.reference)
+    fig = figures.rank_plot(comps, {("lin", "roc_auc"): replace(d, choice=(other,))})
     markers = {(line.get_marker(), line.get_markerfacecolor() == "white")
                for line in fig.axes[0].lines if len(line.get_xdata())}
     assert ("D", False) in markers  # the choice: a filled diamond
