@@ -65,15 +65,18 @@ def decision_sentence(d: stats.Decision, a) -> str:
     return text + _scope(d, a)
 
 
-def _power_caveats(d: stats.Decision) -> list[str]:
+def _power_caveats(d: stats.Decision, a) -> list[str]:
     t = d.table.loc[(d.table["verdict"] == "inconclusive") & d.table["eligible"]]
     out = []
     for enc, r in t.iterrows():  # loop over inconclusive candidates
         need, unit = r["needed"], r["needed_unit"]
         if np.isfinite(need):
+            have = d.n_datasets if unit == "datasets" else \
+                int(stats.ok_rows(a.run.results)["repeat"].nunique())
             out.append(f"'{enc}' is inconclusive: at its observed spread of effects about "
-                       f"{need:.0f} {unit} would be needed for the non-inferiority test "
-                       f"to reject at the margin (power {d.rule.power:g}).")
+                       f"{need:.0f} {unit} in all (this run has {have}) would be needed for "
+                       f"the Holm-adjusted non-inferiority test to reject at the margin with "
+                       f"power {d.rule.power:g}.")
         elif np.isinf(need):
             why = ("its estimated effect is not above the margin" if d.method == "datasets"
                    or r["effect"] <= -d.rule.margin else "the spread of its fold effects "
@@ -123,7 +126,7 @@ def decision_caveats(d: stats.Decision, a) -> list[str]:
     if len(leaky):
         notes.append("Never chosen (target statistics fitted on the rows they encode): "
                      + ", ".join(map(str, leaky)) + ".")
-    return notes + _floor_caveat(d) + _power_caveats(d)
+    return notes + _floor_caveat(d) + _power_caveats(d, a)
 
 
 def _summary(a) -> pd.DataFrame:

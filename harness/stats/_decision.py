@@ -129,7 +129,7 @@ def _pick_reference(results, model, metric, eligible, rule) -> tuple[str | None,
 
 
 # --------------------------------------------------------------------- per candidate
-def _over_datasets(d: np.ndarray, rule: DecisionRule) -> dict:
+def _over_datasets(d: np.ndarray, rule: DecisionRule, m: int) -> dict:
     hl = hodges_lehmann(d, rule.alpha)
     bayes = bayesian_signed_rank(d, rule.margin, prior_strength=rule.prior_strength)
     return {"effect": hl.estimate, "lower": hl.lower, "upper": hl.upper,
@@ -138,11 +138,13 @@ def _over_datasets(d: np.ndarray, rule: DecisionRule) -> dict:
             "p_eq": signed_rank_less(d - rule.margin)[1],
             "p_inf": signed_rank_less(d + rule.margin)[1],
             "prob_worse": bayes.p_left,
-            "needed": datasets_needed(d, rule.margin, rule.alpha, rule.power),
+            # Holm's first step tests at alpha / m: the sample size is planned at that level
+            "needed": datasets_needed(d, rule.margin, rule.alpha / m, rule.power),
             "needed_unit": "datasets"}
 
 
-def _over_folds(d: np.ndarray, ratio: float, n_folds: int, rule: DecisionRule) -> dict:
+def _over_folds(d: np.ndarray, ratio: float, n_folds: int, rule: DecisionRule,
+                m: int) -> dict:
     ct = corrected_t(d, ratio, alpha=2 * rule.alpha)  # 1 - 2 alpha two-sided = one-sided bounds
     post = correlated_t(d, ratio / (1 + ratio), rule.margin)
     return {"effect": ct.mean, "lower": ct.ci_low, "upper": ct.ci_high,
@@ -151,11 +153,11 @@ def _over_folds(d: np.ndarray, ratio: float, n_folds: int, rule: DecisionRule) -
             "p_eq": corrected_t_greater(-d, ratio, rule.margin),
             "p_inf": corrected_t_greater(-d, ratio, -rule.margin),
             "prob_worse": post.prob_below,
-            "needed": repeats_needed(d, rule.margin, n_folds, rule.alpha, rule.power),
+            "needed": repeats_needed(d, rule.margin, n_folds, rule.alpha / m, rule.power),
             "needed_unit": "repeats"}
 
 
-def _candidate(cells, per, ref, enc, method, rule) -> dict:
+def _candidate(cells, per, ref, enc, method, rule, m) -> dict:
     a, b = per.xs(enc, level="encoder"), per.xs(ref, level="encoder")
     j = a.join(b.add_suffix("_ref"), how="inner")
     ratio_cost = (j["cost"] / j["cost_ref"]).replace([np.inf, -np.inf], np.nan)
@@ -165,7 +167,7 @@ def _candidate(cells, per, ref, enc, method, rule) -> dict:
     if method == "datasets":
         d = unit_free_delta(j["value"], j["value_ref"], j["gib"])
         row["n_folds"] = np.nan
-        return {**row, **_over_datasets(d[np.isfinite(d)], rule)}
+        return {**row, **_over_datasets(d[np.isfinite(d)], rule, m)}
     keys = ["repeat", "fold"]
     fa = cells.loc[cells["encoder"] == enc].set_index(keys)
     fb = cells.loc[cells["encoder"] == ref].set_index(keys)
@@ -173,7 +175,8 @@ def _candidate(cells, per, ref, enc, method, rule) -> dict:
     d = unit_free_delta(f["value"], f["value_ref"], f["gib"])
     row["n_folds"] = int(np.isfinite(d).sum())
     n_folds = int(cells["fold"].nunique())
-    return {**row, **_over_folds(d[np.isfinite(d)], float(f["ratio"].mean()), n_folds, rule)}
+    return {**row, **_over_folds(d[np.isfinite(d)], float(f["ratio"].mean()), n_folds, rule,
+                                 m)}
 
 
 # ------------------------------------------------------------------------- verdicts
@@ -210,7 +213,8 @@ def _choose(t: pd.DataFrame, ref: str, rule: DecisionRule) -> tuple[tuple, list]
 
 def _evidence(cells, ref, encoders, leaky, method, rule) -> pd.DataFrame:
     per = _per_dataset(cells)
-    rows = {enc: _candidate(cells, per, ref, enc, method, rule) for enc in encoders}
+    m = max(sum(e not in leaky for e in encoders), 1)  # size of the confirmatory family
+    rows = {enc: _candidate(cells, per, ref, enc, method, rule, m) for enc in encoders}
     t = pd.DataFrame.from_dict(rows, orient="index")
     t["eligible"] = ~t.index.isin(list(leaky))
     # eligible candidates form the confirmatory family; leaky settings their own family
