@@ -4,12 +4,13 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from harness import stats
 from harness.reporting import figures, tables
-from harness.reporting._blocks import figure, slug, table
-from harness.reporting._html import Heading
+from harness.reporting._blocks import figure, fmt_p, slug, table
+from harness.reporting._html import Heading, Para
 from harness.reporting.tables import metric_name
 
 __all__ = ["results_section"]
@@ -68,11 +69,32 @@ def _main_tables(a, root: Path) -> list:
     return out
 
 
+def friedman_sentence(comps) -> str:
+    """The Friedman test per model, generated from its numbers (never ``p = 0``)."""
+    parts = []
+    for c in comps:  # loop over models
+        f = c.friedman
+        if not np.isfinite(f.p):
+            continue
+        kind = ("exact permutation" if f.perm_exact else "Monte-Carlo permutation"
+                if np.isfinite(f.perm_p) else "Iman–Davenport")
+        parts.append(f"{c.matrix.model}: {fmt_p(f.p)} ({kind}; χ²_F = {f.chi2:.3g}, "
+                     f"F_F = {f.f_stat:.3g} on {f.n_datasets} datasets × {f.n_encoders} "
+                     "encoders)")
+    if not parts:
+        return ""
+    return ("Friedman test that all eligible encoders rank alike, per model: "
+            + "; ".join(parts) + ".")
+
+
 def results_section(a, root: Path) -> list:
     """The four result figures and the main tables (headline metric in the figures)."""
     comps = [c for (model, metric), c in a.comparisons.items()
              if metric == a.metrics[0] and c is not None]
     out = [Heading("Results", 2, "results")]
+    text = friedman_sentence(comps)
+    if text:
+        out.append(Para(text))
     out += figure(lambda: figures.rank_plot(comps, a.decisions), root, "average_ranks",
                   "Average rank per encoder (1 = best) among eligible settings, one panel per "
                   "model, with 95% expanded bootstrap intervals over datasets (left out below "

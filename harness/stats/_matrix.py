@@ -136,7 +136,7 @@ def rank_rows(oriented: pd.DataFrame) -> pd.DataFrame:
     return (-oriented).rank(axis=1, method="average")
 
 
-def _apply_missing_policy(wide: pd.DataFrame, missing: str, keep=()):
+def _apply_missing_policy(wide: pd.DataFrame, missing: str, keep=(), sign: float = 1.0):
     holes = wide.isna()
     cells = holes.stack()
     cells = cells[cells].reset_index().iloc[:, :2]
@@ -146,7 +146,9 @@ def _apply_missing_policy(wide: pd.DataFrame, missing: str, keep=()):
         # native categoricals above a model's level limit) should not cost every dataset
         keep_ds = int((~holes.any(axis=1)).sum()) * wide.shape[1]
         keep_enc = int((~holes.any(axis=0)).sum()) * wide.shape[0]
-        protected = bool(set(keep) & set(wide.columns[holes.any(axis=0)]))
+        # the best encoder on the cells it has (mean within-dataset rank) is never dropped
+        best = (sign * wide).rank(axis=1, ascending=False).mean().idxmin() if wide.size else None
+        protected = bool((set(keep) | {best}) & set(wide.columns[holes.any(axis=0)]))
         missing = "drop_datasets" if keep_ds >= keep_enc or protected else "drop_encoders"
     if missing == "drop_datasets":
         bad = holes.any(axis=1)
@@ -202,7 +204,7 @@ def score_matrix(results: pd.DataFrame, model: str, metric: str, *,
     wide = df.groupby(["dataset", "encoder"])[metric].mean().unstack("encoder")
     empty = wide.isna().all(axis=1)
     n_a, wide = tuple(wide.index[empty]), wide.loc[~empty]
-    kept, d_ds, d_enc, cells = _apply_missing_policy(wide, missing, keep)
+    kept, d_ds, d_enc, cells = _apply_missing_policy(wide, missing, keep, sign)
     kept = kept.astype(float)
     return ScoreMatrix(model, metric, kept, rank_rows(sign * kept), d_ds, d_enc, cells, n_a)
 

@@ -248,3 +248,23 @@ def test_small_concordant_tables_never_print_p_zero(tmp_path, rng):
     write_report(tmp_path)
     md = (tmp_path / "report" / "report.md").read_text()
     assert not re.search(r"p = 0(?![.\d])", md)
+
+
+def test_rescaled_regression_target_gives_an_identical_decision_csv(tmp_path, rng):
+    # multiplying a regression target by 1000 multiplies its RMSE (test and train) by 1000:
+    # the unit-free effects, and so every number of decision.csv, must not move
+    import pandas as pd
+
+    cls = fake_results(rng, n_datasets=5, skill={"te": 0.01, "codes": -0.003})
+    reg = fake_results(rng, n_datasets=3, task="regression", skill={"te": 0.05}).assign(
+        dataset=lambda d: "r" + d["dataset"], cell_id=lambda d: "r" + d["cell_id"])
+    df = pd.concat([cls, reg], ignore_index=True)
+    scaled = df.copy()
+    scaled[["rmse", "train_rmse"]] *= 1000.0
+    write_fake_run(df, tmp_path / "a")
+    write_fake_run(scaled, tmp_path / "b")
+    write_report(tmp_path / "a")
+    write_report(tmp_path / "b")
+    a = (tmp_path / "a" / "report" / "tables" / "decision.csv").read_bytes()
+    b = (tmp_path / "b" / "report" / "tables" / "decision.csv").read_bytes()
+    assert a == b

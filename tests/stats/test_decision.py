@@ -157,3 +157,17 @@ def test_rule_text_is_generated_from_its_numbers():
     text = S.DecisionRule(margin=0.02, alpha=0.1, min_saving=0.3, min_saving_s=0.5).describe(4)
     for piece in ("−2 %", "α = 0.1", "at least 30 %", "0.5 s per fold", "across the 4 candidates"):
         assert piece in text
+
+
+def test_missing_cell_policy_never_drops_the_best_encoder():
+    # the best encoder fails on one dataset: dropping it would keep more cells, but the
+    # policy drops that dataset instead (and says so)
+    df = table({"best": BETTER, "a": CLOSE, "b": WORSE})
+    df.loc[(df["encoder"] == "best") & df["dataset"].isin(["d3", "d5", "d7"]), "status"] = "failed"
+    # 7 complete datasets x 4 encoders = 28 cells < 10 datasets x 3 encoders = 30 cells
+    m = S.score_matrix(df, "m", S.POOLED)
+    assert "best" in m.encoders and m.dropped_datasets == ("d3", "d5", "d7")
+    other = table({"best": BETTER, "a": CLOSE, "b": WORSE})  # a weak encoder may go
+    other.loc[(other["encoder"] == "b") & other["dataset"].isin(["d3", "d5", "d7"]),
+              "status"] = "failed"
+    assert S.score_matrix(other, "m", S.POOLED).dropped_encoders == ("b",)
