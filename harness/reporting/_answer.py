@@ -65,24 +65,33 @@ def decision_sentence(d: stats.Decision, a) -> str:
     return text + _scope(d, a)
 
 
+def _needed_text(need: float) -> str:
+    return "more than 1,000" if need > 1000 else f"about {need:.0f}"
+
+
 def _power_caveats(d: stats.Decision, a) -> list[str]:
+    """One sentence: what the inconclusive candidates would need, from their spread."""
     t = d.table.loc[(d.table["verdict"] == "inconclusive") & d.table["eligible"]]
+    t = t.loc[np.isfinite(t["needed"].astype(float)) | np.isinf(t["needed"].astype(float))]
+    if t.empty:
+        return []
+    unit = t["needed_unit"].iloc[0]
+    have = d.n_datasets if unit == "datasets" else \
+        int(stats.ok_rows(a.run.results)["repeat"].nunique())
+    finite = t.loc[np.isfinite(t["needed"].astype(float))].sort_values("needed")
+    never = t.loc[np.isinf(t["needed"].astype(float))]
     out = []
-    for enc, r in t.iterrows():  # loop over inconclusive candidates
-        need, unit = r["needed"], r["needed_unit"]
-        if np.isfinite(need):
-            have = d.n_datasets if unit == "datasets" else \
-                int(stats.ok_rows(a.run.results)["repeat"].nunique())
-            out.append(f"'{enc}' is inconclusive: at its observed spread of effects about "
-                       f"{need:.0f} {unit} in all (this run has {have}) would be needed for "
-                       f"the Holm-adjusted non-inferiority test to reject at the margin with "
-                       f"power {d.rule.power:g}.")
-        elif np.isinf(need):
-            why = ("its estimated effect is not above the margin" if d.method == "datasets"
-                   or r["effect"] <= -d.rule.margin else "the spread of its fold effects "
-                   "stays too large however many repeats are run")
-            out.append(f"'{enc}' is inconclusive and {why} (−{100 * d.rule.margin:g} %): "
-                       f"more {unit} would not be expected to show it non-inferior.")
+    if len(finite):
+        out.append(f"Inconclusive candidates and the {unit} in all that the Holm-adjusted "
+                   f"non-inferiority test would need at their observed spread of effects to "
+                   f"reject at the margin with power {d.rule.power:g} (this run has {have}): "
+                   + ", ".join(f"{e} {_needed_text(r['needed'])}" for e, r in finite.iterrows())
+                   + ".")
+    if len(never):
+        why = ("the estimated effect is not above the margin" if unit == "datasets"
+               else "the effect or the fold spread does not allow it")
+        out.append(f"More {unit} would not be expected to show "
+                   f"{', '.join(map(str, never.index))} non-inferior ({why}).")
     return out
 
 
