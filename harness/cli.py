@@ -120,13 +120,13 @@ def cmd_run(args) -> int:
         raise ConfigError(f"--jobs must be an integer >= 1; got {args.jobs}.")
     config = _load_for_run(args)
     the_plan = plan(config, args.only)
-    if len(config.datasets) == 1:
-        _warn_few_folds(config)
     out = Path(args.out or config.output)
     if not the_plan.cells:
         raise ConfigError(f"--only '{args.only}' matches no cell; labels are dataset, encoder and model names from {config.path}.")
     if args.dry_run:
-        return _dry_run(the_plan, out)
+        code = _dry_run(the_plan, out)
+        _warn_few_folds(config)
+        return code
     summary = execute(
         the_plan, out, jobs=args.jobs, backend=args.backend, scheduler=args.scheduler, fresh=args.fresh,
         progress=not args.quiet, retry_failed=args.retry_failed,
@@ -139,6 +139,7 @@ def cmd_run(args) -> int:
     if summary.interrupted:
         _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
         return 130
+    _warn_few_folds(config)
     return 0
 
 
@@ -148,7 +149,7 @@ def _warn_few_folds(config) -> None:
 
     p = config.protocol
     total = p.folds * p.repeats
-    if total < MIN_FOLDS_ONE_DATASET:
+    if len(config.datasets) == 1 and total < MIN_FOLDS_ONE_DATASET:
         need = -(-MIN_FOLDS_ONE_DATASET // p.folds)
         _say(f"warning: one dataset with {p.folds} folds x {p.repeats} repeat(s) = {total} "
              f"outer folds; the one-dataset decision rests on fold-paired differences and wants "

@@ -71,6 +71,8 @@ def _needed_text(need: float) -> str:
 
 def _power_caveats(d: stats.Decision, a) -> list[str]:
     """One sentence: what the inconclusive candidates would need, from their spread."""
+    if "needed" not in d.table:  # the reference alone: nothing was tested
+        return []
     t = d.table.loc[(d.table["verdict"] == "inconclusive") & d.table["eligible"]]
     t = t.loc[np.isfinite(t["needed"].astype(float)) | np.isinf(t["needed"].astype(float))]
     if t.empty:
@@ -153,7 +155,8 @@ def _summary(a) -> pd.DataFrame:
                      "exploratory, uncorrected", "reference": d.reference,
                      "choice": " | ".join(d.choice), "verdict": r["verdict"],
                      "effect": pct(r["effect"]) if d.switch else "—",
-                     "interval": f"[{pct(r['lower'])}, {pct(r['upper'])}]" if d.switch else "—", "cost ratio": round(float(r["cost_ratio"]), 3),
+                     "interval": f"[{pct(r['lower'])}, {pct(r['upper'])}]" if d.switch
+                     else "—", "cost ratio": round(float(r["cost_ratio"]), 3),
                      "datasets": d.n_datasets, "evidence": d.method})
     return pd.DataFrame(rows)
 

@@ -4,14 +4,13 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from harness.reporting._analysis import Analysis
-from harness.reporting._run import Run
-
 import pandas as pd
 
 from harness import stats
+from harness.reporting._analysis import Analysis
 from harness.reporting._blocks import table
 from harness.reporting._html import Bullets, Heading, Para
+from harness.reporting._run import Run
 from harness.reporting.tables import metric_name
 
 __all__ = ["compare_section"]
@@ -22,7 +21,8 @@ def _rank_changes(a: Analysis, b: Analysis) -> pd.DataFrame:
     for key in dict.fromkeys(list(b.decisions) + list(a.decisions)):
         ra, rb = a.decisions.get(key), b.decisions.get(key)
         ca, cb = a.comparisons.get(key), b.comparisons.get(key)
-        shared = (set(ca.ranks.index) & set(cb.ranks.index)) if ca is not None and cb is not None else set()
+        both = ca is not None and cb is not None
+        shared = (set(ca.ranks.index) & set(cb.ranks.index)) if both else set()
         delta = (ca.ranks["avg_rank"].reindex(sorted(shared))
                  - cb.ranks["avg_rank"].reindex(sorted(shared))) if shared else pd.Series()
         moved = ", ".join(f"{e} {d:+.2f}" for e, d in delta.items() if abs(d) >= 0.005)
@@ -56,7 +56,7 @@ def _added_removed(now, before, what: str) -> str:
 
 
 def compare_section(a: Analysis, b: Analysis, root: Path) -> list:
-    """Section 7: what changed from run ``b`` (before) to run ``a`` (now)."""
+    """What changed from run ``b`` (before) to run ``a`` (now)."""
     ra, rb = a.run.results, b.run.results
     ids_a, ids_b = set(ra["cell_id"]), set(rb["cell_id"])
     out = [Heading("Changes against the other run", 2, "compare"),

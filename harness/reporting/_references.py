@@ -4,16 +4,15 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from harness.reporting._analysis import Analysis
-
 from harness.reporting import _bib
+from harness.reporting._analysis import Analysis
 from harness.reporting._html import Bullets, Code, Heading, Para
 
 __all__ = ["references_section"]
 
 
 def references_section(a: Analysis, root: Path) -> list:
-    """Section 8: the references of the methods and encoders in the run, with BibTeX."""
+    """The references of the methods and encoders in the run, with BibTeX."""
     keys = _bib.used_references(a.run.manifest.get("encoders") or {})
     bib = "\n\n".join(_bib.BIB[k][1] for k in keys)
     (root / "references.bib").write_text(bib + "\n", encoding="utf-8")

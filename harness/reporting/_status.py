@@ -4,9 +4,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from harness.reporting._analysis import Analysis
-
 from harness.reporting import tables
+from harness.reporting._analysis import Analysis
 from harness.reporting._blocks import table
 from harness.reporting._html import Heading, Para
 
@@ -14,7 +13,7 @@ __all__ = ["status_section"]
 
 
 def status_section(a: Analysis, root: Path) -> list:
-    """Section 6: failed, timed-out, skipped and not-applicable cells with reasons."""
+    """Failed, timed-out, skipped and not-applicable cells with reasons."""
     res = a.run.results
     out = [Heading("Cells without a score", 2, "not-run")]
     counts = res["status"].value_counts()

@@ -270,7 +270,8 @@ def relative_heatmap(results: pd.DataFrame, model: str, *, low: int = 10, high: 
         ax = fig.subplots()
         vmax = max(float(np.nanmax(short.to_numpy(float))), 0.5)
         norm = PowerNorm(0.5, vmin=0, vmax=vmax)
-        img = ax.imshow(np.ma.masked_invalid(short.to_numpy(float).clip(min=0)), cmap="Greys", norm=norm,
+        shown = np.ma.masked_invalid(short.to_numpy(float).clip(min=0))
+        img = ax.imshow(shown, cmap="Greys", norm=norm,
                         aspect="auto")
         ax.set_facecolor("white")
         miss = np.argwhere(~np.isfinite(short.to_numpy(float)))

@@ -25,10 +25,10 @@ Degenerate input
 from harness.stats._common import (AGGREGATIONS, MISSING_POLICIES, POOLED, STATUS_OK,
                                    metric_values, ok_rows, orientation, pool_primary,
                                    unit_free_delta)
-from harness.stats._compare import (RANK_CI_MIN_DATASETS, Comparison, aggregate_scores, average_ranks,
-                                    compare_encoders, control_z_test, expanded_alpha,
-                                    friedman_test,
-                                    top_encoders, wilcoxon_vs_control, win_tie_loss)
+from harness.stats._compare import (RANK_CI_MIN_DATASETS, Comparison, aggregate_scores,
+                                    average_ranks, compare_encoders, control_z_test,
+                                    expanded_alpha, friedman_test, top_encoders,
+                                    wilcoxon_vs_control, win_tie_loss)
 from harness.stats._cost import cost_table
 from harness.stats._decision import DECISION_COLUMNS, Decision, decide, decision_table
 from harness.stats._leakage import (AUDIT_COLUMNS, audit_summary, eligible_rows,
@@ -49,7 +49,8 @@ from harness.stats._tests import (BayesSignedRank, CorrectedT, CorrelatedT, Frie
 __all__ = [
     "AGGREGATIONS", "MISSING_POLICIES", "POOLED", "STATUS_OK", "metric_values", "ok_rows",
     "orientation", "pool_primary", "unit_free_delta",
-    "RANK_CI_MIN_DATASETS", "expanded_alpha", "Comparison", "aggregate_scores", "average_ranks", "compare_encoders", "control_z_test",
+    "RANK_CI_MIN_DATASETS", "expanded_alpha", "Comparison", "aggregate_scores", "average_ranks",
+    "compare_encoders", "control_z_test",
     "friedman_test", "top_encoders", "wilcoxon_vs_control", "win_tie_loss",
     "cost_table",
     "DECISION_COLUMNS", "Decision", "decide", "decision_table",

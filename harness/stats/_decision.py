@@ -118,12 +118,13 @@ def _pick_reference(results, model, metric, eligible, rule) -> tuple[str | None,
     ranks = m.ranks.mean()
     best = ranks[np.isclose(ranks, ranks.min(), rtol=0, atol=1e-12)].index
     if len(best) > 1:
+        tied = ", ".join(map(str, best))
         cost = _per_dataset(_cells(results, model, metric)).groupby("encoder")["cost"].median()
         cheap = cost.reindex(best)
         best = cheap.index[np.isclose(cheap, cheap.min(), rtol=0, atol=0)]
-        notes.append(f"the best average rank is tied between {', '.join(map(str, ranks.index[np.isclose(ranks, ranks.min(), rtol=0, atol=1e-12)]))}; "
-                     "the cheaper is the reference" + ("" if len(best) == 1 else
-                     "; they also tie on cost, so the first in label order is used"))
+        notes.append(f"the best average rank is tied between {tied}; the cheaper is the "
+                     "reference" + ("" if len(best) == 1 else
+                                    "; they also tie on cost, so the first in label order is used"))
         best = sorted(map(str, best))[:1]
     return str(best[0]), True, notes
 

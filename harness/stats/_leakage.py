@@ -197,7 +197,8 @@ def eligible_rows(results: pd.DataFrame) -> tuple[pd.DataFrame, set[str]]:
     return (results.loc[keep], leaky) if keep.any() else (results, set())
 
 
-def leaky_settings(results: pd.DataFrame, *, target_kinds=("target",), leaky_schemes=("none", "loo"),
+def leaky_settings(results: pd.DataFrame, *, target_kinds=("target",),
+                   leaky_schemes=("none", "loo"),
                    crossfit_key: str = "crossfit", default_scheme: str = "kfold") -> set[str]:
     """Encoder labels that fit target statistics on the rows they encode.
 

@@ -155,7 +155,8 @@ def test_missing_cells_never_drop_the_reference_or_the_choice():
 
 def test_rule_text_is_generated_from_its_numbers():
     text = S.DecisionRule(margin=0.02, alpha=0.1, min_saving=0.3, min_saving_s=0.5).describe(4)
-    for piece in ("−2 %", "α = 0.1", "at least 30 %", "0.5 s per fold", "across the 4 candidates"):
+    for piece in ("−2 %", "α = 0.1", "at least 30 %", "0.5 s per fold",
+                  "across the 4 candidates"):
         assert piece in text
 
 
@@ -163,7 +164,8 @@ def test_missing_cell_policy_never_drops_the_best_encoder():
     # the best encoder fails on one dataset: dropping it would keep more cells, but the
     # policy drops that dataset instead (and says so)
     df = table({"best": BETTER, "a": CLOSE, "b": WORSE})
-    df.loc[(df["encoder"] == "best") & df["dataset"].isin(["d3", "d5", "d7"]), "status"] = "failed"
+    gone = (df["encoder"] == "best") & df["dataset"].isin(["d3", "d5", "d7"])
+    df.loc[gone, "status"] = "failed"
     # 7 complete datasets x 4 encoders = 28 cells < 10 datasets x 3 encoders = 30 cells
     m = S.score_matrix(df, "m", S.POOLED)
     assert "best" in m.encoders and m.dropped_datasets == ("d3", "d5", "d7")
