@@ -27,7 +27,8 @@ def _evidence_phrase(row: pd.Series, d: stats.Decision) -> str:
             else "Holm-adjusted one-sided corrected resampled t")
     return (f"{row['verdict']} ({test} {fmt_p(row['p_ni_holm'])} against 'worse by more "
             f"than {100 * d.rule.margin:g} %'), effect {pct(row['effect'])} "
-            f"[{pct(row['lower'])}, {pct(row['upper'])}], P(practically worse) = "
+            f"[{pct(row['lower'])}, {pct(row['upper'])}] (simultaneous one-sided bounds at "
+            f"{row['bound_level']:.2g}), P(practically worse) = "
             f"{row['prob_worse']:.2f}")
 
 
@@ -166,11 +167,14 @@ def _decision_tables(a, root: Path) -> list:
     shown = full[stats.DECISION_COLUMNS].copy()
     out = [table(full, root, "decision", "Decision per model and encoder (headline analysis, "
                  "confirmatory): verdict against the reference, effect (unit-free, positive = "
-                 "better) with its one-sided bounds, Holm-adjusted non-inferiority p, Bayesian "
+                 "better) with simultaneous one-sided bounds (Bonferroni over the candidates, "
+                 "level in bound_level of the CSV: a lower bound above the margin always "
+                 "means non-inferior; Holm can also show it with a bound below), "
+                 "Holm-adjusted non-inferiority p, Bayesian "
                  "P(practically worse), median per-dataset cost ratio.", shown=shown)]
     out += figure(lambda: figures.delta_plot(a.headline), root, "decision_effects",
-                  f"Effect of each candidate against its reference with one-sided bounds at "
-                  f"α = {a.rule.alpha:g}; the dashed line is the margin −"
+                  f"Effect of each candidate against its reference with simultaneous one-sided "
+                  f"bounds (α = {a.rule.alpha:g} shared over the candidates); the dashed line is the margin −"
                   f"{pct(a.rule.margin, False)}; marker shapes give the verdict.",
                   "decision effects")
     return out

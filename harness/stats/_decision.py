@@ -27,8 +27,8 @@ __all__ = ["Decision", "DECISION_COLUMNS", "decide", "decision_table"]
 #: the fixed columns of ``report/tables/decision.csv`` (scripts outside the package read them)
 DECISION_COLUMNS = ["model", "encoder", "reference", "verdict", "chosen", "n_datasets",
                     "effect", "lower", "upper", "p_noninferior", "prob_worse", "cost_ratio"]
-_EXTRA = ["eligible", "method", "n_folds", "p_superior", "saving_s", "n_features",
-          "needed", "needed_unit"]
+_EXTRA = ["eligible", "method", "n_folds", "p_superior", "bound_level", "saving_s",
+          "n_features", "needed", "needed_unit"]
 
 
 @dataclass(frozen=True)
@@ -37,7 +37,10 @@ class Decision:
 
     ``table`` has one row per encoder (the reference included, verdict ``"reference"``)
     and the columns of :data:`DECISION_COLUMNS` plus ``eligible, method, n_folds,
-    p_superior, saving_s, n_features, needed, needed_unit``. ``choice`` holds more than
+    p_superior, bound_level, saving_s, n_features, needed, needed_unit``. ``lower`` and
+    ``upper`` are one-sided bounds at ``bound_level = alpha / m`` (Bonferroni over the m
+    candidates of the family): a lower bound above ``-margin`` implies that the
+    Holm-adjusted non-inferiority test rejects; Holm may also reject with a bound below it. ``choice`` holds more than
     one label only when a tie could not be broken (it is then stated, not resolved).
     """
 
@@ -131,9 +134,12 @@ def _pick_reference(results, model, metric, eligible, rule) -> tuple[str | None,
 
 # --------------------------------------------------------------------- per candidate
 def _over_datasets(d: np.ndarray, rule: DecisionRule, m: int) -> dict:
-    hl = hodges_lehmann(d, rule.alpha)
+    # simultaneous bounds (Bonferroni over the m candidates): a lower bound above -margin
+    # implies the Holm-adjusted test rejects, so a bound never contradicts a verdict
+    hl = hodges_lehmann(d, rule.alpha / m)
     bayes = bayesian_signed_rank(d, rule.margin, prior_strength=rule.prior_strength)
     return {"effect": hl.estimate, "lower": hl.lower, "upper": hl.upper,
+            "bound_level": rule.alpha / m,
             "p_ni": signed_rank_greater(d + rule.margin)[1],
             "p_sup": signed_rank_greater(d)[1],
             "p_eq": signed_rank_less(d - rule.margin)[1],
@@ -146,9 +152,11 @@ def _over_datasets(d: np.ndarray, rule: DecisionRule, m: int) -> dict:
 
 def _over_folds(d: np.ndarray, ratio: float, n_folds: int, rule: DecisionRule,
                 m: int) -> dict:
-    ct = corrected_t(d, ratio, alpha=2 * rule.alpha)  # 1 - 2 alpha two-sided = one-sided bounds
+    # 1 - 2 alpha/m two-sided = simultaneous one-sided bounds at alpha/m (see _over_datasets)
+    ct = corrected_t(d, ratio, alpha=2 * rule.alpha / m)
     post = correlated_t(d, ratio / (1 + ratio), rule.margin)
     return {"effect": ct.mean, "lower": ct.ci_low, "upper": ct.ci_high,
+            "bound_level": rule.alpha / m,
             "p_ni": corrected_t_greater(d, ratio, rule.margin),
             "p_sup": corrected_t_greater(d, ratio, 0.0),
             "p_eq": corrected_t_greater(-d, ratio, rule.margin),

@@ -173,3 +173,14 @@ def test_missing_cell_policy_never_drops_the_best_encoder():
     other.loc[(other["encoder"] == "b") & other["dataset"].isin(["d3", "d5", "d7"]),
               "status"] = "failed"
     assert S.score_matrix(other, "m", S.POOLED).dropped_encoders == ("b",)
+
+
+def test_a_lower_bound_above_the_margin_always_means_noninferior(rng):
+    # the bounds are simultaneous (alpha / m): lower > -margin implies raw p <= alpha / m,
+    # hence a Holm-adjusted p <= alpha (Holm 1979); checked over random invented studies
+    for _ in range(8):  # loop over simulated studies
+        effects = {f"c{j}": rng.normal(rng.uniform(-0.02, 0.02), 0.01, 12) for j in range(4)}
+        t = _decide(table(effects)).table.drop(index="ref")
+        above = t["lower"] > -RULE.margin
+        assert t.loc[above, "verdict"].isin(S.SHOWN_NOT_WORSE).all()
+        assert (t.loc[above, "p_ni_holm"] < RULE.alpha).all()
