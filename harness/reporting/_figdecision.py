@@ -28,8 +28,15 @@ def _delta_panel(ax, d) -> None:
     eff = 100 * t["effect"].to_numpy(float)
     lo = 100 * t["lower"].replace(-np.inf, np.nan).to_numpy(float)
     hi = 100 * t["upper"].replace(np.inf, np.nan).to_numpy(float)
-    ax.hlines(y, np.where(np.isfinite(lo), lo, eff), np.where(np.isfinite(hi), hi, eff),
-              color=INK, lw=1.2)
+    # the window shows every estimate and the margin; longer bounds end in an arrow
+    m100 = 100 * d.rule.margin
+    span = max(np.nanmax(np.abs(eff)) if np.isfinite(eff).any() else 0.0, 4 * m100)
+    left, right = -1.15 * span, 1.15 * span
+    a, b = np.where(np.isfinite(lo), lo, eff), np.where(np.isfinite(hi), hi, eff)
+    ax.hlines(y, np.clip(a, left, right), np.clip(b, left, right), color=INK, lw=1.2)
+    ax.plot(np.full((a < left).sum(), left), y[a < left], "<", color=INK, ms=5, ls="")
+    ax.plot(np.full((b > right).sum(), right), y[b > right], ">", color=INK, ms=5, ls="")
+    ax.set_xlim(left * 1.03, right * 1.03)
     unbounded = ~(np.isfinite(lo) & np.isfinite(hi))
     if unbounded.any() and not unbounded.all():
         for yi, e in zip(y[unbounded], eff[unbounded]):  # rows without a finite bound
@@ -75,7 +82,8 @@ def delta_plot(decisions, *, ncols: int = 1):
                    for v, (mk, face, ms) in VERDICT_MARKERS.items()]
         handles.append(Line2D([], [], ls="--", color=INK, lw=1, label="margin"))
         fig.legend(handles=handles, loc="outside lower center", ncols=6, frameon=False)
-        fig.suptitle("Effect against the reference\n(one-sided bounds; dashed: the margin)",
+        fig.suptitle("Effect against the reference\nsimultaneous one-sided bounds (arrow: "
+                     "the bound runs off the window)\ndashed line: the margin",
                      fontweight="bold", fontsize=10.5)
     return fig
 
