@@ -268,3 +268,27 @@ def test_rescaled_regression_target_gives_an_identical_decision_csv(tmp_path, rn
     a = (tmp_path / "a" / "report" / "tables" / "decision.csv").read_bytes()
     b = (tmp_path / "b" / "report" / "tables" / "decision.csv").read_bytes()
     assert a == b
+
+
+def test_an_irrelevant_encoder_does_not_change_the_choice(tmp_path, rng):
+    # removing an encoder that is neither the reference nor the choice leaves every
+    # model's choice, verdict and effect in decision.csv as they were
+    import pandas as pd
+
+    df = fake_results(rng, n_datasets=10, encoders=("codes", "onehot", "te", "freq"),
+                      models=("lin", "gb"), skill={"codes": 0.001, "freq": -0.05})
+    import json
+
+    write_fake_run(df, tmp_path / "all")
+    write_fake_run(df.loc[df["encoder"] != "freq"], tmp_path / "less")
+    for d in ("all", "less"):  # loop over the two runs: the incumbent is te
+        path = tmp_path / d / "manifest.json"
+        man = json.loads(path.read_text())
+        man["config"] = {**man.get("config", {}), "decision": {"reference": "te"}}
+        path.write_text(json.dumps(man))
+        write_report(tmp_path / d)
+    read = lambda d: pd.read_csv(tmp_path / d / "report" / "tables" / "decision.csv")  # noqa: E731
+    full, less = read("all"), read("less")
+    chosen = lambda t: t.loc[t["chosen"], ["model", "encoder"]].values.tolist()  # noqa: E731
+    assert chosen(full) == chosen(less)
+    assert ["lin", "codes"] in chosen(full)  # a switch away from the incumbent, kept
