@@ -89,7 +89,7 @@ def _cases(frame: pd.DataFrame, y: np.ndarray, seed: int) -> list[Case]:
         ),
         Case(
             "hashing",
-            lambda: build("hashing", n_components=HASH_COMPONENTS).fit_transform(frame),
+            lambda: build("hashing", width=HASH_COMPONENTS).fit_transform(frame),
             lambda: FeatureHasher(HASH_COMPONENTS, input_type="string").transform(tokens),
             _arrays_equal,
         ),

@@ -51,6 +51,7 @@ class UnitJob:
 def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") -> dict:
     """The identifying part of a results row."""
     task = dataset.task
+    declared = _encoders.declaration(cell.encoder.kind, cell.encoder.params)
     return {
         "cell_id": cell.cell_id,
         "schema_version": SCHEMA_VERSION,
@@ -65,6 +66,9 @@ def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") ->
         "task": task,
         "encoder_kind": cell.encoder.kind,
         "encoder_params": json.dumps(cell.encoder.params, sort_keys=True, default=str),
+        # the encoder class's own declarations: readers never parse encoder_params for them
+        "uses_target": declared.uses_target,
+        "leaky": declared.leaky,
         "model_family": cell.model.family,
         "model_params": json.dumps(cell.model.params, sort_keys=True, default=str),
         "primary_metric": job.primary_regression if task == "regression" else job.primary,

@@ -134,7 +134,9 @@ def cmd_run(args) -> int:
     if not the_plan.cells:
         raise ConfigError(f"--only '{args.only}' matches no cell; labels are dataset, encoder and model names from {config.path}.")
     if args.dry_run:
-        return _dry_run(the_plan, out)
+        code = _dry_run(the_plan, out)
+        _warn_few_folds(config)
+        return code
     summary = execute(
         the_plan, out, jobs=args.jobs, backend=args.backend, scheduler=args.scheduler, fresh=args.fresh,
         progress=not args.quiet, retry_failed=args.retry_failed,
@@ -151,7 +153,22 @@ def cmd_run(args) -> int:
     if summary.interrupted:
         _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
         return 130
+    _warn_few_folds(config)
     return 0
+
+
+def _warn_few_folds(config) -> None:
+    """One dataset is answered from its folds: fewer than 10 in total leave the tests weak."""
+    from harness.stats import MIN_FOLDS_ONE_DATASET
+
+    p = config.protocol
+    total = p.folds * p.repeats
+    if len(config.datasets) == 1 and total < MIN_FOLDS_ONE_DATASET:
+        need = -(-MIN_FOLDS_ONE_DATASET // p.folds)
+        _say(f"warning: one dataset with {p.folds} folds x {p.repeats} repeat(s) = {total} "
+             f"outer folds; the one-dataset decision rests on fold-paired differences and wants "
+             f"at least {MIN_FOLDS_ONE_DATASET}: set `protocol.repeats = {need}` in "
+             f"{config.path} (or pass --config with such a protocol).")
 
 
 def _dry_run(the_plan, out: Path) -> int:

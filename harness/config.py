@@ -25,6 +25,7 @@ from harness import encoders as _encoders
 from harness import models as _models
 from harness.errors import ConfigError, HarnessError, closest
 from harness.metrics import CLASSIFICATION_METRICS, METRICS, REGRESSION_METRICS
+from harness.stats import DecisionRule
 
 __all__ = [
     "Config",
@@ -107,11 +108,12 @@ class Config:
     models: tuple[ModelSpec, ...]
     execution: Execution
     raw: dict = field(repr=False)
+    decision: DecisionRule = field(default_factory=DecisionRule)
 
     @property
     def hash(self) -> str:
-        """Hash of everything that affects results (execution settings excluded)."""
-        payload = {k: v for k, v in self.raw.items() if k != "execution"}
+        """Hash of everything that affects results (execution and decision excluded)."""
+        payload = {k: v for k, v in self.raw.items() if k not in ("execution", "decision")}
         payload["experiment"] = {k: v for k, v in payload.get("experiment", {}).items() if k != "output"}
         return digest(payload)
 
@@ -159,7 +161,13 @@ _BANDS = (
     "two increasing integers [low_max, medium_max], e.g. [10, 100]",
 )
 
-SECTIONS = ("experiment", "protocol", "datasets", "encoders", "models", "execution")
+SECTIONS = ("experiment", "protocol", "datasets", "encoders", "models", "execution", "decision")
+
+
+def _number_between(lo, hi):
+    ok = lambda v: isinstance(v, (int, float)) and not isinstance(v, bool) and lo < v < hi  # noqa: E731
+    return ok, f"a number strictly between {lo} and {hi}"
+
 
 RULES = {
     "experiment": {
@@ -186,6 +194,14 @@ RULES = {
         "cell_memory_mb": (_int_at_least(0, MAX_MEMORY_MB), 0),
         "retries": (_int_at_least(0, MAX_RETRIES), 1),
         "max_cells": (_int_at_least(1), DEFAULT_MAX_CELLS),
+    },
+    # the decision rule (harness.stats.DecisionRule); read by the report, not by the runner
+    "decision": {
+        "reference": (_STR, None),
+        "margin": (_number_between(0, 0.5), 0.01),
+        "alpha": (_number_between(0, 0.5), 0.05),
+        "min_saving": (_number_between(-1e-12, 1), 0.20),
+        "min_saving_s": (_number_at_least(0), 0.01),
     },
 }
 
@@ -241,6 +257,7 @@ def parse_config(raw: dict, path: str = "<config>") -> Config:
     models = _parse_models(raw["models"], path)
     datasets = _parse_datasets(raw["datasets"], path)
     _check_native(encoders, models, path)
+    _check_reference(sections["decision"], encoders, path)
     normalized = {**raw, **sections}
     return Config(
         path=path,
@@ -263,7 +280,18 @@ def parse_config(raw: dict, path: str = "<config>") -> Config:
         models=models,
         execution=Execution(**sections["execution"]),
         raw=normalized,
+        decision=DecisionRule.from_mapping(sections["decision"]),
     )
+
+
+def _check_reference(decision: dict, encoders, path: str) -> None:
+    ref = decision["reference"]
+    labels = [e.label for e in encoders]
+    if ref is not None and ref not in labels:
+        raise ConfigError(
+            f"`decision.reference` in {path} must be an encoder label of the config; got "
+            f"{ref!r}; allowed: {', '.join(labels)}.{closest(ref, labels)} A list-expanded "
+            "encoder is named by its variant label, e.g. 'te(m=1.0)'.")
 
 
 def _check_keys(table: dict, allowed, path: str, where: str) -> None:
@@ -385,14 +413,10 @@ def _parse_encoders(table: dict, path: str) -> tuple[EncoderSpec, ...]:
 
 
 def _validate_encoder(kind: str, params: dict, path: str, where: str) -> None:
-    """Build the encoder and fit it on a tiny frame: every parameter check runs at load."""
-    import pandas as pd
-
+    """Check the parameters against the encoder class's declared rules (nothing is fitted)."""
     try:
-        enc = _encoders.build(kind, **params)
-        probe = pd.DataFrame({"probe": ["a", "b"] * 10})
-        enc.fit(probe, [0, 1] * 10)
-    except (HarnessError, ValueError, TypeError) as exc:
+        _encoders.check(kind, params)
+    except HarnessError as exc:
         message = str(exc).rstrip(".")
         raise ConfigError(f"{where} in {path}: {message}. Fix the value of that key.") from None
 

@@ -24,7 +24,7 @@ from harness.config import Config, DatasetSpec, EncoderSpec, ModelSpec, digest
 
 __all__ = ["SCHEMA_VERSION", "CODE_VERSION", "Cell", "build_grid", "select", "units", "changed_parts"]
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3  # 2: grid and superseded tables; 3: uses_target and leaky columns
 # Bump when a change to the code alters the numbers a cell records (an encoder's
 # arithmetic, a model default, the scaling policy, the metrics): every cell then gets a
 # new identity and is recomputed, and rows of the old code are set aside.

@@ -7,6 +7,7 @@ cells whose content hash is not in the store yet.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import platform
@@ -28,6 +29,7 @@ from harness import models as _models
 from harness.backends import make_backend
 from harness.cellwork import UnitJob
 from harness.config import Config
+from harness.encoders import factorised
 from harness.errors import DataError
 from harness.grid import Cell, build_grid, select, units
 from harness.models import SCALING_POLICY
@@ -112,7 +114,7 @@ def _enumerate_splits(splits):
 
 def plan(config: Config, only: str | None = None) -> Plan:
     """Load data and build the full list of cells to run (before skipping finished ones)."""
-    loaded = load_datasets(config)
+    loaded = {label: _factorised(ds) for label, ds in load_datasets(config).items()}
     _warn_no_categorical(loaded)
     p = config.protocol
     splits = {label: outer_splits(ds, p.folds, p.repeats, p.stratify, config.seed) for label, ds in loaded.items()}
@@ -154,6 +156,15 @@ def _warn_clustered(loaded: dict, duplicates: dict) -> None:
                 UserWarning,
                 stacklevel=3,
             )
+
+
+def _factorised(ds):
+    """The dataset with its categorical columns factorised once (codes + level table),
+    so that every fold x encoder unit works on integer codes (``encoders.factorised``)."""
+    if not ds.categorical:
+        return ds
+    X = factorised(ds.X, ds.categorical)
+    return dataclasses.replace(ds, X=X, fingerprint=ds.fingerprint)
 
 
 def _warn_no_categorical(loaded: dict) -> None:

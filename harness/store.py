@@ -65,6 +65,8 @@ COLUMNS = [
     ("task", "TEXT"),
     ("encoder_kind", "TEXT"),
     ("encoder_params", "TEXT"),
+    ("uses_target", "INTEGER"),
+    ("leaky", "INTEGER"),
     ("model_family", "TEXT"),
     ("model_params", "TEXT"),
     ("primary_metric", "TEXT"),
@@ -86,7 +88,8 @@ COLUMNS = [
 ]
 NAMES = [c for c, _ in COLUMNS]
 # schema versions this harness opens; older ones are upgraded in place by a writer
-READABLE_VERSIONS = (1, SCHEMA_VERSION)
+# (1: no grid or superseded table; 2: no uses_target/leaky columns)
+READABLE_VERSIONS = (1, 2, SCHEMA_VERSION)
 # grid: the cells of the config last run into the store (path, identity parts as JSON)
 GRID_TABLE = "CREATE TABLE IF NOT EXISTS grid (cell_id TEXT PRIMARY KEY, path TEXT, identity TEXT)"
 SET_ASIDE_EXTRA = [("superseded_at", "TEXT"), ("reason", "TEXT")]
@@ -99,6 +102,8 @@ PART_REASONS = {
     "encoder": "other encoder parameters",
     "model": "other model parameters",
 }
+#: INTEGER columns that hold a boolean (SQLite has no boolean type); read back as bool
+BOOL_COLUMNS = ("uses_target", "leaky")
 
 
 class Store:
@@ -313,6 +318,11 @@ def _create_tables(db) -> None:
     db.execute(f"CREATE TABLE IF NOT EXISTS superseded ({aside})")
     db.execute(GRID_TABLE)
     db.execute("CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT)")
+    for table, columns in (("cells", COLUMNS), ("superseded", COLUMNS + SET_ASIDE_EXTRA)):
+        have = {r[1] for r in db.execute(f"PRAGMA table_info({table})")}
+        for col, typ in columns:  # additive upgrade of an older store: new columns hold NULL
+            if col not in have:
+                db.execute(f'ALTER TABLE {table} ADD COLUMN "{col}" {typ}')
     db.execute("INSERT OR REPLACE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
 
 
@@ -356,6 +366,13 @@ def read_results(out) -> pd.DataFrame:
         if typ == "REAL":
             df[col] = pd.to_numeric(df[col], errors="coerce").astype(float)
     df["error"] = df["error"].fillna("")
+    for col in BOOL_COLUMNS:
+        if col not in df or df[col].isna().any():
+            # rows of an older store hold NULL: drop the column so readers fall back to
+            # what the older store records, instead of reading NULL as False
+            df = df.drop(columns=col, errors="ignore")
+        else:
+            df[col] = df[col].astype(bool)
     return df
 
 

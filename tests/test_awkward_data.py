@@ -25,7 +25,7 @@ FOLDS = 3
 ENCODERS = {
     "integer": {"kind": "integer"},
     "onehot": {"kind": "onehot"},
-    "hashing": {"kind": "hashing", "n_components": 16},
+    "hashing": {"kind": "hashing", "width": 16},
     "frequency": {"kind": "frequency"},
     "target": {"kind": "target", "crossfit": "kfold"},
     "drop": {"kind": "drop"},

@@ -27,7 +27,7 @@ def _raw(seed: int = 11) -> dict:
         "encoders": {
             "integer": {"kind": "integer"},
             "onehot": {"kind": "onehot"},
-            "hashing": {"kind": "hashing", "n_components": 32},
+            "hashing": {"kind": "hashing", "width": 32},
             "frequency": {"kind": "frequency"},
             "target": {"kind": "target", "crossfit": "kfold"},  # seeded inner folds
             "drop": {"kind": "drop"},

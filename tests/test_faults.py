@@ -201,7 +201,7 @@ def _faulty_raw(jobs: int) -> dict:
             "codes": {"kind": "integer"},
             # 2**22 hash columns stay sparse, but a dense-only family densifies them:
             # 300 rows x 4M x 8 bytes = 10 GB, far above the cap below
-            "huge": {"kind": "hashing", "n_components": 2**22},
+            "huge": {"kind": "hashing", "width": 2**22},
         },
         "models": {
             "lin": {"family": "linear"},

@@ -152,3 +152,29 @@ def test_retry_failed_reruns_only_failed_cells(ran):
     again = execute(plan(cfg), out, progress=False, retry_failed=True)
     assert again.computed == failed
     assert len(read_results(out)) == summary.total
+
+
+def test_rows_carry_the_encoder_declarations(ran):
+    """``uses_target``/``leaky`` come from the encoder class, on every row (failed ones too)."""
+    _, _, out = ran
+    df = read_results(out)
+    assert df["uses_target"].dtype == bool and df["leaky"].dtype == bool
+    by_encoder = df.groupby("encoder")[["uses_target", "leaky"]].agg(["min", "max"])
+    assert (by_encoder.xs("min", axis=1, level=1) == by_encoder.xs("max", axis=1, level=1)).all().all()
+    flags = df.groupby("encoder")[["uses_target", "leaky"]].first().to_dict("index")
+    assert flags == {
+        "codes": {"uses_target": False, "leaky": False},
+        "te": {"uses_target": True, "leaky": False},
+        "native": {"uses_target": False, "leaky": False},
+        "woe": {"uses_target": True, "leaky": False},
+    }
+
+
+def test_in_sample_target_statistics_are_recorded_leaky(tmp_path):
+    raw = _raw(insample={"kind": "target", "crossfit": "none"}, loo={"kind": "target", "crossfit": "loo"})
+    raw["encoders"] = {k: raw["encoders"][k] for k in ("codes", "insample", "loo")}
+    raw["models"] = {"lin": {"family": "linear"}}
+    raw["datasets"] = {"signup": raw["datasets"]["signup"]}
+    execute(plan(parse_config(raw)), tmp_path, progress=False)
+    df = read_results(tmp_path)
+    assert df.groupby("encoder")["leaky"].all().to_dict() == {"codes": False, "insample": True, "loo": True}

@@ -64,7 +64,7 @@ def test_flights_full_size_every_encoder(tmp_path):
         "encoders": {
             "integer": {"kind": "integer"},
             "onehot": {"kind": "onehot"},
-            "hashing": {"kind": "hashing", "n_components": 256},
+            "hashing": {"kind": "hashing", "width": 256},
             "frequency": {"kind": "frequency"},
             "target": {"kind": "target", "crossfit": "kfold"},
             "drop": {"kind": "drop"},

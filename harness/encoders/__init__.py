@@ -1,15 +1,22 @@
 """The encoder registry: one explicit dict from config kind to class.
 
-``build(kind, **params)`` returns an unfitted encoder; ``KINDS`` lists the kinds.
+``build(kind, **params)`` returns an unfitted encoder; ``KINDS`` lists the kinds;
+``check(kind, params)`` validates parameters against the class's declared rules without
+fitting; ``declaration(kind, params)`` reads what the class declares about itself
+(uses the target, leaky under these settings, references).
 """
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
+from harness.encoders._base import factorised
 from harness.encoders._frequency import FrequencyCodes
 from harness.encoders._hashing import HashedCodes
 from harness.encoders._integer import IntegerCodes
 from harness.encoders._onehot import OneHotCodes
 from harness.encoders._passthrough import DropColumns, NativeCategories
+from harness.encoders._rules import ParameterError, check_params
 from harness.encoders._target import TargetStatistics
 from harness.errors import ConfigError, closest
 
@@ -25,10 +32,19 @@ ENCODERS = {
 
 KINDS = tuple(sorted(ENCODERS))
 
+#: parameters renamed since earlier versions: kind -> {old name: new name}
+RENAMED = {"hashing": {"n_components": "width"}}
+
 __all__ = [
     "ENCODERS",
     "KINDS",
+    "RENAMED",
+    "Declaration",
+    "ParameterError",
     "build",
+    "check",
+    "factorised",
+    "declaration",
     "params_of",
     "DropColumns",
     "FrequencyCodes",
@@ -56,12 +72,44 @@ def build(kind: str, **params):
     cls = _cls(kind)
     allowed = params_of(kind)
     for name in params:
+        new = RENAMED.get(kind, {}).get(name)
+        if new is not None:
+            raise ConfigError(
+                f"encoder kind '{kind}': parameter '{name}' was renamed '{new}'; "
+                f"write {new} = {params[name]!r} instead."
+            )
         if name not in allowed:
             raise ConfigError(
                 f"encoder kind '{kind}' has no parameter '{name}'; allowed: "
                 f"{', '.join(allowed) or '(none)'}.{closest(name, allowed)}"
             )
     return cls(**params)
+
+
+def check(kind: str, params: dict) -> None:
+    """Validate ``params`` of ``kind`` against the declared rules, without fitting.
+
+    Raises
+    ------
+    ConfigError
+        Unknown kind or parameter; :class:`ParameterError` (also a ``ValueError``) for a
+        value outside the rules.
+    """
+    check_params(build(kind, **params))
+
+
+class Declaration(NamedTuple):
+    """What an encoder setting declares about itself (see ``CategoricalEncoder``)."""
+
+    uses_target: bool
+    leaky: bool
+    references: tuple[str, ...]
+
+
+def declaration(kind: str, params: dict) -> Declaration:
+    """The declarations of ``kind`` under ``params`` (defaults filled from the class)."""
+    cls = _cls(kind)
+    return Declaration(bool(cls.uses_target), bool(cls.is_leaky(params)), cls.cited(params))
 
 
 def _cls(kind: str):

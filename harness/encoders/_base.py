@@ -18,7 +18,8 @@ import pandas as pd
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils.validation import check_is_fitted
 
-from harness.errors import ConfigError, EncoderInputError, closest
+from harness.encoders._rules import check_params
+from harness.errors import EncoderInputError
 
 UNSEEN = -1
 MISSING = -2
@@ -29,10 +30,9 @@ __all__ = [
     "CategoricalEncoder",
     "LevelCodeEncoder",
     "as_frame",
-    "check_count",
-    "check_flag",
-    "check_option",
+    "factorised",
     "normalize_column",
+    "raw_codes",
 ]
 
 
@@ -90,6 +90,19 @@ def normalize_column(s: pd.Series, force_str: bool = False) -> pd.Series:
 class CategoricalEncoder(TransformerMixin, BaseEstimator):
     """Base class: validates input and learns one level table per column.
 
+    Declarations (class attributes, read by the runner, the report and the bibliography
+    through ``harness.encoders.declaration``; never rediscovered from parameters):
+
+    ``uses_target``
+        True when ``fit``/``fit_transform`` read ``y``.
+    ``leaky_when``
+        ``{parameter: values}``: settings under which ``fit_transform`` encodes a training
+        row with statistics that include the row's own target.
+    ``references``, ``references_when``
+        Keys of ``harness.reporting._bib.BIB`` for the method, and per parameter value.
+    ``param_rules``
+        ``{parameter: (rule, ...)}`` of ``_rules``; checked once at ``fit``.
+
     Subclasses call ``self._fit_levels(X, order=...)`` in ``fit`` and ``self._codes(X)`` in
     ``transform``. Fitted attributes: ``feature_names_in_``, ``n_features_in_``,
     ``levels_`` (list of ``pd.Index``, missing never included), ``counts_`` (list of int64
@@ -104,8 +117,40 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
         """
         return "a level of its own"
 
+    uses_target: bool = False
+    leaky_when: dict[str, tuple] = {}
+    references: tuple[str, ...] = ()
+    references_when: dict[str, dict[str, tuple[str, ...]]] = {}
+    param_rules: dict[str, tuple] = {}
+
+    @classmethod
+    def settings(cls, params: dict) -> dict:
+        """``params`` completed with the class defaults (what an instance would hold)."""
+        return {**cls().get_params(deep=False), **params}
+
+    @classmethod
+    def is_leaky(cls, params: dict) -> bool:
+        """True when ``params`` make ``fit_transform`` use each row's own target."""
+        full = cls.settings(params)
+        return cls.uses_target and any(full.get(k) in v for k, v in cls.leaky_when.items())
+
+    @classmethod
+    def cited(cls, params: dict) -> tuple[str, ...]:
+        """Reference keys of the method under ``params``, in declaration order."""
+        full = cls.settings(params)
+        keys = list(cls.references)
+        for name, by_value in cls.references_when.items():
+            keys += by_value.get(full.get(name), ())
+        return tuple(dict.fromkeys(keys))
+
+    def _check_params(self) -> None:
+        check_params(self)
+
     # --- input ---------------------------------------------------------------------------
     def _frame(self, X, *, reset: bool) -> pd.DataFrame:
+        """``X`` as a checked DataFrame; ``reset`` (every ``fit``) first checks the parameters."""
+        if reset:
+            self._check_params()
         frame = as_frame(X)
         if any(getattr(dtype, "kind", "") == "c" for dtype in frame.dtypes):
             # scikit-learn's rule (check_array): complex numbers are no category labels
@@ -153,57 +198,75 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
         """Learn ``levels_``/``counts_``/``n_missing_``; return the training codes per column.
 
         ``order`` is ``"lexical"`` (sorted; numbers numerically), ``"frequency"``
-        (most frequent first, ties lexical) or ``"appearance"`` (first occurrence).
+        (most frequent first, ties lexical), ``"appearance"`` (first occurrence) or
+        ``"any"`` (whatever is cheapest: for encoders whose output does not depend on it).
         """
         self.levels_, self.counts_, codes_out, self.stringified_ = [], [], [], []
         self.n_missing_ = np.zeros(frame.shape[1], dtype=np.int64)
         for j in range(frame.shape[1]):
-            raw = frame.iloc[:, j]
-            self.stringified_.append(is_mixed(raw))
-            col = normalize_column(raw, force_str=self.stringified_[j])
-            codes, uniques = pd.factorize(col, use_na_sentinel=True)
-            codes = codes.astype(np.int64, copy=False)
-            counts = np.bincount(codes[codes >= 0], minlength=len(uniques)).astype(np.int64)
-            perm = self._level_order(uniques, counts, order)
-            uniques = pd.Index(uniques).take(perm)
-            # one trailing entry maps factorize's NA sentinel (-1) to MISSING; it also
-            # keeps the lookup valid for an all-missing column (no level at all)
+            raw, uniques = raw_codes(frame.iloc[:, j])
+            # one pass: bincount of codes + 1 counts the missing rows (code -1) in slot 0
+            counts = np.bincount(raw + 1, minlength=len(uniques) + 1).astype(np.int64)
+            self.n_missing_[j] = counts[0]
+            counts = counts[1:]
+            # levels are learnt from the data: unused categories of a category column drop
+            # out, and distinct values that are equal once stringified merge
+            kept, uniques, stringified = _distinct_levels(uniques, counts)
+            self.stringified_.append(stringified)
+            counts = np.bincount(kept[kept >= 0], weights=counts[kept >= 0],
+                                 minlength=len(uniques)).astype(np.int64)
+            first = _first_seen(raw, kept, len(uniques)) if order == "appearance" else None
+            perm = self._level_order(uniques, counts, order, first)
+            # raw code -> level code; the trailing entry maps the NA code (-1) to MISSING
             inverse = np.full(len(perm) + 1, MISSING, dtype=np.int64)
             inverse[perm] = np.arange(len(perm))
-            missing = codes < 0
-            codes = inverse[codes]
-            self.levels_.append(uniques)
+            to_level = np.append(np.where(kept >= 0, inverse[kept], MISSING), MISSING)
+            self.levels_.append(uniques.take(perm))
             self.counts_.append(counts[perm])
-            self.n_missing_[j] = int(missing.sum())
-            codes_out.append(codes)
+            codes_out.append(to_level[raw])
         return codes_out
 
     @staticmethod
-    def _level_order(uniques, counts: np.ndarray, order: str) -> np.ndarray:
+    def _level_order(uniques, counts: np.ndarray, order: str, first=None) -> np.ndarray:
         n = len(uniques)
-        if order == "appearance" or n == 0:
+        if order == "any" or n == 0:
             return np.arange(n)
+        if order == "appearance":
+            return np.argsort(first, kind="stable")
         lexical = _lexical_argsort(uniques)
         if order == "lexical":
             return lexical
         if order == "frequency":
             # stable sort on -count over the lexical order: ties stay lexical
             return lexical[np.argsort(-counts[lexical], kind="stable")]
-        raise ValueError(f"unknown level order {order!r}; allowed: appearance, frequency, lexical")
+        raise ValueError(f"unknown level order {order!r}; allowed: any, appearance, frequency, lexical")
 
-    def _codes(self, frame: pd.DataFrame) -> list[np.ndarray]:
-        """Codes of new data against the fitted ``levels_`` (see module docstring)."""
-        out = []
+    def _codes(self, frame: pd.DataFrame, *, with_values: bool = False):
+        """Codes of new data against the fitted ``levels_`` (see module docstring).
+
+        Each column is factorised once (a category column's own codes are used as they
+        are) and only its distinct values are looked up in ``levels_``. ``with_values``
+        also returns, per column, the distinct values and each row's index into them
+        (so an encoder can treat unseen values by their distinct values alone).
+        """
+        out, values = [], []
         for j in range(frame.shape[1]):
-            col = normalize_column(frame.iloc[:, j], force_str=self.stringified_[j])
-            levels = self.levels_[j]
-            try:
-                codes = levels.get_indexer(col).astype(np.int64, copy=False)
-            except (TypeError, ValueError):
-                codes = levels.astype(str).get_indexer(col.astype(str)).astype(np.int64)
-            codes[col.isna().to_numpy()] = MISSING
-            out.append(codes)
-        return out
+            raw, uniques = raw_codes(frame.iloc[:, j])
+            lookup = np.append(self._lookup_levels(j, uniques), MISSING)
+            out.append(lookup[raw])
+            values.append((raw, uniques))
+        return (out, values) if with_values else out
+
+    def _lookup_levels(self, j: int, uniques: pd.Index) -> np.ndarray:
+        """Level code of each distinct value (``UNSEEN`` when not a fitted level)."""
+        levels = self.levels_[j]
+        if self.stringified_[j]:
+            uniques = _as_text(uniques)
+        try:
+            codes = levels.get_indexer(uniques)
+        except (TypeError, ValueError):
+            codes = levels.astype(str).get_indexer(_as_text(uniques))
+        return codes.astype(np.int64, copy=False)
 
     def __sklearn_tags__(self):
         tags = super().__sklearn_tags__()
@@ -246,55 +309,106 @@ class LevelCodeEncoder(CategoricalEncoder):
         return self._to_output(codes)
 
 
+def raw_codes(s: pd.Series) -> tuple[np.ndarray, pd.Index]:
+    """Each row's index into the column's distinct values (-1 missing), and those values.
+
+    The only pass over the rows of a column, with a fast path per dtype:
+    ``category`` uses its own codes (the categories, used or not, are the values);
+    ``bool`` is its own code; nullable ``boolean`` reads its mask; ``object`` and
+    pandas ``str`` (Python or Arrow storage) are factorised with a hash table (Arrow
+    storage by its dictionary encoding). No column is converted as a whole.
+    """
+    dtype = s.dtype
+    if isinstance(dtype, pd.CategoricalDtype):
+        return s.cat.codes.to_numpy().astype(np.int64), dtype.categories
+    if dtype == np.bool_:
+        return s.to_numpy().astype(np.int64), _BOOL_LEVELS
+    if isinstance(dtype, pd.BooleanDtype):
+        return s.to_numpy(dtype=np.int64, na_value=-1), _BOOL_LEVELS
+    codes, uniques = pd.factorize(s, use_na_sentinel=True)
+    return codes.astype(np.int64, copy=False), pd.Index(uniques, dtype=uniques.dtype)
+
+
+def factorised(frame: pd.DataFrame, columns) -> pd.DataFrame:
+    """``frame`` with each of ``columns`` replaced by compact integer codes and a level table.
+
+    The runner calls this once per dataset: every column becomes a ``category`` column
+    whose categories are its distinct values (their dtype kept, missing never one) and
+    whose codes are the smallest integer type that holds them. Every encoder then reads
+    the codes directly (:func:`raw_codes`) and learns its levels from the codes present
+    in the rows it is given, so its output equals that on the original column, while each
+    fold x encoder unit costs integer work only.
+    """
+    out = frame.copy(deep=False)
+    for name in columns:
+        s = frame[name]
+        if isinstance(s.dtype, pd.CategoricalDtype):
+            continue
+        codes, uniques = raw_codes(s)
+        categories = pd.Index(uniques, dtype=uniques.dtype, copy=False)
+        small = codes.astype(np.min_scalar_type(-max(len(categories), 1)), copy=False)
+        dtype = pd.CategoricalDtype(categories, ordered=False)
+        out[name] = pd.Series(pd.Categorical.from_codes(small, dtype=dtype), index=frame.index, name=name)
+    return out
+
+
+_BOOL_LEVELS = pd.Index([False, True], dtype=bool)
+
+
+def _distinct_levels(uniques: pd.Index, counts: np.ndarray):
+    """The levels behind a column's distinct values: ``(kept, levels, stringified)``.
+
+    ``kept[i]`` is the level of distinct value ``i`` (-1 for an unused category).
+    An object column whose values are of more than one type (``1`` and ``"1"``) is
+    taken by its text, so that one level is one value; the check and the conversion
+    run on the distinct values only. Values equal under ``==`` (``1``, ``1.0``,
+    ``True``) are one distinct value already (the hash table's rule).
+    """
+    used = counts > 0
+    kept = np.where(used, np.cumsum(used) - 1, -1)
+    if not used.all():
+        uniques = uniques[used]
+    if not _mixed_values(uniques):
+        return kept, uniques, False
+    text = _as_text(uniques)
+    merged, levels = pd.factorize(text)
+    kept = np.where(kept >= 0, merged[np.maximum(kept, 0)], -1)
+    return kept, pd.Index(levels, dtype=object), True
+
+
+def _mixed_values(uniques: pd.Index) -> bool:
+    if uniques.dtype != object:
+        return False
+    kinds = {type(v) for v in uniques}
+    return len(kinds) > 1 or bool(kinds and not kinds <= {str, bool, int, float})
+
+
+def _as_text(uniques) -> pd.Index:
+    """Distinct values as ``str`` (missing values are never among them)."""
+    return pd.Index([str(v) for v in uniques], dtype=object)
+
+
+def _first_seen(raw: np.ndarray, kept: np.ndarray, n_levels: int) -> np.ndarray:
+    """Row of first occurrence of each level (for ``order="appearance"``)."""
+    order = pd.unique(raw)  # distinct codes in order of appearance (integer hash table)
+    first = np.full(n_levels, len(raw), dtype=np.int64)
+    order = order[order >= 0]
+    levels = kept[order]
+    rank = np.arange(len(order))
+    ok = levels >= 0
+    # the earliest distinct value of each level wins (merged values share a level)
+    np.minimum.at(first, levels[ok], rank[ok])
+    return first
+
+
 def _lexical_argsort(uniques) -> np.ndarray:
     """Sorted order of levels: numbers numerically, strings lexically, mixed by string."""
     if isinstance(getattr(uniques, "dtype", None), pd.StringDtype):
         # pandas' (Arrow) string sort is ~5x faster than sorting Python objects, and UTF-8
         # byte order equals code-point order, i.e. Python's str order
         return np.asarray(pd.Index(uniques).argsort(), dtype=np.int64)
-    values = np.asarray(uniques, dtype=object) if not isinstance(uniques, np.ndarray) else uniques
+    values = np.asarray(uniques)
     try:
         return np.argsort(values, kind="stable")
     except TypeError:
         return np.argsort(values.astype(str), kind="stable")
-
-
-def check_option(encoder, name: str, allowed) -> None:
-    """Raise ``ConfigError`` unless ``encoder.<name>`` is one of ``allowed``.
-
-    Parameters are checked at ``fit`` (scikit-learn's rule: ``__init__`` only stores), so a
-    bad value from a config is reported with the encoder, the allowed values and the value
-    received.
-    """
-    value = getattr(encoder, name)
-    if isinstance(value, str) and value in allowed:
-        return
-    shown = ", ".join(repr(a) for a in allowed)
-    hint = closest(value, allowed) if isinstance(value, str) else ""
-    raise ConfigError(
-        f"{type(encoder).__name__}: parameter '{name}' must be one of {shown}; "
-        f"got {value!r}.{hint}"
-    )
-
-
-def check_count(encoder, name: str, low: int, allow_none: bool = False) -> None:
-    """Raise ``ConfigError`` unless ``encoder.<name>`` is an integer >= ``low`` (or None)."""
-    value = getattr(encoder, name)
-    if value is None and allow_none:
-        return
-    if isinstance(value, (int, np.integer)) and not isinstance(value, bool) and value >= low:
-        return
-    extra = " or None" if allow_none else ""
-    raise ConfigError(
-        f"{type(encoder).__name__}: parameter '{name}' must be an integer >= {low}{extra}; "
-        f"got {value!r}."
-    )
-
-
-def check_flag(encoder, name: str) -> None:
-    """Raise ``ConfigError`` unless ``encoder.<name>`` is a bool."""
-    value = getattr(encoder, name)
-    if not isinstance(value, (bool, np.bool_)):
-        raise ConfigError(
-            f"{type(encoder).__name__}: parameter '{name}' must be true or false; got {value!r}."
-        )

@@ -5,7 +5,8 @@ from __future__ import annotations
 import numpy as np
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import LevelCodeEncoder, check_option
+from harness.encoders._base import LevelCodeEncoder
+from harness.encoders._rules import Options
 
 __all__ = ["FrequencyCodes"]
 
@@ -37,6 +38,8 @@ class FrequencyCodes(LevelCodeEncoder):
     levels_, counts_, n_missing_ : see ``CategoricalEncoder``.
     """
 
+    param_rules = {"scale": (Options(*SCALES),), "missing": (Options(*MISSING_RULES),)}
+
     def __init__(self, scale="count", missing="category"):
         self.scale = scale
         self.missing = missing
@@ -51,11 +54,8 @@ class FrequencyCodes(LevelCodeEncoder):
         return np.asarray([f"{name}__{self.scale}" for name in names], dtype=object)
 
     def _fit_codes(self, X) -> list[np.ndarray]:
-        check_option(self, "scale", SCALES)
-        check_option(self, "missing", MISSING_RULES)
         frame = self._frame(X, reset=True)
-        # no level order is needed: appearance order skips the sort
-        codes = self._fit_levels(frame, order="appearance")
+        codes = self._fit_levels(frame, order="any")  # no level order is needed: no sort
         n_rows = frame.shape[0]
         divisor = float(n_rows) if self.scale == "proportion" else 1.0
         # trailing entries are read by negative codes: [-2] MISSING, [-1] UNSEEN (0 rows)

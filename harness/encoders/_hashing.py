@@ -7,14 +7,9 @@ import pandas as pd
 from sklearn.utils import murmurhash3_32
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import (
-    UNSEEN,
-    CategoricalEncoder,
-    check_count,
-    check_flag,
-    check_option,
-)
+from harness.encoders._base import UNSEEN, CategoricalEncoder
 from harness.encoders._onehot import indicator_matrix
+from harness.encoders._rules import Flag, Interval, Options
 
 __all__ = ["HashedCodes", "hash_tokens"]
 
@@ -24,19 +19,19 @@ MISSING_RULES = ("category", "zeros")
 
 
 class HashedCodes(CategoricalEncoder):
-    """Feature hashing: each value becomes one signed entry in ``n_components`` columns.
+    """Feature hashing: each value becomes one signed entry in ``width`` columns.
 
     The token ``"<column>=<value>"`` is hashed with signed 32-bit MurmurHash3 (seed 0);
-    its column is ``|h| mod n_components`` and its sign is ``+1`` if ``h >= 0`` else
+    its column is ``|h| mod width`` and its sign is ``+1`` if ``h >= 0`` else
     ``-1``; entries that land in the same column of a row are summed. This is exactly
     scikit-learn's ``FeatureHasher(input_type="string")`` fed one token list per row.
 
     Parameters
     ----------
-    n_components : int, default=256
+    width : int, default=256
         Number of hash columns (per input column when ``space="per-column"``).
     space : {"shared", "per-column"}, default="shared"
-        All input columns share one block of ``n_components`` columns (collisions across
+        All input columns share one block of ``width`` columns (collisions across
         columns possible), or each input column gets its own block.
     signed : bool, default=True
         Use the hash's sign bit as the entry's sign, so that collisions cancel in
@@ -61,8 +56,16 @@ class HashedCodes(CategoricalEncoder):
        Feature hashing for large scale multitask learning. ICML, 1113-1120.
     """
 
-    def __init__(self, n_components=256, space="shared", signed=True, missing="category"):
-        self.n_components = n_components
+    references = ("weinberger2009",)
+    param_rules = {
+        "width": (Interval("int", 1, None),),
+        "space": (Options(*SPACES),),
+        "signed": (Flag(),),
+        "missing": (Options(*MISSING_RULES),),
+    }
+
+    def __init__(self, width=256, space="shared", signed=True, missing="category"):
+        self.width = width
         self.space = space
         self.signed = signed
         self.missing = missing
@@ -77,30 +80,27 @@ class HashedCodes(CategoricalEncoder):
 
     def fit_transform(self, X, y=None, **fit_params):
         """Fit and return the hashed training rows (one factorisation instead of two)."""
-        return self._to_output(*self._fit_codes(X))
+        codes = self._fit_codes(X)
+        return self._to_output(codes, [None] * len(codes))
 
     def transform(self, X):
         """Return the hashed features as a CSR matrix."""
         frame = self._frame(X, reset=False)
-        return self._to_output(frame, self._codes(frame))
+        return self._to_output(*self._codes(frame, with_values=True))
 
     def get_feature_names_out(self, input_features=None):
         """``hash_<k>`` (shared) or ``<column>__hash_<k>`` (per-column)."""
         check_is_fitted(self)
         names = _check_feature_names_in(self, input_features)
-        slots = [f"hash_{k}" for k in range(self.n_components)]
+        slots = [f"hash_{k}" for k in range(self.width)]
         if self.space == "shared":
             return np.asarray(slots, dtype=object)
         return np.asarray([f"{name}__{slot}" for name in names for slot in slots], dtype=object)
 
     # --- helpers ---------------------------------------------------------------------------
-    def _fit_codes(self, X) -> tuple[pd.DataFrame, list[np.ndarray]]:
-        check_count(self, "n_components", 1)
-        check_option(self, "space", SPACES)
-        check_flag(self, "signed")
-        check_option(self, "missing", MISSING_RULES)
+    def _fit_codes(self, X) -> list[np.ndarray]:
         frame = self._frame(X, reset=True)
-        codes = self._fit_levels(frame, order="appearance")  # no order needed: skip the sort
+        codes = self._fit_levels(frame, order="any")  # no order needed: skip the sort
         # per column: column and sign of every level, then of the missing token; the
         # missing entry is read by MISSING (-2) through negative indexing, and the last
         # (UNSEEN, -1) entry is overwritten per row by hashing the unseen value itself
@@ -113,21 +113,24 @@ class HashedCodes(CategoricalEncoder):
             if self.missing == "zeros":
                 index[-1] = -1  # the missing token's column: none
             self.lookups_.append((np.append(index, 0), np.append(sign, 0.0)))
-        return frame, codes
+        return codes
 
     def _hash(self, tokens) -> tuple[np.ndarray, np.ndarray]:
-        index, sign = hash_tokens(tokens, self.n_components)
+        index, sign = hash_tokens(tokens, self.width)
         return index, (sign if self.signed else np.ones_like(sign))
 
-    def _to_output(self, frame: pd.DataFrame, codes: list[np.ndarray]):
-        names, n = self._input_names(), self.n_components
+    def _to_output(self, codes: list[np.ndarray], values: list):
+        """``values[j]``: ``(raw codes, distinct values)`` of column ``j`` at transform."""
+        names, n = self._input_names(), self.width
         columns, signs = [], []
         for j, ((index, sign), col) in enumerate(zip(self.lookups_, codes)):
             column, value = index[col], sign[col]
             unseen = col == UNSEEN
             if unseen.any():  # hash the distinct unseen values only
-                new_codes, uniques = pd.factorize(frame.iloc[:, j].to_numpy()[unseen])
-                new_index, new_sign = self._hash([f"{names[j]}={v}" for v in uniques])
+                raw, uniques = values[j]
+                new_codes, distinct = pd.factorize(raw[unseen])
+                tokens = [f"{names[j]}={v}" for v in uniques.take(distinct).tolist()]
+                new_index, new_sign = self._hash(tokens)
                 column[unseen], value[unseen] = new_index[new_codes], new_sign[new_codes]
             columns.append(column)
             signs.append(value)
@@ -140,20 +143,20 @@ class HashedCodes(CategoricalEncoder):
         return matrix
 
 
-def hash_tokens(tokens, n_components: int) -> tuple[np.ndarray, np.ndarray]:
+def hash_tokens(tokens, width: int) -> tuple[np.ndarray, np.ndarray]:
     """Column and sign of each token, as scikit-learn's ``FeatureHasher`` computes them.
 
     Parameters
     ----------
     tokens : sequence of str
         Distinct tokens (a loop over distinct values, never over rows).
-    n_components : int
+    width : int
         Number of columns.
 
     Returns
     -------
     index : int64 ndarray
-        ``|h| mod n_components`` with ``h`` the signed MurmurHash3_x86_32 of the UTF-8
+        ``|h| mod width`` with ``h`` the signed MurmurHash3_x86_32 of the UTF-8
         token, seed 0.
     sign : float64 ndarray
         ``+1.0`` where ``h >= 0``, else ``-1.0``.
@@ -165,6 +168,6 @@ def hash_tokens(tokens, n_components: int) -> tuple[np.ndarray, np.ndarray]:
     """
     h = np.fromiter((murmurhash3_32(t, seed=0) for t in tokens), dtype=np.int64, count=len(tokens))
     # int64 holds |-2**31| exactly, which gives the value scikit-learn special-cases
-    index = np.abs(h) % n_components
+    index = np.abs(h) % width
     sign = np.where(h >= 0, 1.0, -1.0)
     return index, sign

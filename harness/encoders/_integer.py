@@ -5,7 +5,8 @@ from __future__ import annotations
 import numpy as np
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import UNSEEN, LevelCodeEncoder, check_option
+from harness.encoders._base import UNSEEN, LevelCodeEncoder
+from harness.encoders._rules import Options
 from harness.errors import EncoderInputError
 
 __all__ = ["IntegerCodes"]
@@ -49,6 +50,12 @@ class IntegerCodes(LevelCodeEncoder):
     sklearn.preprocessing.OrdinalEncoder : the same codes in ``order="lexical"``.
     """
 
+    param_rules = {
+        "order": (Options(*ORDERS),),
+        "unseen": (Options(*UNSEEN_RULES),),
+        "missing": (Options(*MISSING_RULES),),
+    }
+
     def __init__(self, order="lexical", unseen="code", missing="code"):
         self.order = order
         self.unseen = unseen
@@ -64,9 +71,6 @@ class IntegerCodes(LevelCodeEncoder):
 
     # --- helpers ---------------------------------------------------------------------------
     def _fit_codes(self, X) -> list[np.ndarray]:
-        check_option(self, "order", ORDERS)
-        check_option(self, "unseen", UNSEEN_RULES)
-        check_option(self, "missing", MISSING_RULES)
         frame = self._frame(X, reset=True)
         codes = self._fit_levels(frame, order=self.order)
         # lookup[codes] maps every code at once; the two trailing entries are read through

@@ -6,13 +6,8 @@ import numpy as np
 import scipy.sparse as sp
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted
 
-from harness.encoders._base import (
-    UNSEEN,
-    LevelCodeEncoder,
-    check_count,
-    check_flag,
-    check_option,
-)
+from harness.encoders._base import UNSEEN, LevelCodeEncoder
+from harness.encoders._rules import Flag, Interval, Nothing, Options
 from harness.errors import EncoderInputError
 
 __all__ = ["OneHotCodes", "indicator_matrix"]
@@ -61,6 +56,15 @@ class OneHotCodes(LevelCodeEncoder):
         Number of output columns per input column.
     """
 
+    param_rules = {
+        "unseen": (Options(*UNSEEN_RULES),),
+        "min_count": (Interval("int", 1, None),),
+        "max_levels": (Interval("int", 1, None), Nothing()),
+        "drop_one": (Flag(),),
+        "sparse": (Flag(),),
+        "missing": (Options(*MISSING_RULES),),
+    }
+
     def __init__(self, unseen="zeros", min_count=1, max_levels=None, drop_one=False, sparse=True,
                  missing="category"):
         self.unseen = unseen
@@ -84,12 +88,6 @@ class OneHotCodes(LevelCodeEncoder):
 
     # --- fit helpers -----------------------------------------------------------------------
     def _fit_codes(self, X) -> list[np.ndarray]:
-        check_option(self, "unseen", UNSEEN_RULES)
-        check_count(self, "min_count", 1)
-        check_count(self, "max_levels", 1, allow_none=True)
-        check_flag(self, "drop_one")
-        check_flag(self, "sparse")
-        check_option(self, "missing", MISSING_RULES)
         frame = self._frame(X, reset=True)
         codes = self._fit_levels(frame, order="lexical")
         self.lookups_, self.labels_ = [], []

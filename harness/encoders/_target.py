@@ -12,7 +12,7 @@ full-data tables and every cross-fitting scheme.
 
 from __future__ import annotations
 
-from numbers import Integral, Real
+from numbers import Integral
 
 import numpy as np
 import pandas as pd
@@ -29,8 +29,9 @@ from sklearn.utils.validation import (
 )
 
 from harness.encoders import _crossfit
-from harness.encoders._base import MISSING, CategoricalEncoder, check_option
-from harness.errors import ConfigError, EncoderInputError
+from harness.encoders._base import MISSING, CategoricalEncoder
+from harness.encoders._rules import Interval, Nothing, Options, Seed, Splitter
+from harness.errors import EncoderInputError
 
 __all__ = ["TargetStatistics", "smooth", "weight_of_evidence"]
 
@@ -125,31 +126,6 @@ def _half_count_bound(rate, n):
     with np.errstate(divide="ignore", invalid="ignore"):
         low, high = ZERO_CELL / (n + ZERO_CELL), n / (n + ZERO_CELL)
     return np.minimum(np.maximum(rate, low), high)
-
-
-# --- parameter validation -------------------------------------------------------------
-def _check_number(name, value, *, low, high=np.inf, open_ends=""):
-    ok = isinstance(value, Real) and not isinstance(value, bool) and np.isfinite(value)
-    if ok:
-        ok = (value > low if "low" in open_ends else value >= low) and (
-            value < high if "high" in open_ends else value <= high
-        )
-    if not ok:
-        lo, hi = ("(" if "low" in open_ends else "["), (")" if "high" in open_ends else "]")
-        raise ConfigError(
-            f"TargetStatistics parameter '{name}' must be a finite number in "
-            f"{lo}{low}, {high}{hi}; got {value!r}."
-        )
-
-
-def _check_cv(cv):
-    if hasattr(cv, "split") and hasattr(cv, "get_n_splits"):
-        return
-    if not isinstance(cv, Integral) or isinstance(cv, bool) or cv < 2:
-        raise ConfigError(
-            "TargetStatistics parameter 'cv' must be an integer >= 2 or a scikit-learn "
-            f"splitter (an object with split and get_n_splits); got {cv!r}."
-        )
 
 
 def _target_kind(y, requested: str):
@@ -286,6 +262,35 @@ class TargetStatistics(CategoricalEncoder):
     Prokhorenkova et al. (2018), NeurIPS; Siddiqi (2006), Credit Risk Scorecards.
     """
 
+    uses_target = True
+    # fitted on the rows they encode: "none" includes each row, "loo" excludes it but
+    # still shifts a level's encoding with the row's own label (Prokhorenkova et al. 2018)
+    leaky_when = {"crossfit": ("none", "loo")}
+    references = ("pargent2022", "prokhorenkova2018")
+    references_when = {
+        "smoothing": {
+            "m-estimate": ("cestnik1990",),
+            "sigmoid": ("micci2001",),
+            "empirical-bayes": ("micci2001",),
+        },
+        "statistic": {"woe": ("siddiqi2006",)},
+    }
+    param_rules = {
+        "smoothing": (Options(*SMOOTHINGS),),
+        "m": (Interval("real", 0, None),),
+        "ramp_center": (Interval("real", None, None),),
+        "ramp_width": (Interval("real", 0, None),),
+        "crossfit": (Options(*CROSSFITS),),
+        "cv": (Interval("int", 2, None), Splitter()),
+        "random_state": (Nothing(), Interval("int", 0, 2**32 - 1), Seed()),
+        "statistic": (Options(*STATISTICS),),
+        "noise": (Interval("real", 0, None),),
+        "holdout_fraction": (Interval("real", 0, 1, closed="neither"),),
+        "missing": (Options(*MISSING_POLICIES),),
+        "target_type": (Options(*TARGET_TYPES),),
+        "prior": (Nothing(), Interval("real", None, None)),
+    }
+
     def __init__(
         self,
         smoothing="m-estimate",
@@ -364,29 +369,8 @@ class TargetStatistics(CategoricalEncoder):
         return "a level of its own" if self.missing == "category" else "the prior (missing = \"prior\")"
 
     # --- fitting ------------------------------------------------------------------------
-    def _check_params(self):
-        for name, allowed in (
-            ("smoothing", SMOOTHINGS),
-            ("crossfit", CROSSFITS),
-            ("statistic", STATISTICS),
-            ("missing", MISSING_POLICIES),
-            ("target_type", TARGET_TYPES),
-        ):
-            check_option(self, name, allowed)
-        _check_number("m", self.m, low=0)
-        _check_number("ramp_center", self.ramp_center, low=-np.inf)
-        _check_number("ramp_width", self.ramp_width, low=0)
-        _check_number("noise", self.noise, low=0)
-        _check_number(
-            "holdout_fraction", self.holdout_fraction, low=0, high=1, open_ends="low high"
-        )
-        if self.prior is not None:
-            _check_number("prior", self.prior, low=-np.inf)
-        _check_cv(self.cv)
-
     def _prepare(self, X, y):
         """Validate; learn levels, target type and prior; return what fitting needs."""
-        self._check_params()
         frame = self._frame(X, reset=True)
         y = column_or_1d(np.asarray(y), warn=True)
         check_consistent_length(frame, y)

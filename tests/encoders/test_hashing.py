@@ -53,13 +53,13 @@ def test_hash_tokens_equal_feature_hasher():
     np.testing.assert_array_equal(ref.data, sign)
 
 
-@pytest.mark.parametrize("n_components", [1, 8, 256])
+@pytest.mark.parametrize("width", [1, 8, 256])
 @pytest.mark.parametrize("signed", [True, False])
-def test_shared_space_equals_feature_hasher(rng, n_components, signed):
+def test_shared_space_equals_feature_hasher(rng, width, signed):
     # reference: scikit-learn 1.9.1 FeatureHasher(input_type="string"), one token list per row
     frame = make_frame(rng)
-    ours = HashedCodes(n_components=n_components, signed=signed).fit(frame)
-    ref = FeatureHasher(n_features=n_components, input_type="string", alternate_sign=signed)
+    ours = HashedCodes(width=width, signed=signed).fit(frame)
+    ref = FeatureHasher(n_features=width, input_type="string", alternate_sign=signed)
     new = pd.DataFrame({"color": ["never seen", None], "size": [1, 99], "flag": [True, None]})
     for data in (frame, new):
         np.testing.assert_array_equal(
@@ -69,7 +69,7 @@ def test_shared_space_equals_feature_hasher(rng, n_components, signed):
 
 def test_per_column_blocks_equal_feature_hasher_per_column(rng):
     frame = make_frame(rng)
-    out = HashedCodes(n_components=16, space="per-column").fit_transform(frame)
+    out = HashedCodes(width=16, space="per-column").fit_transform(frame)
     assert out.shape == (len(frame), 16 * frame.shape[1])
     ref = FeatureHasher(n_features=16, input_type="string")
     for j, name in enumerate(frame.columns):
@@ -79,20 +79,20 @@ def test_per_column_blocks_equal_feature_hasher_per_column(rng):
 
 def test_ndarray_columns_are_named_x0(rng):
     values = make_frame(rng).to_numpy(dtype=object)
-    ours = HashedCodes(n_components=32).fit(values).transform(values)
+    ours = HashedCodes(width=32).fit(values).transform(values)
     frame = pd.DataFrame(values, columns=["x0", "x1", "x2"])
     ref = FeatureHasher(n_features=32, input_type="string").transform(token_lists(frame))
     np.testing.assert_array_equal(ours.toarray(), ref.toarray())
 
 
 def test_output_and_names(rng):
-    enc = HashedCodes(n_components=4, space="per-column").fit(make_frame(rng))
+    enc = HashedCodes(width=4, space="per-column").fit(make_frame(rng))
     out = enc.transform(make_frame(rng))
     assert sp.issparse(out) and out.format == "csr"
     assert list(enc.get_feature_names_out())[:5] == [
         "color__hash_0", "color__hash_1", "color__hash_2", "color__hash_3", "size__hash_0"
     ]
-    assert list(HashedCodes(n_components=2).fit(make_frame(rng)).get_feature_names_out()) == [
+    assert list(HashedCodes(width=2).fit(make_frame(rng)).get_feature_names_out()) == [
         "hash_0", "hash_1"
     ]
 
@@ -100,7 +100,7 @@ def test_output_and_names(rng):
 @pytest.mark.parametrize(
     ("param", "value", "match"),
     [
-        ("n_components", 0, "'n_components' must be an integer >= 1"),
+        ("width", 0, "'width' must be an integer >= 1"),
         ("space", "separate", "'space' must be one of 'shared', 'per-column'"),
         ("signed", 1, "'signed' must be true or false"),
     ],
@@ -112,7 +112,7 @@ def test_bad_parameter(rng, param, value, match):
 
 def test_float_column_at_transform_hashes_like_the_fitted_integers():
     # a NaN turns an integer column float; 1.0 must still hash as the fitted "size=1"
-    enc = HashedCodes(n_components=64).fit(pd.DataFrame({"size": [1, 2, 3]}))
+    enc = HashedCodes(width=64).fit(pd.DataFrame({"size": [1, 2, 3]}))
     out = enc.transform(pd.DataFrame({"size": [1.0, np.nan, 2.0]})).toarray()
     ref = FeatureHasher(n_features=64, input_type="string")
     expected = ref.transform([["size=1"], ["size=<missing>"], ["size=2"]]).toarray()

@@ -12,6 +12,7 @@ import json
 import numpy as np
 import pandas as pd
 
+from harness.grid import SCHEMA_VERSION
 from harness.store import NAMES
 
 
@@ -31,12 +32,15 @@ def fake_results(rng, *, n_datasets=4, encoders=("onehot", "codes", "te"), model
     df[["dataset", "encoder", "model", "fold"]] = keys
     df["repeat"] = 0
     df["cell_id"] = [f"c{i:05d}" for i in range(n)]
-    df["schema_version"], df["config_hash"], df["status"], df["error"] = 1, "h", "ok", ""
+    df["schema_version"], df["config_hash"], df["status"], df["error"] = SCHEMA_VERSION, "h", "ok", ""
     df["task"] = task
     is_target = keys["encoder"].str.contains(r"(?:^|_)te", regex=True) | keys["encoder"].isin(list(leaky))
     df["encoder_kind"] = np.where(is_target, "target", keys["encoder"])
     df["encoder_params"] = np.where(keys["encoder"].isin(list(leaky)), '{"crossfit": "none"}',
                                     np.where(is_target, '{"crossfit": "kfold"}', "{}"))
+    # the encoder declarations, as the runner records them
+    df["uses_target"] = is_target.to_numpy()
+    df["leaky"] = keys["encoder"].isin(list(leaky)).to_numpy()
     df["model_family"] = keys["model"]
     df["model_params"] = "{}"
     shift = keys["encoder"].map(lambda e: skill.get(e, 0.0)).to_numpy(float)

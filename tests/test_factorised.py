@@ -1,0 +1,108 @@
+"""Factorising each dataset once changes no number.
+
+The runner hands every encoder ``category`` columns built once per dataset
+(``harness.encoders.factorised``); the encoders read their codes directly. Outputs must
+equal those on the original columns, and the quickstart grid's metrics must equal those
+computed before the change (a fixture made from the earlier code; see
+``tests/fixtures/README.md``).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from harness.config import load_config
+from harness.encoders import KINDS, build, factorised
+from harness.metrics import METRICS
+from harness.runner import execute, load_datasets, outer_splits, plan
+from harness.store import read_results
+
+ROOT = Path(__file__).resolve().parents[1]
+FIXTURE = ROOT / "tests" / "fixtures" / "quickstart_metrics_main.csv"
+KEYS = ["dataset", "encoder", "model", "repeat", "fold"]
+SETTINGS = [(k, {}) for k in KINDS] + [("target", {"crossfit": c}) for c in ("none", "loo", "ordered")]
+
+
+def _dense(out) -> np.ndarray:
+    return out.toarray() if hasattr(out, "toarray") else np.asarray(out)
+
+
+def _same(a, b) -> bool:
+    if isinstance(a, pd.DataFrame):  # native categories: same codes and category tables
+        return all(
+            np.array_equal(a[c].cat.codes, b[c].cat.codes)
+            and list(a[c].cat.categories) == list(b[c].cat.categories)
+            for c in a.columns
+        )
+    return bool(np.array_equal(_dense(a), _dense(b), equal_nan=True))
+
+
+def _awkward(rng, n=400) -> pd.DataFrame:
+    """Invented columns of every dtype the fast paths take (demo data)."""
+    text = rng.choice(["b", "a", "Ünï", "c", "B"], size=n).astype(object)
+    text[rng.random(n) < 0.1] = None
+    cat = pd.Categorical(rng.choice(["x", "y", "z"], size=n), categories=["w", "z", "y", "x"])
+    return pd.DataFrame({
+        "object": text,
+        "str": pd.Series(text, dtype="str"),
+        "python_str": pd.Series(text, dtype=pd.StringDtype("python")),
+        "category": cat,  # "w" is an unused category
+        "bool": rng.random(n) < 0.3,
+        "boolean": pd.array(np.where(rng.random(n) < 0.1, None, rng.random(n) < 0.5), dtype="boolean"),
+        "int": rng.integers(0, 7, size=n),
+        "mixed": pd.Series(rng.choice([1, 2, "1", "x"], size=n).tolist(), dtype=object),
+    })
+
+
+@pytest.mark.parametrize(("kind", "params"), SETTINGS, ids=[f"{k}{p}" for k, p in SETTINGS])
+def test_encoders_give_the_same_output_on_factorised_columns(kind, params, rng):
+    frame = _awkward(rng)
+    y = (rng.random(len(frame)) < 0.4).astype(int)
+    codes = factorised(frame, frame.columns)
+    assert all(isinstance(codes[c].dtype, pd.CategoricalDtype) for c in codes)
+    train, test = np.arange(300), np.arange(300, 400)
+    for X in (frame, codes):
+        assert len(X) == 400
+    outs = []
+    for X in (frame, codes):
+        enc = build(kind, **params, **({"random_state": 0} if kind == "target" else {}))
+        fitted = enc.fit_transform(X.iloc[train], y[train])
+        outs.append((fitted, enc.transform(X.iloc[test]), enc.get_feature_names_out()))
+    assert _same(outs[0][0], outs[1][0]) and _same(outs[0][1], outs[1][1])
+    assert list(outs[0][2]) == list(outs[1][2])
+
+
+def test_quickstart_folds_encode_identically_after_factorising():
+    """Every quickstart dataset x fold x encoder kind: same matrices from codes as from the
+    loaded columns (the fast half of the bit-identity promise)."""
+    cfg = load_config(ROOT / "configs" / "quickstart.toml")
+    for label, ds in load_datasets(cfg).items():
+        codes = factorised(ds.X, ds.categorical)
+        cat = list(ds.categorical)
+        split = outer_splits(ds, cfg.protocol.folds, 1, True, cfg.seed)
+        for tr, te in list(split.values())[:2]:
+            y = ds.y.iloc[tr].to_numpy()
+            for kind, params in SETTINGS:
+                outs = []
+                for X in (ds.X, codes):
+                    target_type = "continuous" if ds.task == "regression" else ds.task
+                    extra = {"random_state": 3, "target_type": target_type} if kind == "target" else {}
+                    enc = build(kind, **params, **extra)
+                    outs.append((enc.fit_transform(X.iloc[tr][cat], y), enc.transform(X.iloc[te][cat])))
+                assert _same(outs[0][0], outs[1][0]) and _same(outs[0][1], outs[1][1]), (label, kind)
+
+
+@pytest.mark.slow
+def test_quickstart_metrics_are_bit_identical_to_before(tmp_path):
+    execute(plan(load_config(ROOT / "configs" / "quickstart.toml")), tmp_path, jobs=2, progress=False)
+    df = read_results(tmp_path)
+    metrics = list(METRICS) + [f"train_{m}" for m in METRICS]
+    now = df[KEYS + ["status", "n_features_out"] + metrics].sort_values(KEYS).reset_index(drop=True)
+    for m in metrics:
+        now[m] = [float(v).hex() if pd.notna(v) else "" for v in now[m]]
+    before = pd.read_csv(FIXTURE, dtype=str, keep_default_na=False)
+    pd.testing.assert_frame_equal(now.astype(str), before, check_dtype=False)
