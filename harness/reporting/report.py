@@ -133,7 +133,7 @@ def _methods_text(a: Analysis) -> str:
         f"Each dataset × encoder × model was evaluated by {_protocol_text(man)}. "
         f"{_grouping_text(man)}"
         f"{_policy_text(man)}"
-        f"{describe_set_aside(run.set_aside) + ' ' if run.set_aside else ''}The primary "
+        f"{describe_set_aside(a.run.set_aside) + ' ' if a.run.set_aside else ''}The primary "
         f"metric was {mets} (ROC AUC: macro one-vs-rest average for multiclass targets). "
         f"Per-dataset means carry corrected resampled t intervals ({_bib.cite('nadeau2003')}; "
         f"J = repeats × folds resamples, {_bib.cite('bouckaert2004')}). Across datasets, "
