@@ -162,7 +162,7 @@ def _hand_written(config) -> pd.DataFrame:
                             steps.append(FunctionTransformer(lambda m: m.toarray(), accept_sparse=True))
                         steps.append(_models.build_model(
                             model.family, ds.task, seed=(config.seed + repeat) % 2**31,
-                            params=dict(model.params), sparse_input=sparse and family.sparse))
+                            params=dict(model.params), n_numeric=len(num)))
                         pipe = make_pipeline(*steps).fit(X_tr, y_tr)
                         if ds.task == "regression":
                             pred_te, pred_tr = pipe.predict(X_te), pipe.predict(X_tr)

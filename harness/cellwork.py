@@ -7,6 +7,7 @@ failing encoder or model becomes rows with status ``failed``, ``timeout`` or
 
 from __future__ import annotations
 
+import inspect
 import json
 import time
 import traceback
@@ -126,8 +127,12 @@ def _encode(dataset, job: UnitJob):
                 # the dataset knows its task; guessing from y would call integer-valued
                 # regression targets multiclass
                 enc.set_params(target_type=TARGET_TYPE[dataset.task])
+            fit_args = {}
+            if dataset.groups is not None and "groups" in inspect.signature(enc.fit_transform).parameters:
+                # grouped outer folds: the encoder's inner folds keep each group whole too
+                fit_args["groups"] = dataset.groups.iloc[job.train_idx].to_numpy()
             t0 = time.perf_counter()
-            cat_train = enc.fit_transform(X_train[cat], y_train) if cat else None
+            cat_train = enc.fit_transform(X_train[cat], y_train, **fit_args) if cat else None
             t1 = time.perf_counter()
             cat_test = enc.transform(X_test[cat]) if cat else None
             t2 = time.perf_counter()
@@ -244,7 +249,7 @@ def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test, enc: _Encoded
     else:
         model = _models.build_model(
             cell.model.family, task, seed=(job.seed + cell.repeat) % 2**31, params=dict(cell.model.params),
-            sparse_input=sp.issparse(train),
+            n_numeric=len(dataset.numeric),
         )
     t0 = time.perf_counter()
     model.fit(train, y_train)

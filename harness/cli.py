@@ -31,7 +31,10 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--data", help="a private CSV/Parquet file to use as the only dataset")
     run.add_argument("--target", help="target column of --data")
     run.add_argument("--config", dest="config_opt", help="config whose encoders, models and protocol --data uses")
-    run.add_argument("--out", help="output directory (default results/<experiment name>)")
+    run.add_argument("--alias", help="name of the --data dataset in every output (hides the file name)")
+    run.add_argument("--description", help="one-line description of the --data experiment for the report")
+    run.add_argument("--out", help="output directory (default results/<experiment name>; with --data, "
+                     "results/private-<name>-<config hash>)")
     run.add_argument("--jobs", type=int, help="parallel worker processes")
     run.add_argument("--backend", choices=["local", "dask"], help="execution backend")
     run.add_argument("--scheduler", help="Dask scheduler address (tcp://host:8786); none = local cluster")
@@ -107,24 +110,33 @@ def _load_for_run(args):
             raise ConfigError("give either a CONFIG or --data FILE (with --config for its settings), not both.")
         if not args.target:
             raise ConfigError("--data needs --target COLUMN naming the target column of the file.")
-        return private_config(args.data, args.target, args.config_opt or DEFAULT_PRIVATE_CONFIG)
+        return private_config(args.data, args.target, args.config_opt or DEFAULT_PRIVATE_CONFIG,
+                              alias=args.alias, description=args.description)
+    if args.alias or args.description:
+        raise ConfigError("--alias and --description name a --data dataset; with a CONFIG, set `alias` in its "
+                          "[datasets.<label>] table and `description` in [experiment].")
     if not args.config:
         raise ConfigError("`harness run` needs a CONFIG file (e.g. configs/quickstart.toml) or --data FILE --target COLUMN.")
     return load_config(args.config)
 
 
 def cmd_run(args) -> int:
+    from harness.config import check_jobs
     from harness.runner import execute, plan
 
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be an integer >= 1; got {args.jobs}.")
     config = _load_for_run(args)
+    if args.jobs is not None and not (args.scheduler or config.execution.scheduler):
+        check_jobs(args.jobs, "--jobs")
     the_plan = plan(config, args.only)
     out = Path(args.out or config.output)
     if not the_plan.cells:
         raise ConfigError(f"--only '{args.only}' matches no cell; labels are dataset, encoder and model names from {config.path}.")
     if args.dry_run:
-        return _dry_run(the_plan, out)
+        code = _dry_run(the_plan, out)
+        _warn_few_folds(config)
+        return code
     summary = execute(
         the_plan, out, jobs=args.jobs, backend=args.backend, scheduler=args.scheduler, fresh=args.fresh,
         progress=not args.quiet, retry_failed=args.retry_failed,
@@ -134,10 +146,29 @@ def cmd_run(args) -> int:
         f"{summary.total} cells ({summary.computed} computed, {summary.reused} reused) in {summary.wall_s:.1f} s: {counts}.\n"
         f"results: {out / 'results.sqlite'}  table: {out / 'results.csv'}  manifest: {out / 'manifest.json'}"
     )
+    if summary.set_aside:
+        from harness.store import describe_set_aside
+
+        _say("note: " + describe_set_aside(summary.set_aside))
     if summary.interrupted:
         _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
         return 130
+    _warn_few_folds(config)
     return 0
+
+
+def _warn_few_folds(config) -> None:
+    """One dataset is answered from its folds: fewer than 10 in total leave the tests weak."""
+    from harness.stats import MIN_FOLDS_ONE_DATASET
+
+    p = config.protocol
+    total = p.folds * p.repeats
+    if len(config.datasets) == 1 and total < MIN_FOLDS_ONE_DATASET:
+        need = -(-MIN_FOLDS_ONE_DATASET // p.folds)
+        _say(f"warning: one dataset with {p.folds} folds x {p.repeats} repeat(s) = {total} "
+             f"outer folds; the one-dataset decision rests on fold-paired differences and wants "
+             f"at least {MIN_FOLDS_ONE_DATASET}: set `protocol.repeats = {need}` in "
+             f"{config.path} (or pass --config with such a protocol).")
 
 
 def _dry_run(the_plan, out: Path) -> int:
@@ -154,6 +185,9 @@ def _dry_run(the_plan, out: Path) -> int:
         f"{cfg.name}: {len(cfg.datasets)} datasets x {len(cfg.encoders)} encoders x {len(cfg.models)} models x "
         f"{cfg.protocol.repeats} repeats x {cfg.protocol.folds} folds = {n} cells; {todo} to compute, {n - todo} already in {out}."
     )
+    stale = len(done - {c.cell_id for c in the_plan.grid})
+    if stale:
+        print(f"  {stale} stored row(s) of cells not in this config would be set aside as superseded.")
     for cell in the_plan.cells:
         print(("  todo " if cell.cell_id not in done else "  done ") + cell.path)
     return 0
@@ -161,24 +195,34 @@ def _dry_run(the_plan, out: Path) -> int:
 
 def cmd_status(args) -> int:
     from harness.runner import RETRY_STATUSES
-    from harness.store import read_results
+    from harness.store import Store, read_results
 
     df = read_results(args.dir)
-    print(f"{args.dir}: {len(df)} rows")
+    with Store(args.dir, lock=False, create=False) as store:
+        grid, aside = store.grid(), store.set_aside()
+    finished = int(df["cell_id"].isin(grid).sum()) if grid else len(df)
+    missing = len(grid) - finished if grid else 0
+    print(f"{args.dir}: {len(grid) or len(df)} cells in the current grid: {finished} finished, {missing} missing; "
+          f"{sum(aside.values())} superseded rows set aside")
     if len(df):
         table = df.pivot_table(index="dataset", columns="status", values="cell_id", aggfunc="count", fill_value=0)
         print(table.to_string())
         failed = df[df["status"].isin(RETRY_STATUSES)]
         for _, row in failed.head(10).iterrows():
             print(f"  {row['status']}: {row['dataset']}/{row['encoder']}/{row['model']} r{row['repeat']}f{row['fold']}: {row['error'][:150]}")
+    for reason, n in aside.items():
+        print(f"  superseded ({n} rows): {reason}")
     return 0
 
 
 def cmd_export(args) -> int:
-    from harness.store import export, read_results
+    from harness.store import describe_set_aside, export, read_results, read_set_aside
 
     path = export(read_results(args.dir), args.to)
-    print(f"wrote {path}")
+    print(f"wrote {path} (the current grid's rows only)")
+    note = describe_set_aside(read_set_aside(args.dir))
+    if note:
+        _say("note: " + note)
     return 0
 
 

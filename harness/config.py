@@ -6,10 +6,14 @@ and suggests the closest valid key for a typo. Nothing downstream re-validates.
 
 from __future__ import annotations
 
+import dataclasses
+import functools
 import hashlib
 import inspect
 import itertools
 import json
+import math
+import os
 import tomllib
 import types
 import typing
@@ -21,6 +25,7 @@ from harness import encoders as _encoders
 from harness import models as _models
 from harness.errors import ConfigError, HarnessError, closest
 from harness.metrics import CLASSIFICATION_METRICS, METRICS, REGRESSION_METRICS
+from harness.stats import DecisionRule
 
 __all__ = [
     "Config",
@@ -34,6 +39,14 @@ __all__ = [
 ]
 
 BACKENDS = ("local", "dask")
+# Sane limits on numeric keys: beyond them a run never answers or exhausts the machine.
+MAX_FOLDS = 100
+MAX_REPEATS = 100
+MAX_RETRIES = 10
+MAX_TIMEOUT_S = 7 * 24 * 3600  # one week per cell
+MAX_MEMORY_MB = 4 * 1024 * 1024  # 4 TiB per cell
+JOBS_PER_CORE = 4  # workers beyond this many per core only compete for the cores
+DEFAULT_MAX_CELLS = 50_000  # grid size above which a run must be asked for explicitly
 
 
 @dataclass(frozen=True)
@@ -79,6 +92,7 @@ class Execution:
     cell_timeout_s: float = 900.0
     cell_memory_mb: int = 0
     retries: int = 1
+    max_cells: int = DEFAULT_MAX_CELLS
 
 
 @dataclass(frozen=True)
@@ -94,11 +108,12 @@ class Config:
     models: tuple[ModelSpec, ...]
     execution: Execution
     raw: dict = field(repr=False)
+    decision: DecisionRule = field(default_factory=DecisionRule)
 
     @property
     def hash(self) -> str:
-        """Hash of everything that affects results (execution settings excluded)."""
-        payload = {k: v for k, v in self.raw.items() if k != "execution"}
+        """Hash of everything that affects results (execution and decision excluded)."""
+        payload = {k: v for k, v in self.raw.items() if k not in ("execution", "decision")}
         payload["experiment"] = {k: v for k, v in payload.get("experiment", {}).items() if k != "output"}
         return digest(payload)
 
@@ -111,13 +126,21 @@ def digest(obj, length: int = 16) -> str:
 
 # --------------------------------------------------------------------------- rules
 # key -> (checker, description of allowed values, default)
-def _int_at_least(lo):
-    return (lambda v: isinstance(v, int) and not isinstance(v, bool) and v >= lo, f"an integer >= {lo}")
+def _int_at_least(lo, hi=None):
+    def ok(v):
+        return isinstance(v, int) and not isinstance(v, bool) and v >= lo and (hi is None or v <= hi)
+
+    return ok, f"an integer >= {lo}" + ("" if hi is None else f" and <= {hi:,}")
 
 
-def _number_at_least(lo):
-    ok = lambda v: isinstance(v, (int, float)) and not isinstance(v, bool) and v >= lo  # noqa: E731
-    return ok, f"a number >= {lo}"
+def _number_at_least(lo, hi=None):
+    def ok(v):
+        return (isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+                and v >= lo and (hi is None or v <= hi))
+
+    return ok, f"a finite number >= {lo}" + ("" if hi is None else f" and <= {hi:,}")
+
+
 
 
 _STR = (lambda v: isinstance(v, str) and v != "", "a non-empty string")
@@ -138,18 +161,24 @@ _BANDS = (
     "two increasing integers [low_max, medium_max], e.g. [10, 100]",
 )
 
-SECTIONS = ("experiment", "protocol", "datasets", "encoders", "models", "execution")
+SECTIONS = ("experiment", "protocol", "datasets", "encoders", "models", "execution", "decision")
+
+
+def _number_between(lo, hi):
+    ok = lambda v: isinstance(v, (int, float)) and not isinstance(v, bool) and lo < v < hi  # noqa: E731
+    return ok, f"a number strictly between {lo} and {hi}"
+
 
 RULES = {
     "experiment": {
         "name": (_STR, None),
-        "seed": (_int_at_least(0), 0),
+        "seed": (_int_at_least(0, 2**32 - 1), 0),
         "description": ((lambda v: isinstance(v, str), "a string"), ""),
         "output": (_STR, None),
     },
     "protocol": {
-        "folds": (_int_at_least(2), 5),
-        "repeats": (_int_at_least(1), 1),
+        "folds": (_int_at_least(2, MAX_FOLDS), 5),
+        "repeats": (_int_at_least(1, MAX_REPEATS), 1),
         "stratify": (_BOOL, True),
         "group": (_STR, None),
         "metrics": (_list_of(METRICS), list(METRICS)),
@@ -161,9 +190,18 @@ RULES = {
         "jobs": (_int_at_least(1), 1),
         "backend": (_one_of(BACKENDS), "local"),
         "scheduler": (_STR, None),
-        "cell_timeout_s": (_number_at_least(1), 900.0),
-        "cell_memory_mb": (_int_at_least(0), 0),
-        "retries": (_int_at_least(0), 1),
+        "cell_timeout_s": (_number_at_least(1, MAX_TIMEOUT_S), 900.0),
+        "cell_memory_mb": (_int_at_least(0, MAX_MEMORY_MB), 0),
+        "retries": (_int_at_least(0, MAX_RETRIES), 1),
+        "max_cells": (_int_at_least(1), DEFAULT_MAX_CELLS),
+    },
+    # the decision rule (harness.stats.DecisionRule); read by the report, not by the runner
+    "decision": {
+        "reference": (_STR, None),
+        "margin": (_number_between(0, 0.5), 0.01),
+        "alpha": (_number_between(0, 0.5), 0.05),
+        "min_saving": (_number_between(-1e-12, 1), 0.20),
+        "min_saving_s": (_number_at_least(0), 0.01),
     },
 }
 
@@ -205,7 +243,11 @@ def parse_config(raw: dict, path: str = "<config>") -> Config:
             )
         if not isinstance(raw[section], dict):
             raise ConfigError(f"`{section}` in {path} must be a table of [{section}.<label>] tables; got {raw[section]!r}.")
+    _check_finite(raw, path, "")
     sections = {name: _fill(raw.get(name, {}), RULES[name], path, name) for name in RULES}
+    if not sections["execution"]["scheduler"]:  # workers of a remote cluster are not forked here
+        check_jobs(sections["execution"]["jobs"], f"`execution.jobs` in {path}")
+    _check_grid_size(raw, sections, path)
     exp = sections["experiment"]
     if exp["name"] is None:
         exp["name"] = Path(path).stem
@@ -215,6 +257,7 @@ def parse_config(raw: dict, path: str = "<config>") -> Config:
     models = _parse_models(raw["models"], path)
     datasets = _parse_datasets(raw["datasets"], path)
     _check_native(encoders, models, path)
+    _check_reference(sections["decision"], encoders, path)
     normalized = {**raw, **sections}
     return Config(
         path=path,
@@ -237,7 +280,18 @@ def parse_config(raw: dict, path: str = "<config>") -> Config:
         models=models,
         execution=Execution(**sections["execution"]),
         raw=normalized,
+        decision=DecisionRule.from_mapping(sections["decision"]),
     )
+
+
+def _check_reference(decision: dict, encoders, path: str) -> None:
+    ref = decision["reference"]
+    labels = [e.label for e in encoders]
+    if ref is not None and ref not in labels:
+        raise ConfigError(
+            f"`decision.reference` in {path} must be an encoder label of the config; got "
+            f"{ref!r}; allowed: {', '.join(labels)}.{closest(ref, labels)} A list-expanded "
+            "encoder is named by its variant label, e.g. 'te(m=1.0)'.")
 
 
 def _check_keys(table: dict, allowed, path: str, where: str) -> None:
@@ -267,6 +321,49 @@ def _fill(table: dict, rules: dict, path: str, section: str) -> dict:
     return out
 
 
+def _check_finite(node, path: str, where: str) -> None:
+    """TOML allows inf and nan; no key of a config means either."""
+    if isinstance(node, dict):
+        for key, value in node.items():
+            _check_finite(value, path, f"{where}.{key}" if where else str(key))
+    elif isinstance(node, list):
+        for value in node:
+            _check_finite(value, path, where)
+    elif isinstance(node, float) and not math.isfinite(node):
+        raise ConfigError(f"`{where}` in {path} must be a finite number; got {node!r}. Give a finite value.")
+
+
+def check_jobs(jobs: int, where: str) -> None:
+    """Worker processes are capped at a multiple of this machine's cores."""
+    cores = os.cpu_count() or 1
+    if jobs > JOBS_PER_CORE * cores:
+        raise ConfigError(
+            f"{where} must be at most {JOBS_PER_CORE} x the {cores} core(s) of this machine = "
+            f"{JOBS_PER_CORE * cores}; got {jobs:,}. Each job is a worker process: more than that only "
+            "competes for the cores. Lower it (the number of cores is a good choice)."
+        )
+
+
+def _n_variants(body) -> int:
+    if not isinstance(body, dict):
+        return 1
+    return math.prod(len(v) for k, v in body.items() if isinstance(v, list) and k != "kind")
+
+
+def _check_grid_size(raw: dict, sections: dict, path: str) -> None:
+    """Refuse a grid above ``execution.max_cells`` before any list is expanded."""
+    prot, limit = sections["protocol"], sections["execution"]["max_cells"]
+    n_enc = sum(_n_variants(b) for b in raw["encoders"].values())
+    size = len(raw["datasets"]) * n_enc * len(raw["models"]) * prot["repeats"] * prot["folds"]
+    if size > limit:
+        raise ConfigError(
+            f"{path} describes {size:,} cells ({len(raw['datasets'])} datasets x {n_enc:,} encoder "
+            f"variants x {len(raw['models'])} models x {prot['repeats']} repeats x {prot['folds']} folds), "
+            f"more than `execution.max_cells` = {limit:,}. Shorten the lists of encoder values, or raise "
+            "`execution.max_cells` if you mean it."
+        )
+
+
 def _check_primary(prot: dict, path: str) -> None:
     """The primary metrics are always recorded, listed in `metrics` or not."""
     for key in ("primary", "primary_regression"):
@@ -274,9 +371,15 @@ def _check_primary(prot: dict, path: str) -> None:
             prot["metrics"] = list(prot["metrics"]) + [prot[key]]
 
 
-def _expand(params: dict) -> list[tuple[str, dict]]:
+def _expand(params: dict, path: str = "<config>", where: str = "") -> list[tuple[str, dict]]:
     """One variant per combination of list values; suffix names the varying values."""
     varying = [k for k, v in params.items() if isinstance(v, list)]
+    for k in varying:
+        if not params[k]:
+            raise ConfigError(
+                f"`{where}.{k}` in {path} is an empty list; a list expands into one variant per value, "
+                "so an empty one would silently drop the encoder. Give at least one value."
+            )
     if not varying:
         return [("", params)]
     out = []
@@ -302,7 +405,7 @@ def _parse_encoders(table: dict, path: str) -> tuple[EncoderSpec, ...]:
                 f"{', '.join(_encoders.KINDS)}.{closest(kind, _encoders.KINDS)}"
             )
         params = {k: v for k, v in body.items() if k != "kind"}
-        for suffix, variant in _expand(params):
+        for suffix, variant in _expand(params, path, where):
             _validate_encoder(kind, variant, path, where)
             specs.append(EncoderSpec(label + suffix, kind, variant))
     _check_unique([s.label for s in specs], "encoder", path)
@@ -336,19 +439,85 @@ def _parse_models(table: dict, path: str) -> tuple[ModelSpec, ...]:
         if max_rows is not None and not _int_at_least(1)[0](max_rows):
             raise ConfigError(f"`{where}.max_rows` in {path} must be an integer >= 1; got {max_rows!r}.")
         timeout = body.get("cell_timeout_s")
-        if timeout is not None and not _number_at_least(0.001)[0](timeout):
-            raise ConfigError(f"`{where}.cell_timeout_s` in {path} must be a number > 0; got {timeout!r}.")
+        if timeout is not None and not _number_at_least(0.001, MAX_TIMEOUT_S)[0](timeout):
+            raise ConfigError(
+                f"`{where}.cell_timeout_s` in {path} must be a finite number > 0 and <= {MAX_TIMEOUT_S:,}; got {timeout!r}."
+            )
         params = {k: (tuple(v) if isinstance(v, list) else v) for k, v in body.items() if k not in _models.HARNESS_KEYS}
         allowed = _models.family_params(family)
         for key in params:
-            if allowed and key not in allowed:
+            if key not in allowed:
+                shown = ", ".join(allowed) if len(allowed) <= 60 else (
+                    f"the estimator's parameters and the library's parameter names and aliases ({len(allowed)} names)")
                 raise ConfigError(
                     f"model family '{family}' has no parameter '{key}' (at {where}.{key} in {path}); "
-                    f"allowed: {', '.join(allowed)}.{closest(key, allowed)}"
+                    f"allowed: {shown}.{closest(key, allowed)}"
                 )
+        _probe_model(family, tuple(sorted(params.items(), key=lambda kv: kv[0])), path, where)
         specs.append(ModelSpec(label, family, params, max_rows, timeout))
     _check_unique([s.label for s in specs], "model", path)
     return tuple(specs)
+
+
+@functools.lru_cache(maxsize=256)
+def _probe_fit(family: str, items: tuple) -> str:
+    """Fit the family's classifier and regressor with ``items`` on a tiny table; "" or the error.
+
+    Types and ranges are the estimator's own checks (scikit-learn's parameter
+    constraints, LightGBM's config checks): a value that would fail every cell fails here.
+    """
+    import warnings
+
+    import numpy as np
+
+    rng = np.random.RandomState(0)
+    X = rng.normal(size=(40, 3))
+    targets = {"binary": np.r_[np.zeros(20), np.ones(20)], "regression": X[:, 0] + rng.normal(size=40)}
+    for task, y in targets.items():
+        try:
+            with warnings.catch_warnings(), _quiet_native_output():
+                warnings.simplefilter("ignore")
+                _models.build_model(family, task, seed=0, params=dict(items)).fit(X, y)
+        except Exception as exc:  # noqa: BLE001 - any rejection of a value is the user's to fix
+            text = str(exc).strip()
+            if "n_samples" in text:
+                continue  # a bound set by the tiny probe table's size (max_samples=1000): the data decides
+            return f"{type(exc).__name__}: {text.splitlines()[0] if text else ''}"
+    return ""
+
+
+def _probe_model(family: str, items: tuple, path: str, where: str) -> None:
+    for key, value in items:
+        if isinstance(value, tuple) and not value:
+            raise ConfigError(f"`{where}.{key}` in {path} is an empty list; give a value.")
+    problem = _probe_fit(family, items)
+    if problem:
+        shown = ", ".join(f"{k} = {v!r}" for k, v in items)
+        raise ConfigError(
+            f"`{where}` in {path}: the {family} estimator rejects its parameters ({shown}) in a probe "
+            f"fit on a tiny table: {problem.rstrip('.')}. Fix the value of that key (see the "
+            "estimator's documentation for its types and ranges)."
+        )
+
+
+class _quiet_native_output:
+    """Silence C-level stdout/stderr (LightGBM prints its fatal checks before raising)."""
+
+    def __enter__(self):
+        import sys
+
+        sys.stdout.flush()
+        sys.stderr.flush()
+        self._saved = [os.dup(1), os.dup(2)]
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, 1)
+        os.dup2(null, 2)
+        os.close(null)
+
+    def __exit__(self, *exc):
+        for fd, saved in zip((1, 2), self._saved):
+            os.dup2(saved, fd)
+            os.close(saved)
 
 
 def _parse_datasets(table: dict, path: str) -> tuple[DatasetSpec, ...]:
@@ -439,10 +608,19 @@ def _check_native(encoders, models, path: str) -> None:
         )
 
 
-def private_config(data: str, target: str, base: str | Path) -> Config:
+PRIVATE_TITLE = "private dataset"
+
+
+def private_config(data: str, target: str, base: str | Path, alias: str | None = None,
+                   description: str | None = None) -> Config:
     """The encoders, models and protocol of ``base`` with one private file as the dataset.
 
-    Used by ``harness run --data FILE --target COLUMN [--config BASE]``.
+    Used by ``harness run --data FILE --target COLUMN [--config BASE] [--alias NAME]
+    [--description TEXT]``. The experiment is named after ``alias`` (else "private
+    dataset"), its description is ``description`` (never the borrowed config's), no output
+    carries the file's path (only its name, and not even that with an alias), and the
+    default output directory ``results/private-<name>-<config hash>`` is its own for
+    every combination of file, target, alias and settings.
     """
     base = Path(base)
     if not base.is_file():
@@ -451,10 +629,21 @@ def private_config(data: str, target: str, base: str | Path) -> Config:
             "(run from the project folder for the default configs/team-default.toml)."
         )
     raw = _read_toml(base)
-    stem = Path(data).stem
-    raw["datasets"] = {stem: {"source": "file", "path": str(data), "target": target}}
+    label = _slug(alias) if alias else _slug(Path(data).stem)
+    spec = {"source": "file", "path": str(data), "target": target, **({"alias": alias} if alias else {})}
+    raw["datasets"] = {label: spec}
     experiment = dict(raw.get("experiment", {}))
-    experiment["name"] = f"private-{stem}"
+    experiment["name"] = alias or PRIVATE_TITLE
+    experiment["description"] = description or ""
     experiment.pop("output", None)
     raw["experiment"] = experiment
-    return parse_config(raw, f"{base} with --data {data}")
+    shown = alias or Path(data).name
+    cfg = parse_config(raw, f"{base} with --data {shown}")
+    return dataclasses.replace(cfg, output=f"results/private-{label}-{cfg.hash[:8]}")
+
+
+def _slug(text: str) -> str:
+    """A name safe in a path and a config label: letters, digits, '-' and '_'."""
+    import re
+
+    return re.sub(r"[^A-Za-z0-9_-]+", "-", text).strip("-") or "dataset"

@@ -1,20 +1,34 @@
-"""Config -> the ordered list of cells (a pure function).
+"""Config -> the ordered list of cells (a pure function of the config and the data's checksums).
 
 A cell is one dataset x encoder x model x repeat x fold. Cells are ordered so that all
 models of one *encoding unit* (dataset, repeat, fold, encoder) are adjacent: the runner
 encodes once per unit and trains every model of the unit on that one matrix.
+
+A cell's *identity* is everything that determines its numbers: the dataset's source
+settings and content checksum, the encoder's and the model's resolved parameters
+(defaults filled in), the protocol, the seed, the position (repeat, fold) and the version
+of the code that computes it. ``cell_id`` is the digest of the identity, so a changed
+setting, a replaced data file or a new harness version gives new cells, and the store
+sets the old rows aside (``store.Store.bind_grid``).
 """
 
 from __future__ import annotations
 
 import fnmatch
-from dataclasses import dataclass
+import json
+from dataclasses import dataclass, field
 
+from harness import encoders as _encoders
+from harness import models as _models
 from harness.config import Config, DatasetSpec, EncoderSpec, ModelSpec, digest
 
-__all__ = ["SCHEMA_VERSION", "Cell", "build_grid", "select", "units"]
+__all__ = ["SCHEMA_VERSION", "CODE_VERSION", "Cell", "build_grid", "select", "units", "changed_parts"]
 
-SCHEMA_VERSION = 2  # 2: uses_target and leaky columns (encoder declarations)
+SCHEMA_VERSION = 3  # 2: grid and superseded tables; 3: uses_target and leaky columns
+# Bump when a change to the code alters the numbers a cell records (an encoder's
+# arithmetic, a model default, the scaling policy, the metrics): every cell then gets a
+# new identity and is recomputed, and rows of the old code are set aside.
+CODE_VERSION = 2
 
 
 @dataclass(frozen=True)
@@ -25,6 +39,7 @@ class Cell:
     repeat: int
     fold: int
     cell_id: str
+    identity: dict = field(default_factory=dict, compare=False, hash=False)
 
     @property
     def unit(self) -> tuple:
@@ -35,23 +50,51 @@ class Cell:
         return f"{self.dataset}/{self.encoder.label}/{self.model.label}/r{self.repeat}f{self.fold}"
 
 
-def cell_hash(config: Config, dataset: DatasetSpec, encoder: EncoderSpec, model: ModelSpec, repeat: int, fold: int) -> str:
-    """Content hash of everything that determines a cell's numbers (not execution settings)."""
+def _shared_parts(config: Config) -> dict:
+    """Identity parts common to every cell of a config (protocol, seed, code)."""
     p = config.protocol
-    payload = {
-        "schema": SCHEMA_VERSION,
-        "seed": config.seed,
-        "protocol": [p.folds, p.repeats, p.stratify, p.group, sorted(p.metrics), p.primary, p.primary_regression],
-        "dataset": [dataset.label, dataset.source, dataset.params],
-        "encoder": [encoder.label, encoder.kind, encoder.params],
-        "model": [model.label, model.family, model.params, model.max_rows],
-        "repeat": repeat,
-        "fold": fold,
+    return {
+        "code": digest([harness_version(), CODE_VERSION, SCHEMA_VERSION], 12),
+        "seed": digest(config.seed, 12),
+        "protocol": digest([p.folds, p.repeats, p.stratify, p.group, sorted(p.metrics), p.primary, p.primary_regression], 12),
     }
-    return digest(payload, 24)
 
 
-def build_grid(config: Config, layout: dict[str, tuple[int, int]] | None = None) -> list[Cell]:
+def _dataset_part(dataset: DatasetSpec, checksum) -> str:
+    return digest([dataset.label, dataset.source, dataset.params, checksum], 12)
+
+
+def _encoder_part(encoder: EncoderSpec) -> str:
+    return digest([encoder.label, encoder.kind, resolved_encoder_params(encoder)], 12)
+
+
+def _model_part(model: ModelSpec) -> str:
+    return digest([model.label, model.family, _models.resolved_params(model.family, model.params), model.max_rows], 12)
+
+
+def cell_hash(identity: dict, repeat: int, fold: int) -> str:
+    """Content hash of a cell: its identity parts and its position."""
+    return digest({**identity, "repeat": repeat, "fold": fold}, 24)
+
+
+def changed_parts(old: dict, new: dict) -> list[str]:
+    """Names of the identity parts that differ between two cells at the same position."""
+    return [k for k in sorted(set(old) | set(new)) if old.get(k) != new.get(k)]
+
+
+def harness_version() -> str:
+    import harness
+
+    return harness.__version__
+
+
+def resolved_encoder_params(encoder: EncoderSpec) -> dict:
+    """Every parameter of the encoder as built, config values and defaults alike."""
+    params = _encoders.build(encoder.kind, **encoder.params).get_params(deep=False)
+    return json.loads(json.dumps(params, sort_keys=True, default=repr))
+
+
+def build_grid(config: Config, layout: dict[str, tuple[int, int]] | None = None, checksums: dict | None = None) -> list[Cell]:
     """All cells of ``config`` in unit order.
 
     Parameters
@@ -60,17 +103,29 @@ def build_grid(config: Config, layout: dict[str, tuple[int, int]] | None = None)
     layout : dict, optional
         ``{dataset label: (repeats, folds)}`` for datasets that bring their own splits
         (OpenML tasks); others use the protocol's repeats and folds.
+    checksums : dict, optional
+        ``{dataset label: content checksum}`` of the loaded data (``Dataset.fingerprint``);
+        the runner always passes them, so replacing a file under the same label gives
+        new cells. Without them (grid arithmetic in tests) the checksum part is empty.
     """
     layout = layout or {}
+    checksums = checksums or {}
+    shared = _shared_parts(config)
+    enc_parts = {e.label: _encoder_part(e) for e in config.encoders}
+    model_parts = {m.label: _model_part(m) for m in config.models}
     cells = []
     for ds in config.datasets:
         repeats, folds = layout.get(ds.label, (config.protocol.repeats, config.protocol.folds))
+        data_part = _dataset_part(ds, checksums.get(ds.label))
+        parts = {(e, m): {**shared, "dataset": data_part, "encoder": enc_parts[e], "model": model_parts[m]}
+                 for e in enc_parts for m in model_parts}
         for repeat in range(repeats):
             for fold in range(folds):
                 for enc in config.encoders:
                     for model in config.models:
-                        cid = cell_hash(config, ds, enc, model, repeat, fold)
-                        cells.append(Cell(ds.label, enc, model, repeat, fold, cid))
+                        identity = parts[(enc.label, model.label)]
+                        cid = cell_hash(identity, repeat, fold)
+                        cells.append(Cell(ds.label, enc, model, repeat, fold, cid, identity))
     return cells
 
 

@@ -8,9 +8,13 @@ input and whether it takes pandas categorical columns natively; the runner pairs
 from __future__ import annotations
 
 import inspect
+import json
 from dataclasses import dataclass, field
 from typing import Callable
 
+import numpy as np
+import scipy.sparse as sp
+from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.ensemble import (
     HistGradientBoostingClassifier,
     HistGradientBoostingRegressor,
@@ -21,12 +25,12 @@ from sklearn.linear_model import LogisticRegression, Ridge
 from sklearn.neighbors import KNeighborsClassifier, KNeighborsRegressor
 from sklearn.neural_network import MLPClassifier, MLPRegressor
 from sklearn.pipeline import make_pipeline
-from sklearn.preprocessing import MaxAbsScaler, StandardScaler
+from sklearn.preprocessing import StandardScaler
 from sklearn.svm import SVC, SVR
 
 from harness.errors import ConfigError, closest
 
-__all__ = ["Family", "FAMILIES", "build_model", "family_params"]
+__all__ = ["Family", "FAMILIES", "SCALING_POLICY", "BlockScaler", "build_model", "family_params"]
 
 
 @dataclass(frozen=True)
@@ -185,30 +189,110 @@ HARNESS_KEYS = ("family", "max_rows", "cell_timeout_s")
 
 
 def family_params(family: str) -> tuple[str, ...]:
-    """Estimator parameter names a family accepts (union of both task types)."""
+    """Estimator parameter names a family accepts (union of both task types).
+
+    LightGBM's scikit-learn classes take any keyword and hand it to the library, which
+    ignores an unknown one with a warning: its names are the class's own parameters
+    plus every parameter and alias the compiled library declares (``LGBM_DumpParamAliases``,
+    read through ``lightgbm.basic._ConfigAliases``).
+    """
     fam = _family(family)
     names = set()
     for builder in (fam.classifier, fam.regressor):
         est = getattr(builder, "estimator", None)
         if est is None:
-            return ()  # LightGBM takes **kwargs: any parameter passes through
+            return lightgbm_params()
         names |= set(inspect.signature(est).parameters)
     return tuple(sorted(names))
 
 
-def build_model(family: str, task: str, seed: int, params: dict | None = None, sparse_input=False):
+def lightgbm_params() -> tuple[str, ...]:
+    import lightgbm as lgb
+    from lightgbm.basic import _ConfigAliases
+
+    names = set(inspect.signature(lgb.LGBMModel).parameters) - {"kwargs"}
+    for name, aliases in _ConfigAliases._get_all_param_aliases().items():
+        names |= {name, *aliases}
+    return tuple(sorted(names))
+
+
+def resolved_params(family: str, params: dict | None = None) -> dict:
+    """Every estimator parameter in effect, per task type: config values, the family's
+    defaults and the estimator's own defaults (part of a cell's identity).
+
+    The seed is left out: it is derived from the experiment seed and the repeat, which
+    the identity holds separately.
+    """
+    out = {}
+    for task in ("binary", "regression"):
+        est = build_model(family, task, seed=0, params=dict(params or {}))
+        got = est.get_params(deep=True)
+        out[task] = {k: v for k, v in got.items() if not k.endswith("random_state")}
+    return json.loads(json.dumps(out, sort_keys=True, default=repr))
+
+
+# The one scaling policy, stated in the report's methods paragraph from this text.
+SCALING_POLICY = (
+    "numeric columns were median-imputed and standardised (centred, unit variance) on the "
+    "training fold whatever the encoding; every categorical output column was divided by its "
+    "training-fold standard deviation without centring, which keeps sparse one-hot and hashing "
+    "blocks sparse and puts every encoding on the same unit-variance scale"
+)
+
+
+class BlockScaler(TransformerMixin, BaseEstimator):
+    """The scaling policy for models on scaled inputs (linear, k-NN, SVM, MLP).
+
+    The input is the encoded categorical block followed by ``n_numeric`` numeric columns
+    (``cellwork`` builds it so). Numeric columns are standardised; categorical columns
+    are divided by their standard deviation and never centred, so a sparse block stays
+    sparse and a dense one is scaled by the same rule. Constant columns are left as they
+    are (scale 1). Standardising inputs for distance- and gradient-based models is common
+    practice, no source.
+
+    Parameters
+    ----------
+    n_numeric : int, default=0
+        Number of trailing numeric columns.
+    """
+
+    def __init__(self, n_numeric=0):
+        self.n_numeric = n_numeric
+
+    def fit(self, X, y=None):
+        k = X.shape[1] - self.n_numeric
+        self.categorical_ = StandardScaler(with_mean=False).fit(X[:, :k]) if k else None
+        self.numeric_ = StandardScaler().fit(_dense(X[:, k:])) if self.n_numeric else None
+        return self
+
+    def transform(self, X):
+        k = X.shape[1] - self.n_numeric
+        parts = []
+        if self.categorical_ is not None:
+            parts.append(self.categorical_.transform(X[:, :k]))
+        if self.numeric_ is not None:
+            parts.append(self.numeric_.transform(_dense(X[:, k:])))
+        if sp.issparse(X):
+            return sp.hstack([sp.csr_matrix(p) for p in parts], format="csr")
+        return np.hstack(parts) if len(parts) > 1 else parts[0]
+
+
+def _dense(block):
+    return block.toarray() if sp.issparse(block) else np.asarray(block, dtype=float)
+
+
+def build_model(family: str, task: str, seed: int, params: dict | None = None, n_numeric: int = 0):
     """Return an unfitted estimator for ``family`` and ``task``.
 
-    Scaling: dense inputs are standardised; sparse inputs are scaled by their maximum
-    absolute value, which keeps them sparse (common practice, no source).
+    Families with ``scaled`` inputs get :class:`BlockScaler` first (``SCALING_POLICY``):
+    the same rule for every encoding, dense or sparse.
     """
     fam = _family(family)
     role = "regressor" if task == "regression" else "classifier"
     merged = {**fam.defaults.get(role, {}), **(params or {})}
     est = (fam.regressor if role == "regressor" else fam.classifier)(seed, **merged)
     if fam.scaled:
-        scaler = MaxAbsScaler() if sparse_input else StandardScaler()
-        return make_pipeline(scaler, est)
+        return make_pipeline(BlockScaler(n_numeric), est)
     return est
 
 

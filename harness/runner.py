@@ -20,15 +20,19 @@ from importlib import metadata
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 from sklearn.model_selection import GroupKFold, KFold, StratifiedGroupKFold, StratifiedKFold
 
 from harness import datasets as _datasets
+from harness import encoders as _encoders
+from harness import models as _models
 from harness.backends import make_backend
 from harness.cellwork import UnitJob
 from harness.config import Config
 from harness.encoders import factorised
 from harness.errors import DataError
 from harness.grid import Cell, build_grid, select, units
+from harness.models import SCALING_POLICY
 from harness.store import Store, export
 
 __all__ = ["Plan", "plan", "execute", "outer_splits", "load_datasets", "RunSummary"]
@@ -41,7 +45,9 @@ class Plan:
     config: Config
     datasets: dict
     splits: dict  # label -> {(repeat, fold): (train_idx, test_idx)}
-    cells: list[Cell]
+    cells: list[Cell]  # the cells to run (after --only)
+    grid: list[Cell] = field(default_factory=list)  # every cell of the config
+    duplicates: dict = field(default_factory=dict)  # label -> share of test rows duplicated in training
 
 
 @dataclass
@@ -53,6 +59,7 @@ class RunSummary:
     counts: dict = field(default_factory=dict)
     wall_s: float = 0.0
     interrupted: bool = False
+    set_aside: dict = field(default_factory=dict)  # reason -> rows set aside by this run
 
 
 def load_datasets(config: Config) -> dict:
@@ -111,13 +118,44 @@ def plan(config: Config, only: str | None = None) -> Plan:
     _warn_no_categorical(loaded)
     p = config.protocol
     splits = {label: outer_splits(ds, p.folds, p.repeats, p.stratify, config.seed) for label, ds in loaded.items()}
+    duplicates = {label: duplicate_share(ds, splits[label]) for label, ds in loaded.items()}
+    _warn_clustered(loaded, duplicates)
     layout = {}
     for label, ds in loaded.items():
         if ds.splits is not None:
             keys = list(splits[label])
             layout[label] = (max(r for r, _ in keys) + 1, max(f for _, f in keys) + 1)
-    cells = select(build_grid(config, layout), only)
-    return Plan(config, loaded, splits, cells)
+    checksums = {label: ds.fingerprint["checksum"] for label, ds in loaded.items()}
+    grid = build_grid(config, layout, checksums)
+    return Plan(config, loaded, splits, select(grid, only), grid, duplicates)
+
+
+# Share of test rows with an exact copy (features and target) in their training fold above
+# which a dataset looks clustered (repeated measurements of one unit); common practice, no source.
+CLUSTERED_SHARE = 0.2
+
+
+def duplicate_share(dataset, splits: dict) -> float:
+    """Mean share over the outer folds of test rows whose features and target appear,
+    exactly, in the training fold (0.0 for a grouped dataset: groups already separate them)."""
+    if dataset.groups is not None or not splits:
+        return 0.0
+    rows = pd.util.hash_pandas_object(dataset.X.assign(__target__=dataset.y.to_numpy()), index=False).to_numpy()
+    shares = [np.isin(rows[te], rows[tr]).mean() for tr, te in splits.values() if len(te)]
+    return float(np.mean(shares)) if shares else 0.0
+
+
+def _warn_clustered(loaded: dict, duplicates: dict) -> None:
+    for label, share in duplicates.items():
+        if share >= CLUSTERED_SHARE:
+            warnings.warn(
+                f"dataset '{label}': {share:.0%} of test rows have an exact duplicate (same features and "
+                "target) in their training fold. Rows that repeat one unit (a patient, an incident, a country) "
+                "make every score optimistic under random folds; if the table has such a unit column, set "
+                f"`group = \"<column>\"` in [datasets.{label}] (or protocol.group) to keep each unit in one fold.",
+                UserWarning,
+                stacklevel=3,
+            )
 
 
 def _factorised(ds):
@@ -182,9 +220,10 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
     started = time.perf_counter()
     start_iso = datetime.now(timezone.utc).isoformat(timespec="seconds")
     with Store(out, fresh=fresh) as store:
+        set_aside = store.bind_grid(plan_.grid or plan_.cells)
         done = store.done_ids(RETRY_STATUSES if retry_failed else ())
         todo = [c for c in plan_.cells if c.cell_id not in done]
-        summary = RunSummary(out, len(plan_.cells), len(todo), len(plan_.cells) - len(todo))
+        summary = RunSummary(out, len(plan_.cells), len(todo), len(plan_.cells) - len(todo), set_aside=set_aside)
         _write_manifest(out, plan_, start_iso, None, summary)
         if todo:
             summary.interrupted = _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress)
@@ -229,6 +268,28 @@ def _versions() -> dict:
     return out
 
 
+def _group_column(cfg: Config, label: str) -> str | None:
+    spec = next(d for d in cfg.datasets if d.label == label)
+    return spec.params.get("group") or cfg.protocol.group
+
+
+def public_raw(raw: dict) -> dict:
+    """The config as the manifest shows it: a file dataset's ``path`` is cut to the file
+    name, or left out when the dataset has an ``alias`` (no absolute path in any output)."""
+    out = dict(raw)
+    shown = {}
+    for label, body in (raw.get("datasets") or {}).items():
+        body = dict(body)
+        if body.get("source") == "file" and "path" in body:
+            if body.get("alias"):
+                body.pop("path")
+            else:
+                body["path"] = Path(str(body["path"])).name
+        shown[label] = body
+    out["datasets"] = shown
+    return out
+
+
 def _write_manifest(out: Path, plan_: Plan, start: str, end: str | None, summary: RunSummary) -> None:
     cfg = plan_.config
     manifest = {
@@ -236,7 +297,7 @@ def _write_manifest(out: Path, plan_: Plan, start: str, end: str | None, summary
         "description": cfg.description,
         "config_path": cfg.path,
         "config_hash": cfg.hash,
-        "config": cfg.raw,
+        "config": public_raw(cfg.raw),
         "seed": cfg.seed,
         "started": start,
         "finished": end,
@@ -260,8 +321,16 @@ def _write_manifest(out: Path, plan_: Plan, start: str, end: str | None, summary
                 "categorical": list(ds.categorical),
                 "numeric": list(ds.numeric),
                 "fingerprint": ds.fingerprint,
+                "group": _group_column(cfg, label) if ds.groups is not None else None,
+                "duplicate_test_share": plan_.duplicates.get(label, 0.0),
+                "clustered": plan_.duplicates.get(label, 0.0) >= CLUSTERED_SHARE,
             }
             for label, ds in plan_.datasets.items()
+        },
+        "missing_values": {e.label: _encoders.build(e.kind, **e.params).missing_rule() for e in cfg.encoders},
+        "scaling": {
+            "policy": SCALING_POLICY,
+            "scaled_models": [m.label for m in cfg.models if _models.FAMILIES[m.family].scaled],
         },
         "encoders": {e.label: {"kind": e.kind, **e.params} for e in cfg.encoders},
         "models": {m.label: {"family": m.family, **m.params} for m in cfg.models},

@@ -50,3 +50,18 @@ def test_private_file_shortcut_runs_with_a_base_config(tmp_path, tiny, capsys):
     code = main(["run", "--data", str(data), "--target", "y", "--config", tiny, "--out", str(tmp_path / "o"), "--quiet"])
     assert code == 0
     assert "2 cells (2 computed, 0 reused)" in capsys.readouterr().out
+
+
+def test_one_dataset_with_few_folds_warns_with_the_repeats_needed(tmp_path, capsys):
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(0)  # invented table (demo data)
+    data = tmp_path / "shop.csv"
+    pd.DataFrame({"store": rng.choice(list("abcdef"), 200), "y": rng.integers(0, 2, 200)}
+                 ).to_csv(data, index=False)
+    code = main(["run", "--data", str(data), "--target", "y", "--config",
+                 "configs/quickstart.toml", "--dry-run", "--out", str(tmp_path / "o")])
+    err = " ".join(capsys.readouterr().err.split())
+    assert code == 0
+    assert "5 folds x 1 repeat(s) = 5 outer folds" in err and "`protocol.repeats = 2`" in err

@@ -33,7 +33,7 @@ from _runtools import (
 )
 from harness.cli import main
 from harness.config import load_config, parse_config
-from harness.grid import SCHEMA_VERSION, build_grid
+from harness.grid import SCHEMA_VERSION
 from harness.runner import execute, plan
 from harness.store import Store, read_results
 
@@ -42,7 +42,7 @@ SMALL_CONFIG = CONFIGS / "small.toml"
 
 
 def _grid_ids(path) -> list[str]:
-    return sorted(c.cell_id for c in build_grid(load_config(path)))
+    return sorted(c.cell_id for c in plan(load_config(path)).cells)
 
 
 @pytest.fixture(scope="module")
@@ -205,7 +205,9 @@ def _faulty_raw(jobs: int) -> dict:
         },
         "models": {
             "lin": {"family": "linear"},
-            "bad": {"family": "linear", "C": -1.0},  # rejected by scikit-learn at fit: raises
+            # valid at load (a probe fit passes) but more neighbours than the 300 training
+            # rows: raises at prediction
+            "bad": {"family": "knn", "n_neighbors": 500},
             "slow": {"family": "forest", "n_estimators": 3000, "cell_timeout_s": 0.3},
             "gb": {"family": "boosting", "max_iter": 10},
         },
@@ -229,7 +231,7 @@ def test_raising_slow_and_oversized_cells_become_rows(tmp_path, jobs):
         # a sparse family may or may not fit 4M coefficients under the cap; never a crash
         assert status["huge", "lin", fold] in {"ok", "out-of-memory"}
     errors = df.groupby("status")["error"].first()
-    assert "InvalidParameterError" in errors["failed"] and "'C' parameter" in errors["failed"]
+    assert "ValueError" in errors["failed"] and "n_neighbors" in errors["failed"]
     assert errors["timeout"] == "cell exceeded the time limit of 0.3 s (models.slow.cell_timeout_s)"
     assert "execution.cell_memory_mb" in errors["out-of-memory"]
     assert (df.loc[df["status"] == "ok", "roc_auc"].between(0, 1)).all()

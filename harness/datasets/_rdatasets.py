@@ -128,7 +128,8 @@ _QT = ("quickstart", "team")
 #: binary, multiclass and regression targets; columns that leak the target are dropped
 BUNDLED = (
     Bundled("resume_names", "AER", "ResumeNames", "call", "binary", 4870, 36, _QT),
-    Bundled("sumhes", "Ecdat", "SumHes", "gdp", "regression", 3250, 125, _QT),
+    # a country x year panel: a random split lets target statistics memorise the country
+    Bundled("sumhes", "Ecdat", "SumHes", "gdp", "regression", 3250, 125),
     Bundled("chile", "carData", "Chile", "vote", "multiclass", 2532, 5, _QT),
     Bundled("wage", "ISLR", "Wage", "wage", "regression", 3000, 5, _QT, drop=("logwage", "region")),
     Bundled("health_insurance", "AER", "HealthInsurance", "insurance", "binary", 8802, 7),
@@ -147,7 +148,7 @@ BUNDLED = (
         drop=("r2",), categorical=("Gender", "item", "btype", "situ", "mode", "id"),
     ),
     Bundled(
-        "gss_wages", "stevedata", "gss_wages", "realrinc", "regression", 37887, 528,
+        "gss_wages", "stevedata", "gss_wages", "realrinc", "regression", 37887, 528, _QT,
         categorical=("occ10", "occrecode", "wrkstat", "gender", "educcat", "maritalcat"),
     ),
     Bundled(

@@ -124,6 +124,14 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
         mixed types); new data of that column is then compared by text too.
     """
 
+    def missing_rule(self) -> str:
+        """How this encoder, as configured, treats a missing categorical value (report text).
+
+        The default across encoders is a level of its own; encoders with a ``missing``
+        option say what the other choice does.
+        """
+        return "a level of its own"
+
     uses_target: bool = False
     leaky_when: dict[str, tuple] = {}
     references: tuple[str, ...] = ()

@@ -11,6 +11,14 @@ smoothing rule and target type, and smoothing runs once per cell, not once per r
 - k-fold / holdout: one cell per (fold, level), fitted on the other folds;
 - leave-one-out / ordered: one cell per row.
 
+With *groups* (rows of one cluster: one patient, one country, one incident) every scheme
+keeps a row's group out of its statistics, as the outer folds keep a group out of the
+test fold: folds and the holdout part are unions of whole groups (``group_folds``,
+``group_holdout``), the ordered permutation orders whole groups and a row uses only
+rows of earlier groups, and leave-one-out becomes leave-one-group-out
+(``leave_one_group_out``). Otherwise the rows of its own cluster in the other inner folds
+carry the row's outcome into its "cross-fitted" statistic.
+
 ``out_of_fold`` also returns the in-sample cells (the tables ``transform`` uses), pooled
 from its per-(fold, level) statistics, so k-fold fitting reads the rows once.
 
@@ -48,6 +56,9 @@ __all__ = [
     "random_folds",
     "holdout_folds",
     "folds_from_splits",
+    "group_folds",
+    "group_holdout",
+    "leave_one_group_out",
 ]
 
 
@@ -287,10 +298,74 @@ def _drop_own(cells: CellStats, Y: np.ndarray, has_level: np.ndarray):
     return n_out, total_out, sq_out
 
 
+def leave_one_group_out(
+    codes: np.ndarray, Y: np.ndarray, n_levels: int, groups: np.ndarray, spread: bool = True
+) -> CellStats:
+    """Each row uses all rows outside its group: one cell per (group, level) present.
+
+    The statistics of a level without the group follow from the level's and the
+    (group, level) pair's by subtraction; squared deviations by the parallel-variance
+    identity solved for one part, ``SS_o = SS - SS_g - n_o n_g / n (mean_o - mean_g)^2``
+    (Chan, Golub & LeVeque 1983, The American Statistician 37(3)). The prior and variance
+    are those of the rows outside the group.
+
+    Raises
+    ------
+    EncoderInputError
+        With fewer than two groups (no other group to learn from).
+    """
+    n_groups = _n_groups(groups)
+    width = n_levels + 1
+    key = _keyed(codes, n_levels)
+    pairs, index = np.unique(groups.astype(np.int64) * width + key, return_inverse=True)
+    index = index.reshape(-1)
+    level_of, group_of = pairs % width, pairs // width
+    n, total, sq = _drop_part(level_stats(key, Y, width, spread), level_stats(index, Y, len(pairs), spread), level_of)
+    n[level_of == n_levels], total[level_of == n_levels] = 0.0, 0.0  # rows in no level: the prior
+    everyone = np.zeros(len(Y), dtype=np.int64)
+    g_n, g_total, g_sq = _drop_part(level_stats(everyone, Y, 1, spread), level_stats(groups, Y, n_groups, spread),
+                                    np.zeros(n_groups, dtype=np.int64))
+    prior = _safe_mean(g_total, g_n)[group_of]
+    tau2 = None if not spread else (g_sq / g_n[:, None])[group_of]
+    if sq is not None:
+        sq[level_of == n_levels] = 0.0
+    return CellStats(n, total, sq, prior, tau2, index)
+
+
+def _n_groups(groups: np.ndarray) -> int:
+    """Number of groups (codes ``0..G-1``); at least two are needed to cross-fit."""
+    n_groups = int(groups.max(initial=-1)) + 1
+    if n_groups < 2:
+        raise EncoderInputError(
+            "TargetStatistics with groups needs at least 2 groups in the training rows to "
+            f"cross-fit; got {n_groups}. Use a group column with more groups, or no group."
+        )
+    return n_groups
+
+
+def _drop_part(whole: LevelStats, part: LevelStats, whole_of: np.ndarray):
+    """Statistics of ``whole[whole_of[p]]`` without part ``p``, for every part."""
+    n_all, n_p = whole.n[whole_of], part.n
+    n_o = n_all - n_p
+    total_o = whole.total[whole_of] - part.total
+    if whole.sq_dev is None:
+        return n_o, total_o, None
+    mean_o, mean_p = _safe_mean(total_o, n_o), _safe_mean(part.total, n_p)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        between = np.where(n_all[:, None] > 0, (n_o * n_p / n_all)[:, None] * (mean_o - mean_p) ** 2, 0.0)
+    sq_o = whole.sq_dev[whole_of] - part.sq_dev - between
+    return n_o, total_o, np.where(n_o[:, None] > 1, np.maximum(sq_o, 0.0), 0.0)
+
+
 def ordered(
-    codes: np.ndarray, Y: np.ndarray, n_levels: int, permutation: np.ndarray, spread: bool = True
+    codes: np.ndarray, Y: np.ndarray, n_levels: int, permutation: np.ndarray, spread: bool = True,
+    groups: np.ndarray | None = None,
 ) -> CellStats:
     """Ordered target statistics: each row uses the same-level rows before it.
+
+    With ``groups`` (codes ``0..G-1``), ``permutation`` orders the groups instead of the
+    rows: a row uses the same-level rows of the groups before its own, never a row of its
+    own group, and its prior is that of the rows outside its group.
 
     Rows are visited in ``permutation`` order (``permutation[k]`` is the k-th row). A
     stable sort by (level, position) makes each level one contiguous run; grouped
@@ -309,29 +384,52 @@ def ordered(
     CatBoost: unbiased boosting with categorical features. NeurIPS.
     """
     n_rows = Y.shape[0]
-    position = np.empty(n_rows, dtype=np.int64)
-    position[np.asarray(permutation)] = np.arange(n_rows)
+    n_units = n_rows if groups is None else int(groups.max(initial=-1)) + 1
+    position = np.empty(n_units, dtype=np.int64)
+    position[np.asarray(permutation)] = np.arange(n_units)
+    if groups is not None:
+        position = position[groups]  # every row takes its group's place
     key = _keyed(codes, n_levels)
     order = np.lexsort((position, key))
     full = level_stats(key, Y, n_levels + 1, spread=False)
     shift = np.take(_safe_mean(full.total, full.n), key[order], axis=0)
-    n_s, total, sq = _prefix_stats(key[order], Y[order] - shift, n_levels)
+    tie = None if groups is None else position[order]
+    n_s, total, sq = _prefix_stats(key[order], Y[order] - shift, n_levels, tie)
     total = total + n_s[:, None] * shift
     out_n, out_total, out_sq = np.empty(n_rows), np.empty_like(Y), np.empty_like(Y)
     out_n[order], out_total[order], out_sq[order] = n_s, total, sq
-    loo = leave_one_out(np.zeros(n_rows, dtype=np.int64), Y, 1, spread)
+    if groups is None:
+        base = leave_one_out(np.zeros(n_rows, dtype=np.int64), Y, 1, spread)
+        prior, tau2 = base.prior, base.tau2
+    else:
+        base = leave_one_group_out(np.zeros(n_rows, dtype=np.int64), Y, 1, groups, spread)
+        prior, tau2 = (None if a is None else np.take(a, base.index, axis=0) for a in (base.prior, base.tau2))
     sq = out_sq if spread else None
-    return CellStats(out_n, out_total, sq, loo.prior, loo.tau2, np.arange(n_rows))
+    return CellStats(out_n, out_total, sq, prior, tau2, np.arange(n_rows))
 
 
-def _prefix_stats(k_sorted: np.ndarray, d: np.ndarray, n_levels: int):
-    """Count, sum and squared deviations of the earlier rows of each row's run."""
+def _run_starts(change: np.ndarray, n_rows: int) -> np.ndarray:
+    """Index of the first row of each row's run, runs cut where ``change`` is true."""
+    start = np.r_[0, np.flatnonzero(change) + 1]
+    return np.repeat(start, np.diff(np.r_[start, n_rows]))
+
+
+def _prefix_stats(k_sorted: np.ndarray, d: np.ndarray, n_levels: int, tie: np.ndarray | None = None):
+    """Count, sum and squared deviations of the earlier rows of each row's run.
+
+    With ``tie`` (sorted group positions), rows of one group within a level's run are not
+    earlier than each other: each takes the statistics at its group's first row.
+    """
     n_rows = len(k_sorted)
-    start = np.r_[0, np.flatnonzero(k_sorted[1:] != k_sorted[:-1]) + 1]
-    run_start = np.repeat(start, np.diff(np.r_[start, n_rows]))
-    n_before = (np.arange(n_rows) - run_start).astype(np.float64)
+    new_level = k_sorted[1:] != k_sorted[:-1]
+    run_start = _run_starts(new_level, n_rows)
     s1 = _exclusive_run_cumsum(d, run_start)
     s2 = _exclusive_run_cumsum(d * d, run_start)
+    first = np.arange(n_rows)
+    if tie is not None:
+        first = _run_starts(new_level | (tie[1:] != tie[:-1]), n_rows)
+        s1, s2 = s1[first], s2[first]
+    n_before = (first - run_start).astype(np.float64)
     with np.errstate(invalid="ignore", divide="ignore"):
         sq = np.where(n_before[:, None] > 0, s2 - s1 * s1 / n_before[:, None], 0.0)
     has_level = (k_sorted < n_levels)[:, None]
@@ -392,6 +490,42 @@ def _rows_by_class(classes: np.ndarray) -> np.ndarray:
 
 def _small_int(bound: int):
     return np.int16 if bound < 2**15 else np.int64
+
+
+def group_folds(groups: np.ndarray, n_folds: int, rng: np.random.RandomState) -> tuple[np.ndarray, int]:
+    """Fold of each row when folds are unions of whole groups.
+
+    The groups (codes ``0..G-1``) are put in a random order and dealt round-robin into
+    ``min(n_folds, G)`` folds, so no group spans two folds.
+
+    Raises
+    ------
+    EncoderInputError
+        With fewer than two groups.
+    """
+    n_groups = _n_groups(groups)
+    k = min(n_folds, n_groups)
+    fold_of_group = np.empty(n_groups, dtype=np.int64)
+    fold_of_group[rng.permutation(n_groups)] = np.arange(n_groups) % k
+    return fold_of_group[groups], k
+
+
+def group_holdout(groups: np.ndarray, fraction: float, rng: np.random.RandomState) -> np.ndarray:
+    """Two parts made of whole groups: groups in random order fill part 0 up to about
+    ``fraction`` of the rows (at least one group), the rest is part 1.
+
+    Raises
+    ------
+    EncoderInputError
+        With fewer than two groups.
+    """
+    n_groups = _n_groups(groups)
+    order = rng.permutation(n_groups)
+    filled = np.cumsum(np.bincount(groups, minlength=n_groups)[order])
+    n_first = int(np.clip(np.searchsorted(filled, fraction * len(groups), side="right"), 1, n_groups - 1))
+    part = np.ones(n_groups, dtype=np.int64)
+    part[order[:n_first]] = 0
+    return part[groups]
 
 
 def holdout_folds(n_rows: int, fraction: float, rng: np.random.RandomState) -> np.ndarray:

@@ -11,6 +11,7 @@ from harness.encoders._rules import Options
 __all__ = ["FrequencyCodes"]
 
 SCALES = ("count", "proportion")
+MISSING_RULES = ("category", "unseen")
 
 
 class FrequencyCodes(LevelCodeEncoder):
@@ -21,6 +22,9 @@ class FrequencyCodes(LevelCodeEncoder):
     scale : {"count", "proportion"}, default="count"
         Raw number of training rows holding the level, or that number divided by the
         number of training rows (missing rows included in the denominator).
+    missing : {"category", "unseen"}, default="category"
+        A missing value gets the frequency of missingness (a level of its own), or 0 as
+        an unseen value does.
 
     Notes
     -----
@@ -48,10 +52,14 @@ class FrequencyCodes(LevelCodeEncoder):
     [0.4, 0.2, 0.4, 0.2, 0.2]
     """
 
-    param_rules = {"scale": (Options(*SCALES),)}
+    param_rules = {"scale": (Options(*SCALES),), "missing": (Options(*MISSING_RULES),)}
 
-    def __init__(self, scale="count"):
+    def __init__(self, scale="count", missing="category"):
         self.scale = scale
+        self.missing = missing
+
+    def missing_rule(self) -> str:
+        return "a level of its own" if self.missing == "category" else '0, as an unseen value (missing = "unseen")'
 
     def get_feature_names_out(self, input_features=None):
         """``<column>__count`` (or ``__proportion``) per input column."""
@@ -66,7 +74,7 @@ class FrequencyCodes(LevelCodeEncoder):
         divisor = float(n_rows) if self.scale == "proportion" else 1.0
         # trailing entries are read by negative codes: [-2] MISSING, [-1] UNSEEN (0 rows)
         self.lookups_ = [
-            np.concatenate([counts, [n_missing, 0]]).astype(np.float64) / divisor
+            np.concatenate([counts, [n_missing if self.missing == "category" else 0, 0]]).astype(np.float64) / divisor
             for counts, n_missing in zip(self.counts_, self.n_missing_)
         ]
         return codes

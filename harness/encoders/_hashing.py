@@ -15,6 +15,7 @@ __all__ = ["HashedCodes", "hash_tokens"]
 
 SPACES = ("shared", "per-column")
 MISSING_TOKEN = "<missing>"
+MISSING_RULES = ("category", "zeros")
 
 
 class HashedCodes(CategoricalEncoder):
@@ -35,6 +36,9 @@ class HashedCodes(CategoricalEncoder):
     signed : bool, default=True
         Use the hash's sign bit as the entry's sign, so that collisions cancel in
         expectation (Weinberger et al., 2009); False makes every entry +1.
+    missing : {"category", "zeros"}, default="category"
+        A missing value is hashed as a level of its own (the token below), or gives no
+        entry at all.
 
     Notes
     -----
@@ -79,12 +83,17 @@ class HashedCodes(CategoricalEncoder):
         "width": (Interval("int", 1, None),),
         "space": (Options(*SPACES),),
         "signed": (Flag(),),
+        "missing": (Options(*MISSING_RULES),),
     }
 
-    def __init__(self, width=256, space="shared", signed=True):
+    def __init__(self, width=256, space="shared", signed=True, missing="category"):
         self.width = width
         self.space = space
         self.signed = signed
+        self.missing = missing
+
+    def missing_rule(self) -> str:
+        return "a level of its own" if self.missing == "category" else 'no entry (missing = "zeros")'
 
     def fit(self, X, y=None):
         """Hash the levels seen in ``X`` (a cache; any value can be hashed later).
@@ -143,6 +152,8 @@ class HashedCodes(CategoricalEncoder):
             tokens = [f"{name}={value}" for value in levels.tolist()]
             tokens.append(f"{name}={MISSING_TOKEN}")
             index, sign = self._hash(tokens)
+            if self.missing == "zeros":
+                index[-1] = -1  # the missing token's column: none
             self.lookups_.append((np.append(index, 0), np.append(sign, 0.0)))
         return codes
 

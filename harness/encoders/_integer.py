@@ -72,6 +72,9 @@ class IntegerCodes(LevelCodeEncoder):
         self.unseen = unseen
         self.missing = missing
 
+    def missing_rule(self) -> str:
+        return "a level of its own" if self.missing == "code" else "NaN, left to the model (missing = \"nan\")"
+
     def get_feature_names_out(self, input_features=None):
         """One output column per input column, named as the input column."""
         check_is_fitted(self)

@@ -13,6 +13,7 @@ from harness.errors import EncoderInputError
 __all__ = ["OneHotCodes", "indicator_matrix"]
 
 UNSEEN_RULES = ("zeros", "error")
+MISSING_RULES = ("category", "zeros")
 MISSING_NAME = "<missing>"
 OTHER_NAME = "<other>"
 
@@ -42,6 +43,9 @@ class OneHotCodes(LevelCodeEncoder):
         with an intercept (for unpenalised linear models).
     sparse : bool, default=True
         Return a scipy CSR matrix; False returns a dense float64 array.
+    missing : {"category", "zeros"}, default="category"
+        A missing value is a level of its own (its ``<missing>`` column, when missing
+        values were seen at fit), or a row of zeros in the block (never an error).
 
     Attributes
     ----------
@@ -74,14 +78,20 @@ class OneHotCodes(LevelCodeEncoder):
         "max_levels": (Interval("int", 1, None), Nothing()),
         "drop_one": (Flag(),),
         "sparse": (Flag(),),
+        "missing": (Options(*MISSING_RULES),),
     }
 
-    def __init__(self, unseen="zeros", min_count=1, max_levels=None, drop_one=False, sparse=True):
+    def __init__(self, unseen="zeros", min_count=1, max_levels=None, drop_one=False, sparse=True,
+                 missing="category"):
         self.unseen = unseen
         self.min_count = min_count
         self.max_levels = max_levels
         self.drop_one = drop_one
         self.sparse = sparse
+        self.missing = missing
+
+    def missing_rule(self) -> str:
+        return "a level of its own" if self.missing == "category" else 'a row of zeros (missing = "zeros")'
 
     def get_feature_names_out(self, input_features=None):
         """``<column>=<level>``, ``<column>=<missing>`` and ``<column>=<other>`` names."""
@@ -96,7 +106,8 @@ class OneHotCodes(LevelCodeEncoder):
         """Column labels per block, built from the layout only when names are asked for."""
         out = []
         for levels, n_missing, (kept, pooled) in zip(self.levels_, self.n_missing_, self.kept_):
-            labels = [str(v) for v in levels.tolist()] + ([MISSING_NAME] if n_missing else [])
+            has_missing = n_missing and self.missing == "category"
+            labels = [str(v) for v in levels.tolist()] + ([MISSING_NAME] if has_missing else [])
             labels = [labels[k] for k in kept] + ([OTHER_NAME] if pooled else [])
             out.append(labels[1:] if self.drop_one and labels else labels)
         return out
@@ -107,7 +118,9 @@ class OneHotCodes(LevelCodeEncoder):
         codes = self._fit_levels(frame, order="lexical")
         self.lookups_, self.kept_, widths = [], [], []
         for levels, counts, n_missing in zip(self.levels_, self.counts_, self.n_missing_):
-            lookup, kept, pooled = self._layout(levels, counts, int(n_missing))
+            lookup, kept, pooled = self._layout(
+                levels, counts, int(n_missing) if self.missing == "category" else 0
+            )
             self.lookups_.append(lookup)
             self.kept_.append((kept, pooled))
             widths.append(max(len(kept) + pooled - bool(self.drop_one), 0))
@@ -143,7 +156,7 @@ class OneHotCodes(LevelCodeEncoder):
     def _refuse_unseen(self, frame, codes: list[np.ndarray]) -> None:
         for j, (lookup, col) in enumerate(zip(self.lookups_, codes)):
             # a missing value with no missing column at fit counts as unseen too
-            bad = (col == UNSEEN) | ((lookup[-2] < 0) & (col < 0))
+            bad = (col == UNSEEN) | ((lookup[-2] < 0) & (col < 0) & (self.missing == "category"))
             if bad.any():
                 values = frame.iloc[:, j][bad].unique()[:5]
                 raise EncoderInputError(

@@ -37,6 +37,9 @@ class DropColumns(CategoricalEncoder):
     (2, 0)
     """
 
+    def missing_rule(self) -> str:
+        return "not used (categorical columns dropped)"
+
     def fit(self, X, y=None):
         """Record the input columns.
 
@@ -100,6 +103,9 @@ class NativeCategories(CategoricalEncoder):
     >>> out["city"].tolist(), out["city"].cat.categories.tolist()
     (['Rome', nan], ['Lima', 'Oslo', 'Rome'])
     """
+
+    def missing_rule(self) -> str:
+        return "a missing category, left to the model's own rule"
 
     def fit(self, X, y=None):
         """Learn the categories of each column.

@@ -184,6 +184,24 @@ def _factorize(y):
     return codes, np.asarray(uniques)
 
 
+def _group_codes(groups, n_rows: int):
+    """Group labels as codes ``0..G-1`` (``None`` stays ``None``).
+
+    Raises
+    ------
+    EncoderInputError
+        If the labels do not match the rows or one is missing.
+    """
+    if groups is None:
+        return None
+    codes, _ = pd.factorize(np.asarray(groups, dtype=object).reshape(-1), use_na_sentinel=True)
+    if len(codes) != n_rows:
+        raise EncoderInputError(f"TargetStatistics: `groups` has {len(codes)} labels for {n_rows} rows; they must match.")
+    if len(codes) and codes.min() < 0:
+        raise EncoderInputError("TargetStatistics: `groups` has missing labels; every row needs a group.")
+    return codes.astype(np.int64)
+
+
 class TargetStatistics(CategoricalEncoder):
     """Target encoding: each level becomes a smoothed statistic of the target.
 
@@ -220,8 +238,9 @@ class TargetStatistics(CategoricalEncoder):
     holdout_fraction : float in (0, 1), default=0.5
         Under ``crossfit="holdout"``, the share of rows in the first of the two random
         parts; each part is encoded from the other (``_crossfit.holdout_folds``).
-    missing : {"prior", "category"}, default="prior"
-        A missing value gets the prior, or is a level of its own (as scikit-learn).
+    missing : {"category", "prior"}, default="category"
+        A missing value is a level of its own with its own smoothed statistic (as
+        scikit-learn, and as every other encoder here by default), or gets the prior.
     target_type : {"auto", "binary", "multiclass", "continuous"}, default="auto"
         ``auto`` uses ``sklearn.utils.multiclass.type_of_target``.
     prior : float or None, default=None
@@ -303,7 +322,7 @@ class TargetStatistics(CategoricalEncoder):
         statistic="mean",
         noise=0.0,
         holdout_fraction=0.5,
-        missing="prior",
+        missing="category",
         target_type="auto",
         prior=None,
     ):
@@ -340,20 +359,27 @@ class TargetStatistics(CategoricalEncoder):
             self._store_table(j, _crossfit.in_sample(c, Y, self._n_stat_levels(j), self._spread))
         return self
 
-    def fit_transform(self, X, y):
+    def fit_transform(self, X, y, groups=None):
         """Fit, then return cross-fitted encodings of the training rows (see ``crossfit``).
+
+        ``groups`` (one label per row: a patient, a country, an incident) makes every
+        scheme group-aware, as grouped outer folds are: inner folds and the holdout part
+        are unions of whole groups, the ordered permutation orders whole groups, and
+        ``loo`` becomes leave-one-group-out. No row's statistic then uses a row of its
+        own group. ``crossfit="none"`` ignores it.
 
         Parameters
         ----------
         X : DataFrame or array-like of shape (n_samples, n_features)
         y : array-like of shape (n_samples,)
+        groups : array-like of shape (n_samples,), optional
 
         Returns
         -------
         ndarray of shape (n_samples, n_features_out)
             Differs from ``fit(X, y).transform(X)`` except under ``crossfit="none"``.
         """
-        return self._fit_transform(X, y)
+        return self._fit_transform(X, y, groups=groups)
 
     def transform(self, X):
         """Encode ``X`` with the full-data tables.
@@ -392,6 +418,9 @@ class TargetStatistics(CategoricalEncoder):
         tags.target_tags.required = True
         return tags
 
+    def missing_rule(self) -> str:
+        return "a level of its own" if self.missing == "category" else "the prior (missing = \"prior\")"
+
     # --- fitting ------------------------------------------------------------------------
     def _prepare(self, X, y):
         """Validate; learn levels, target type and prior; return what fitting needs."""
@@ -415,16 +444,18 @@ class TargetStatistics(CategoricalEncoder):
         # the empty last cell: what an unseen (or missing, under "prior") value gets
         self.default_ = table[n_levels]
 
-    def _fit_transform(self, X, y, *, permutation=None):
-        """``fit_transform``; ``permutation`` imposes the row order of ``"ordered"`` (tests)."""
+    def _fit_transform(self, X, y, *, permutation=None, groups=None):
+        """``fit_transform``; ``permutation`` imposes the order of ``"ordered"`` (tests):
+        of the rows, or of the groups when ``groups`` is given."""
         frame, y, Y, classes, codes = self._prepare(X, y)
+        groups = _group_codes(groups, len(y))
         rng = check_random_state(self.random_state)
-        folds = self._folds(frame, y, classes, rng)
+        folds = self._folds(frame, y, classes, rng, groups)
         if self.crossfit == "ordered" and permutation is None:
-            permutation = rng.permutation(Y.shape[0])
+            permutation = rng.permutation(Y.shape[0] if groups is None else int(groups.max()) + 1)
         out = []
         for j, c in enumerate(codes):
-            cells, full = self._cells(c, Y, self._n_stat_levels(j), folds, permutation)
+            cells, full = self._cells(c, Y, self._n_stat_levels(j), folds, permutation, groups)
             self._store_table(j, full)
             out.append(np.take(self._encode(cells), cells.index, axis=0))
         out = np.concatenate(out, axis=1)
@@ -437,29 +468,35 @@ class TargetStatistics(CategoricalEncoder):
     def _spread(self) -> bool:
         return self.smoothing == "empirical-bayes"
 
-    def _cells(self, codes, Y, n_levels, folds, permutation):
+    def _cells(self, codes, Y, n_levels, folds, permutation, groups=None):
         """Cross-fitted cells of one column, and its in-sample cells (the table)."""
         spread = self._spread
         if self.crossfit in ("kfold", "holdout"):
             return _crossfit.out_of_fold(codes, Y, n_levels, *folds, spread)
         full = _crossfit.in_sample(codes, Y, n_levels, spread)
+        if self.crossfit == "loo" and groups is not None:
+            return _crossfit.leave_one_group_out(codes, Y, n_levels, groups, spread), full
         if self.crossfit == "loo":
             return _crossfit.leave_one_out(codes, Y, n_levels, spread), full
         if self.crossfit == "ordered":
-            return _crossfit.ordered(codes, Y, n_levels, permutation, spread), full
+            return _crossfit.ordered(codes, Y, n_levels, permutation, spread, groups), full
         return full, full
 
-    def _folds(self, frame, y, classes, rng):
+    def _folds(self, frame, y, classes, rng, groups=None):
         """Fold of each row and number of folds for ``kfold``/``holdout`` (all columns)."""
+        if self.crossfit == "holdout" and groups is not None:
+            return _crossfit.group_holdout(groups, self.holdout_fraction, rng), 2
         if self.crossfit == "holdout":
             return _crossfit.holdout_folds(len(y), self.holdout_fraction, rng), 2
         if self.crossfit != "kfold":
             return None
+        if isinstance(self.cv, Integral) and groups is not None:
+            return _crossfit.group_folds(groups, int(self.cv), rng)
         if isinstance(self.cv, Integral):
             return _crossfit.random_folds(len(y), int(self.cv), rng, classes), int(self.cv)
-        if type(self.cv) is KFold:
+        if type(self.cv) is KFold and groups is None:
             return _crossfit.kfold_folds(len(y), self.cv), self.cv.n_splits
-        return _crossfit.folds_from_splits(self.cv.split(frame, y), len(y))
+        return _crossfit.folds_from_splits(self.cv.split(frame, y, groups), len(y))
 
     def _encode(self, cells):
         """Smooth each cell, then apply the statistic; returns (n_cells, n_targets)."""

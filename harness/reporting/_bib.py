@@ -127,12 +127,51 @@ BIB = {
   pages   = {1--36},
   year    = {2017}
 }"""),
+    "schuirmann1987": ("Schuirmann (1987)", """@article{schuirmann1987,
+  author  = {Schuirmann, Donald J.},
+  title   = {A Comparison of the Two One-Sided Tests Procedure and the Power Approach for
+             Assessing the Equivalence of Average Bioavailability},
+  journal = {Journal of Pharmacokinetics and Biopharmaceutics},
+  volume  = {15},
+  number  = {6},
+  pages   = {657--680},
+  year    = {1987}
+}"""),
+    "corani2015": ("Corani & Benavoli (2015)", """@article{corani2015,
+  author  = {Corani, Giorgio and Benavoli, Alessio},
+  title   = {A {Bayesian} Approach for Comparing Cross-Validated Algorithms on Multiple
+             Data Sets},
+  journal = {Machine Learning},
+  volume  = {100},
+  pages   = {285--304},
+  year    = {2015}
+}"""),
+    "hodges1963": ("Hodges & Lehmann (1963)", """@article{hodges1963,
+  author  = {Hodges, J. L. and Lehmann, E. L.},
+  title   = {Estimates of Location Based on Rank Tests},
+  journal = {Annals of Mathematical Statistics},
+  volume  = {34},
+  pages   = {598--611},
+  year    = {1963}
+}"""),
+    "hesterberg2015": ("Hesterberg (2015)", """@article{hesterberg2015,
+  author  = {Hesterberg, Tim C.},
+  title   = {What Teachers Should Know About the Bootstrap: Resampling in the
+             Undergraduate Statistics Curriculum},
+  journal = {The American Statistician},
+  volume  = {69},
+  number  = {4},
+  pages   = {371--386},
+  year    = {2015}
+}"""),
 }
 
 #: methods every report uses: corrected t intervals, ranks, Friedman/Iman-Davenport,
-#: Nemenyi, Wilcoxon with Holm, bootstrap intervals of the average rank
+#: Nemenyi, the decision (Wilcoxon with Holm, Hodges-Lehmann, TOST, Bayesian signed-rank
+#: and correlated t), bootstrap intervals of the average rank
 STATS_KEYS = ("demsar2006", "nadeau2003", "bouckaert2004", "iman1980", "holm1979",
-              "efron1993")
+              "efron1993", "hesterberg2015", "hodges1963", "schuirmann1987", "benavoli2017",
+              "corani2015")
 
 
 def cite(key: str) -> str:
@@ -148,17 +187,15 @@ def _encoder_keys(spec: dict) -> tuple[str, ...]:
     return _encoders.declaration(kind, {k: v for k, v in spec.items() if k != "kind"}).references
 
 
-def used_references(encoders: dict, *, bayesian: bool = False) -> list[str]:
+def used_references(encoders: dict) -> list[str]:
     """Keys of the references relevant to a run, statistics first, no duplicates.
 
     Parameters
     ----------
     encoders : dict
         The manifest's ``encoders`` table.
-    bayesian : bool
-        Add Benavoli et al. (2017) when the Bayesian signed-rank test was reported.
     """
-    keys = list(STATS_KEYS) + (["benavoli2017"] if bayesian else [])
+    keys = list(STATS_KEYS)
     for spec in encoders.values():  # loop over encoder settings
         keys += _encoder_keys(spec if isinstance(spec, dict) else {})
     return list(dict.fromkeys(keys))

@@ -19,10 +19,7 @@ __all__ = [
     "dataset_means_table",
     "means_wide",
     "rank_table",
-    "robustness_table",
-    "robustness_wide",
     "cost_summary",
-    "leakage_table",
     "status_table",
     "scrub_error",
     "fmt_interval",
@@ -67,79 +64,66 @@ def dataset_means_table(results: pd.DataFrame, metric: str, *, alpha: float = 0.
     Nadeau, C. & Bengio, Y. (2003). Inference for the generalization error. Machine
     Learning 52:239-281; Bouckaert, R. & Frank, E. (2004), PAKDD (J = k*r resamples).
     """
-    s = stats.summarize_cells(results, metrics=[metric], alpha=alpha, model_column=model_column)
+    if metric == stats.POOLED:  # each dataset in its own metric and units, not negated
+        raw = results.assign(primary=stats.metric_values(results, stats.POOLED)[0])
+        s = stats.summarize_cells(raw, metrics=[metric], alpha=alpha, model_column=model_column)
+        own = results.groupby("dataset")["primary_metric"].first()
+        s["metric"] = s["dataset"].map(own)
+    else:
+        s = stats.summarize_cells(results, metrics=[metric], alpha=alpha,
+                                  model_column=model_column)
     s = s.rename(columns={model_column: "model"})
     return s[["dataset", "model", "encoder", "metric", "mean", "ci_low", "ci_high", "n"]]
 
 
 def means_wide(long: pd.DataFrame, model: str, *, digits: int = 3,
-               encoder_order=None) -> pd.DataFrame:
-    """One model's per-dataset means as text, datasets down and encoders across."""
+               encoder_order=None, excluded=()) -> pd.DataFrame:
+    """One model's per-dataset means as text, datasets down and encoders across.
+
+    Settings in ``excluded`` (leaky) are kept, their columns marked ``(excluded)``, so
+    that a reader sees what leaking costs on the test folds.
+    """
     part = long.loc[long["model"] == model]
     text = [fmt_interval(m, lo, hi, digits) for m, lo, hi in
             zip(part["mean"], part["ci_low"], part["ci_high"])]  # loop over summary cells
     wide = part.assign(text=text).pivot(index="dataset", columns="encoder", values="text")
     if encoder_order is not None:
-        wide = wide.reindex(columns=[e for e in encoder_order if e in wide.columns])
+        order = [e for e in encoder_order if e in wide.columns]
+        wide = wide.reindex(columns=order + [e for e in wide.columns if e not in order])
+    if "metric" in part and part["metric"].nunique() > 1:
+        wide.index = [f"{d} ({metric_name(m)})" for d, m in
+                      zip(wide.index, part.groupby("dataset")["metric"].first()
+                          .reindex(wide.index))]
+        wide.index.name = "dataset"
+    wide = wide.rename(columns={e: f"{e} (excluded)" for e in excluded})
     return wide.fillna("—").reset_index()
 
 
-def rank_table(comparisons, recommendations=None) -> pd.DataFrame:
-    """Average rank with bootstrap interval and the test against the best, per model.
-
-    Parameters
-    ----------
-    comparisons : iterable of harness.stats.Comparison
-    recommendations : mapping (model, metric) -> harness.stats.Recommendation, optional
+def rank_table(comparisons, decisions=None) -> pd.DataFrame:
+    """Average rank with its bootstrap interval per model, reference and choice marked.
 
     Returns
     -------
     DataFrame
         Columns ``model, metric, encoder, avg_rank, ci_low, ci_high, median_rank,
-        n_datasets, wilcoxon_p_holm, equivalent, recommended``.
+        n_datasets, reference, chosen``.
 
     References
     ----------
     Demšar, J. (2006). Statistical comparisons of classifiers over multiple data sets.
-    JMLR 7:1-30 (average ranks; Wilcoxon signed-rank; Holm).
+    JMLR 7:1-30 (average ranks).
     """
     frames = []
     for comp in comparisons:  # loop over models
         m = comp.matrix
+        d = (decisions or {}).get((m.model, m.metric))
         r = comp.ranks.copy()
-        p = comp.pairwise["wilcoxon_p_holm"] if len(comp.pairwise) else pd.Series(dtype=float)
-        r["wilcoxon_p_holm"] = p.reindex(r.index)
-        rec = (recommendations or {}).get((m.model, m.metric))
-        if rec is not None and len(rec.evidence):
-            # the recommendation's own rule: not significantly worse and practically close
-            r["equivalent"] = rec.evidence["equivalent"].reindex(r.index).fillna(False).astype(bool)
-        else:
-            r["equivalent"] = ~(r["wilcoxon_p_holm"] < 0.05)
-        r["recommended"] = r.index == (rec.choice if rec is not None else None)
+        r["reference"] = r.index == (d.reference if d is not None else None)
+        r["chosen"] = r.index.isin(list(d.choice) if d is not None else [])
         frames.append(r.reset_index().assign(model=m.model, metric=m.metric))
     cols = ["model", "metric", "encoder", "avg_rank", "ci_low", "ci_high", "median_rank",
-            "n_datasets", "wilcoxon_p_holm", "equivalent", "recommended"]
+            "n_datasets", "reference", "chosen"]
     return pd.concat(frames, ignore_index=True)[cols] if frames else pd.DataFrame(columns=cols)
-
-
-def robustness_table(results: pd.DataFrame, headline, *, metrics=None, low: int = 10,
-                     high: int = 100, model_column: str = "model") -> pd.DataFrame:
-    """Top encoder per aggregation x metric x model x regime (``stats.verdict_robustness``)."""
-    return stats.verdict_robustness(results, headline, metrics=metrics, low=low, high=high,
-                                    model_column=model_column)
-
-
-def robustness_wide(robust: pd.DataFrame) -> pd.DataFrame:
-    """Aggregations across, one row per model x metric x regime; ``(≠)`` marks a change."""
-    if robust.empty:
-        return pd.DataFrame(columns=["model", "metric", "regime", "N"])
-    mark = np.where(robust["agrees"].eq(False), " (≠)", "")
-    cell = (robust["top_encoder"].replace("", "—") + mark)
-    r = robust.assign(cell=cell, metric=robust["metric"].map(metric_name))
-    wide = r.pivot_table(index=["model", "metric", "regime", "n_datasets"],
-                         columns="aggregation", values="cell", aggfunc="first", sort=False)
-    wide = wide.reindex(columns=[a for a in stats.AGGREGATIONS if a in wide.columns])
-    return wide.reset_index().rename(columns={"n_datasets": "N"})
 
 
 def cost_summary(results: pd.DataFrame, *, reference: str | None = None,
@@ -147,13 +131,6 @@ def cost_summary(results: pd.DataFrame, *, reference: str | None = None,
     """Median cost per encoder and model (``stats.cost_table``), sorted by total seconds."""
     c = stats.cost_table(results, reference=reference, model_column=model_column)
     return c.sort_values([model_column, "total_s"], kind="stable").reset_index(drop=True)
-
-
-def leakage_table(results: pd.DataFrame, *, model_column: str = "model") -> pd.DataFrame:
-    """Optimism gap per encoder setting (``stats.leakage_audit``), largest gap first."""
-    a = stats.leakage_audit(results, model_column=model_column)
-    return a.sort_values([model_column, "primary_metric", "gap_mean"],
-                         ascending=[True, True, False], kind="stable").reset_index(drop=True)
 
 
 # ------------------------------------------------------------------------ cells not run

@@ -103,8 +103,9 @@ def test_docstring_example_of_sklearn_target_encoder():
     low = TargetStatistics(smoothing="m-estimate", m=1.0).fit(X, y)
     auto_fit = TargetStatistics(smoothing="empirical-bayes").fit(X, y)
     assert list(low.levels_[0]) == ["cat", "dog", "snake"]
-    np.testing.assert_allclose(low.encodings_[0][:, 0], m_estimate, rtol=0, atol=1e-12)
-    np.testing.assert_allclose(auto_fit.encodings_[0][:, 0], auto, rtol=0, atol=1e-12)
+    # rows 0-2: the levels; under the default missing="category" a last row holds the missing level
+    np.testing.assert_allclose(low.encodings_[0][:3, 0], m_estimate, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(auto_fit.encodings_[0][:3, 0], auto, rtol=0, atol=1e-12)
 
 
 # --- sigmoid blending: Micci-Barreca (2001), SIGKDD Explorations 3(1), eq. 3-4 -----------
@@ -256,7 +257,7 @@ def test_weight_of_evidence_siddiqi():
     # zero cell: 0.5 replaces the zero count of goods (Siddiqi 2006; recalled from memory)
     expected.append(np.log((0.5 / G) / (20 / B)))
     enc = TargetStatistics(statistic="woe", smoothing="none").fit(X, y)
-    np.testing.assert_allclose(enc.encodings_[0][:, 0], expected, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(enc.encodings_[0][:3, 0], expected, rtol=0, atol=1e-12)  # [3]: the missing level
     np.testing.assert_allclose(enc.transform(one_column(["unseen"])), [[0.0]])
 
 
@@ -293,8 +294,8 @@ def test_holdout_encodes_each_part_from_the_other(rng, fraction):
     for source, target in ((held, ~held), (~held, held)):  # loop over the two parts
         means = pd.Series(y[source]).groupby(color[source]).mean()
         expected = pd.Series(color[target]).map(means).to_numpy(dtype=float, copy=True)
-        # missing, or a level absent from the other part -> that part's prior
-        expected[(color[target] == "?") | np.isnan(expected)] = y[source].mean()
+        # missing is a level of its own ("?"); a level absent from the other part -> its prior
+        expected[np.isnan(expected)] = y[source].mean()
         np.testing.assert_allclose(out[target], expected, rtol=0, atol=1e-12)
 
 
@@ -443,4 +444,4 @@ def test_binary_labels_of_any_kind(y):
     assert enc.target_type_ == "binary"
     np.testing.assert_array_equal(enc.classes_, np.unique(y))
     positive = (y == np.unique(y)[1]).astype(float)
-    np.testing.assert_allclose(enc.encodings_[0][:, 0], [positive[:2].mean(), positive[2:].mean()])
+    np.testing.assert_allclose(enc.encodings_[0][:2, 0], [positive[:2].mean(), positive[2:].mean()])

@@ -19,8 +19,8 @@ ENCODERS20 = tuple(f"encoder_{i:02d}_{'x' * (i % 7)}" for i in range(20))
 def _comparisons(df, models=("lin",), metric="roc_auc"):
     comps = [stats.compare_encoders(stats.score_matrix(df, m, metric), n_boot=200)
              for m in models]
-    recs = {(m, metric): stats.recommend(df, m, metric, n_boot=200) for m in models}
-    return comps, recs
+    decs = {(m, metric): stats.decide(df, m, metric) for m in models}
+    return comps, decs
 
 
 def _texts(fig):
@@ -79,6 +79,7 @@ def test_every_figure_draws_and_saves(tmp_path, rng):
         "cost": figures.cost_plot(comps, stats.cost_table(wide)),
         "heat": figures.relative_heatmap(wide, "lin"),
         "leak": figures.leakage_plot(stats.leakage_audit(wide)),
+        "delta": figures.delta_plot(recs.values()),
     }
     for name, fig in made.items():
         png, svg = figures.save(fig, tmp_path, name)
@@ -106,19 +107,46 @@ def test_cost_labels_do_not_overlap(wide):
 
 
 def test_rank_plot_shapes_carry_meaning_without_colour(wide):
-    comps, recs = _comparisons(wide)
-    fig = figures.rank_plot(comps, recs)
+    from dataclasses import replace
+
+    comps, decs = _comparisons(wide)
+    d = decs[("lin", "roc_auc")]
+    other = next(e for e in comps[0].ranks.index if e != d.reference)
+    fig = figures.rank_plot(comps, {("lin", "roc_auc"): replace(d, choice=(other,))})
     markers = {(line.get_marker(), line.get_markerfacecolor() == "white")
                for line in fig.axes[0].lines if len(line.get_xdata())}
-    assert ("D", False) in markers  # the recommendation: a filled diamond
+    assert ("D", False) in markers  # the choice: a filled diamond
+    assert ("s", False) in markers  # the reference: a grey square
     assert any(m == "o" for m, _ in markers)
 
 
-def test_leakage_plot_marks_flagged(wide):
-    audit = stats.leakage_audit(wide)
+def test_delta_plot_gives_each_verdict_its_own_shape(wide):
+    from harness.reporting._figdecision import VERDICT_MARKERS
+
+    shapes = {(mk, face) for mk, face, _ in VERDICT_MARKERS.values()}
+    assert len(shapes) == len(VERDICT_MARKERS)  # readable in greyscale: no two alike
+    _, decs = _comparisons(wide)
+    fig = figures.delta_plot(decs.values())
+    assert any("margin" in t for t in _texts(fig))
+
+
+def test_group_letters_follow_the_nemenyi_cliques():
+    from harness.reporting._figdecision import group_letters
+
+    # Demšar (2006), Sec. 3.2.2 worked example: ranks 3.143, 2.000, 2.893, 1.964, CD 1.25
+    r = pd.Series([44 / 14, 28 / 14, 40.5 / 14, 27.5 / 14], index=["c4.5", "m", "cf", "both"])
+    letters = group_letters(r, 1.25)
+    for a, b in itertools.combinations(r.index, 2):  # share a letter iff within the CD
+        assert bool(set(letters[a]) & set(letters[b])) == (abs(r[a] - r[b]) < 1.25)
+
+
+def test_leakage_plot_marks_flagged(rng):
+    df = fake_results(rng, n_datasets=3, encoders=("onehot", "te", "te_leaky"), folds=8,
+                      skill={"te": 0.08}, leaky=("te_leaky",))
+    audit = stats.leakage_audit(df)
     assert audit["flagged"].any()  # the planted leaky setting
     fig = figures.leakage_plot(audit)
-    assert "  flagged" in _texts(fig)
+    assert any(t.startswith("  flagged") for t in _texts(fig))
 
 
 def test_heatmap_orders_rows_by_cardinality(wide):
@@ -164,7 +192,8 @@ def test_empty_audit_no_leakage_plot(rng):
 
 
 def test_regression_only_draws(rng):
-    df = fake_results(rng, task="regression", skill={"te": 0.05})
+    df = fake_results(rng, task="regression", skill={"te": 0.05},
+                      encoders=("onehot", "codes", "te", "te_in"), leaky=("te_in",))
     comps, recs = _comparisons(df, metric="rmse")
     figures.rank_plot(comps, recs)
     figures.relative_heatmap(df, "lin")

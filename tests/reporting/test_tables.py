@@ -41,21 +41,26 @@ def test_fmt_interval(mean, low, high, expected):
     assert tables.fmt_interval(mean, low, high) == expected
 
 
-def test_rank_table_marks_recommendation(results):
+def test_rank_table_marks_reference_and_choice(results):
     comp = stats.compare_encoders(stats.score_matrix(results, "lin", "roc_auc"), n_boot=200)
-    rec = stats.recommend(results, "lin", "roc_auc", n_boot=200)
-    t = tables.rank_table([comp], {("lin", "roc_auc"): rec})
-    assert t["recommended"].sum() == 1
-    assert t.loc[t["recommended"], "encoder"].item() == rec.choice
+    dec = stats.decide(results, "lin", "roc_auc")
+    t = tables.rank_table([comp], {("lin", "roc_auc"): dec})
+    assert t.loc[t["chosen"], "encoder"].tolist() == list(dec.choice)
+    assert t.loc[t["reference"], "encoder"].item() == dec.reference
     # te has the largest planted skill: rank 1 on every dataset (Demšar 2006, Sec. 3.2.2)
     assert t.set_index("encoder").loc["te", "avg_rank"] == 1.0
 
 
-def test_robustness_wide_marks_disagreement(results):
-    rob = tables.robustness_table(results, {"lin": "codes"})
-    wide = tables.robustness_wide(rob)
-    assert {"mean_rank", "median_rank", "mean_normalised", "win_rate"} <= set(wide.columns)
-    assert wide["mean_rank"].str.endswith("(≠)").all()  # codes is never top
+def test_pooled_means_are_in_each_dataset_own_units(rng):
+    cls = fake_results(rng, n_datasets=2)
+    reg = fake_results(rng, n_datasets=2, task="regression").assign(
+        dataset=lambda d: d["dataset"].str.replace("d", "r"))
+    df = stats.pool_primary(pd.concat([cls, reg], ignore_index=True))
+    long = tables.dataset_means_table(df, stats.POOLED)
+    rmse = long.loc[long["dataset"].str.startswith("r")]
+    assert (rmse["mean"] > 0).all() and set(rmse["metric"]) == {"rmse"}  # not negated
+    wide = tables.means_wide(long, "lin", excluded=["codes"])
+    assert "codes (excluded)" in wide.columns
 
 
 def test_status_table_groups_and_scrubs(rng):

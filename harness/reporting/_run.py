@@ -1,0 +1,64 @@
+"""Run loading: a results directory as the report sees it (private datasets under alias)."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import pandas as pd
+
+from harness import stats
+from harness.errors import StoreError
+from harness.reporting import tables
+from harness.store import read_results, read_set_aside
+
+__all__ = ["Run", "load_run"]
+
+
+# ------------------------------------------------------------------------------- loading
+@dataclass(frozen=True)
+class Run:
+    """A results directory as the report sees it (private datasets under their alias)."""
+
+    directory: Path
+    results: pd.DataFrame = field(repr=False)
+    manifest: dict = field(repr=False)
+    private: tuple = ()
+    set_aside: dict = field(default_factory=dict)  # reason -> superseded rows not used
+
+
+def _aliases(manifest: dict) -> dict:
+    """Config label -> report name (``alias`` when the dataset sets one)."""
+    raw = (manifest.get("config") or {}).get("datasets") or {}
+    return {label: (raw.get(label) or {}).get("alias") or label
+            for label in manifest.get("datasets", {})}
+
+
+def load_run(directory) -> Run:
+    """Read a run's results and manifest, renaming private datasets to their alias.
+
+    Raises
+    ------
+    StoreError
+        No results store, or a manifest that cannot be read.
+    """
+    directory = Path(directory)
+    results = read_results(directory)
+    path = directory / "manifest.json"
+    try:
+        manifest = json.loads(path.read_text(encoding="utf-8")) if path.exists() else {}
+    except (OSError, json.JSONDecodeError) as exc:
+        raise StoreError(f"the manifest {path} cannot be read ({exc}); rerun `harness run` "
+                         "with the same config to rewrite it.") from None
+    names = _aliases(manifest)
+    private = tuple(names[d] for d, v in manifest.get("datasets", {}).items() if v.get("private"))
+    results = results.assign(dataset=results["dataset"].map(lambda d: names.get(d, d)))
+    bad = results["dataset"].isin(private)
+    results.loc[bad, "error"] = tables.scrub_error(results.loc[bad, "error"],
+                                                   results.loc[bad, "status"], bad[bad])
+    manifest = {**manifest, "datasets": {names[d]: v for d, v in
+                                         manifest.get("datasets", {}).items()}}
+    return Run(directory, stats.pool_primary(results), manifest, private, read_set_aside(directory))
+
+
