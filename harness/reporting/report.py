@@ -125,7 +125,12 @@ def _methods_text(a: Analysis) -> str:
     pk = man.get("packages") or {}
     soft = ", ".join(f"{k} {v}" for k, v in pk.items() if v and k in
                      ("python", "harness", "numpy", "pandas", "scipy", "scikit-learn", "lightgbm"))
-    mets = " and ".join(metric_name(m) for m in a.metrics) or "the primary metric"
+    own = [metric_name(m) for m in a.metrics if m != stats.POOLED]
+    if stats.POOLED in a.metrics:  # mixed tasks: each dataset is judged on its own metric
+        mets = "each dataset's own: " + " for classification, ".join(own[:2]) + (
+            " for regression" if len(own) >= 2 else "") + (f" (also {', '.join(own[2:])})" if own[2:] else "")
+    else:
+        mets = " and ".join(own) or "the primary metric"
     low, high = a.bands
     return (
         f"We compared {len(man.get('encoders') or {})} categorical encodings ({enc}) with "

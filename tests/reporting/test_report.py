@@ -99,6 +99,9 @@ def test_methods_paragraph_from_manifest(report, sweep_dir):
     assert "1 × 3-fold cross-validation" in methods
     assert f"scikit-learn {man['packages']['scikit-learn']}" in methods
     assert "many (binary, 300 rows" in methods
+    assert "primary metric was primary metric" not in methods
+    if "regression" in methods and "binary" in methods:  # mixed tasks: each judged on its own
+        assert "The primary metric was each dataset's own: ROC AUC for classification" in methods
     for cite in ("Demšar (2006)", "Nadeau & Bengio (2003)", "Bouckaert & Frank (2004)"):
         assert cite in methods
 
