@@ -9,6 +9,8 @@ __all__ = [
     "ConfigError",
     "DataError",
     "StoreError",
+    "OutputError",
+    "DiskFullError",
     "EncoderInputError",
     "closest",
 ]
@@ -32,6 +34,16 @@ class StoreError(HarnessError):
     """The results store is unreadable, locked, or of an unknown schema."""
 
     exit_code = 3
+
+
+class OutputError(HarnessError):
+    """An output path (directory, export file, report) cannot be written."""
+
+
+class DiskFullError(HarnessError):
+    """No space left on the device of an output: the run stops, committed rows are kept."""
+
+    exit_code = 4
 
 
 class EncoderInputError(HarnessError, ValueError):
