@@ -11,6 +11,7 @@ __all__ = [
     "StoreError",
     "OutputError",
     "DiskFullError",
+    "ClusterError",
     "EncoderInputError",
     "closest",
 ]
@@ -44,6 +45,12 @@ class DiskFullError(HarnessError):
     """No space left on the device of an output: the run stops, committed rows are kept."""
 
     exit_code = 4
+
+
+class ClusterError(HarnessError):
+    """The Dask cluster was lost (scheduler gone, or units lost more often than retries allow)."""
+
+    exit_code = 5
 
 
 class EncoderInputError(HarnessError, ValueError):

@@ -51,6 +51,7 @@ class RunSummary:
     counts: dict = field(default_factory=dict)
     wall_s: float = 0.0
     interrupted: bool = False
+    stopped_by: BaseException | None = field(default=None, repr=False)  # the Ctrl-C or SIGTERM
 
 
 def load_datasets(config: Config) -> dict:
@@ -176,7 +177,9 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
         summary = RunSummary(out, len(plan_.cells), len(todo), len(plan_.cells) - len(todo))
         _write_manifest(out, plan_, start_iso, None, summary)
         if todo:
-            summary.interrupted = _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress)
+            summary.stopped_by = _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress)
+            summary.interrupted = summary.stopped_by is not None
+        store.check_in_place()  # a store deleted after the last write must not end in success
         frame = store.frame()
     summary.wall_s = time.perf_counter() - started
     wanted = {c.cell_id for c in plan_.cells}
@@ -189,23 +192,27 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
     return summary
 
 
-def _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress) -> bool:
-    """Execute units and write each unit's rows as it finishes. Returns True if interrupted."""
+def _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress) -> KeyboardInterrupt | None:
+    """Execute units and write each unit's rows as it finishes.
+
+    Returns the ``KeyboardInterrupt`` (Ctrl-C, or SIGTERM raised as one) that stopped the
+    run, or None when every unit finished.
+    """
     from tqdm import tqdm
 
     work = _jobs_for(plan_, todo)
-    runner = make_backend(backend, plan_.datasets, jobs, scheduler, ex.retries, ex.cell_memory_mb)
+    runner = make_backend(backend, plan_.datasets, jobs, scheduler, ex.retries, ex.cell_memory_mb, ex.cell_timeout_s)
     bar = tqdm(total=len(todo), unit="cell", disable=not progress, file=sys.stderr, dynamic_ncols=True)
     try:
         for job, rows in runner.run(work):
             store.write(rows)
             bar.update(len(rows))
-    except KeyboardInterrupt:
-        return True
+    except KeyboardInterrupt as exc:
+        return exc
     finally:
         bar.close()
         runner.close()
-    return False
+    return None
 
 
 def _versions() -> dict:

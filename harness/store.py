@@ -21,6 +21,7 @@ from urllib.parse import quote
 
 import pandas as pd
 
+from harness._outputs import fsync_path, is_disk_full, temporary_beside
 from harness.errors import DiskFullError, OutputError, StoreError
 from harness.grid import SCHEMA_VERSION
 from harness.metrics import METRICS
@@ -181,7 +182,7 @@ class Store:
             if db is not None:
                 db.close()
             self.close()
-            if _is_full(exc):
+            if is_disk_full(exc):
                 raise _disk_full(self.out, "opening the results store") from None
             raise StoreError(
                 f"the results store {self.path} is damaged ({exc}). Nothing was changed. Move it aside "
@@ -249,7 +250,7 @@ class Store:
                     self.db.execute("ROLLBACK")
                 raise
         except sqlite3.OperationalError as exc:
-            if _is_full(exc):
+            if is_disk_full(exc):
                 need = sum(len(str(v)) for row in values for v in row if v is not None)
                 raise _disk_full(self.out, f"writing {len(rows)} result row(s)", need) from None
             raise
@@ -326,12 +327,12 @@ def _create(out: Path, path: Path) -> None:
             db.execute("PRAGMA journal_mode=WAL")  # recorded in the header; no -wal left at close
         finally:
             db.close()
-        _fsync(tmp)
+        fsync_path(tmp)
         os.rename(tmp, path)
-        _fsync(out)
+        fsync_path(out)
     except (sqlite3.Error, OSError) as exc:
         _remove_creation_leftovers(out)
-        if _is_full(exc):
+        if is_disk_full(exc):
             raise _disk_full(out, "creating the results store") from None
         if isinstance(exc, OSError):
             raise _output_error(out, exc) from None
@@ -359,7 +360,7 @@ def _keep_aside(out: Path) -> Path:
     partial = out / f"{KEPT_PREFIX}{max(numbers, default=0) + 1}.partial"
     try:
         partial.mkdir()
-        _fsync(out)
+        fsync_path(out)
     except OSError as exc:
         raise _output_error(out, exc) from None
     return _finish_keeping(out)
@@ -374,21 +375,13 @@ def _finish_keeping(out: Path) -> Path | None:
                 src = out / (STORE_NAME + suffix)
                 if src.exists():
                     os.rename(src, partial / src.name)
-            _fsync(partial)
+            fsync_path(partial)
             done = partial.with_name(partial.name[: -len(".partial")])
             os.rename(partial, done)
-            _fsync(out)
+            fsync_path(out)
         except OSError as exc:
             raise _output_error(out, exc) from None
     return done
-
-
-def _fsync(path: Path) -> None:
-    fd = os.open(path, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
 
 
 def _make_dir(out: Path) -> None:
@@ -398,12 +391,6 @@ def _make_dir(out: Path) -> None:
         raise _output_error(out, exc) from None
     if not os.access(out, os.W_OK | os.X_OK):
         raise _output_error(out, PermissionError(errno.EACCES, "not writable"))
-
-
-def _is_full(exc: BaseException) -> bool:
-    if isinstance(exc, OSError) and exc.errno in (errno.ENOSPC, errno.EDQUOT):
-        return True
-    return isinstance(exc, sqlite3.Error) and "database or disk is full" in str(exc)
 
 
 def _disk_full(where: Path, doing: str, need_bytes: int = 0) -> DiskFullError:
@@ -430,7 +417,7 @@ def _mb(n: int) -> str:
 
 
 def _output_error(where: Path, exc: OSError) -> OutputError:
-    if _is_full(exc):
+    if is_disk_full(exc):
         return _disk_full(where, "writing")
     reason = exc.strerror or str(exc)
     return OutputError(
@@ -482,24 +469,18 @@ def export(df: pd.DataFrame, path) -> Path:
             f"cannot export to {path}: the suffix must be .csv or .parquet; got '{path.suffix}'. "
             "Pass --to FILE.csv or --to FILE.parquet."
         )
-    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        if path.suffix == ".csv":
-            df.to_csv(tmp, index=False)
-        else:
-            df.to_parquet(tmp, index=False)
-        _fsync(tmp)
-        os.replace(tmp, path)
+        with temporary_beside(path) as tmp:
+            if path.suffix == ".csv":
+                df.to_csv(tmp, index=False)
+            else:
+                df.to_parquet(tmp, index=False)
     except OSError as exc:
-        tmp.unlink(missing_ok=True)
-        if _is_full(exc):
+        if is_disk_full(exc):
             raise _disk_full(path.parent, f"writing {path.name}", len(df) * 512) from None
         raise OutputError(
             f"cannot write the export {path} ({exc.strerror or exc}). Pass a path in a directory you "
             "can write to."
         ) from None
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
     return path

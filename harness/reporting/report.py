@@ -14,7 +14,6 @@ only the exception type is kept (:func:`harness.reporting.tables.scrub_error`).
 from __future__ import annotations
 
 import json
-import shutil
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -22,7 +21,8 @@ import numpy as np
 import pandas as pd
 
 from harness import stats
-from harness.errors import StoreError
+from harness._outputs import swap_in_dir
+from harness.errors import ConfigError, StoreError
 from harness.metrics import CLASSIFICATION_METRICS, REGRESSION_METRICS
 from harness.reporting import _bib, figures, tables
 from harness.reporting._html import (Bullets, Code, Figure, Heading, Note, Para, Table,
@@ -58,12 +58,20 @@ def load_run(directory) -> Run:
     ------
     StoreError
         No results store, or a manifest that cannot be read.
+    ConfigError
+        No manifest (the directory was not written by ``harness run``).
     """
     directory = Path(directory)
     results = read_results(directory)
     path = directory / "manifest.json"
+    if not path.exists():
+        raise ConfigError(
+            f"{directory} has a results store but no manifest.json, which the report needs (datasets, "
+            f"protocol, models). Rerun `harness run CONFIG --out {directory}` with the config that made it: "
+            "it computes nothing already stored and writes the manifest."
+        )
     try:
-        manifest = json.loads(path.read_text(encoding="utf-8")) if path.exists() else {}
+        manifest = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, json.JSONDecodeError) as exc:
         raise StoreError(f"the manifest {path} cannot be read ({exc}); rerun `harness run` "
                          "with the same config to rewrite it.") from None
@@ -634,8 +642,11 @@ def _header(a: Analysis) -> list:
     return [Heading(title, 1), *([Para(desc)] if desc else []), Para(line)]
 
 
-def write_report(directory, compare=None) -> Path:
+def write_report(directory, compare=None, out=None) -> Path:
     """Write ``DIR/report/``: report.md, report.html, figures/, tables/, references.bib.
+
+    The report is built in a new directory beside ``report/`` and swapped in when
+    complete: a kill or a full disk leaves the previous report whole.
 
     Parameters
     ----------
@@ -643,6 +654,8 @@ def write_report(directory, compare=None) -> Path:
         A results directory (``results.sqlite`` and ``manifest.json``).
     compare : path, optional
         Another results directory; the report then lists what changed from it.
+    out : path, optional
+        Where to put ``report/`` instead of ``directory`` (e.g. a store on a read-only mount).
 
     Returns
     -------
@@ -655,10 +668,13 @@ def write_report(directory, compare=None) -> Path:
         No readable results store in ``directory`` or ``compare``.
     """
     run = load_run(directory)
-    root = Path(directory) / "report"
-    if root.exists():
-        shutil.rmtree(root)  # a report is regenerated whole: no stale figure survives
-    root.mkdir(parents=True)
+    final = Path(out or directory) / "report"
+    with swap_in_dir(final) as root:  # regenerated whole: no stale figure survives
+        _write_into(run, root, compare)
+    return final / "report.html"
+
+
+def _write_into(run: Run, root: Path, compare) -> None:
     a = analyse(run)
     blocks = _header(a) + answer_section(a) + methods_section(a) + figures_section(a, root)
     blocks += robustness_section(a, root) + leakage_section(a, root) + status_section(a, root)
@@ -666,6 +682,4 @@ def write_report(directory, compare=None) -> Path:
         blocks += compare_section(a, analyse(load_run(compare)), root)
     blocks += references_section(a, root)
     (root / "report.md").write_text(to_markdown(blocks), encoding="utf-8")
-    html_path = root / "report.html"
-    html_path.write_text(to_html(blocks, blocks[0].text, root), encoding="utf-8")
-    return html_path
+    (root / "report.html").write_text(to_html(blocks, blocks[0].text, root), encoding="utf-8")
