@@ -295,9 +295,11 @@ def _identity(path: Path):
 
 
 def _connect_readonly(path: Path) -> sqlite3.Connection:
-    """Open read-only; on a read-only mount, where no ``-shm`` can be created, as immutable.
+    """Open read-only; as immutable where SQLite cannot create its ``-shm`` file.
 
-    ``immutable=1`` is safe there: nothing can change a file on a read-only mount.
+    That happens on a read-only mount or a full disk. ``immutable=1`` is safe then: an
+    absent or empty ``-wal`` file means the main file holds every committed row, and no writer is live
+    (a live writer keeps the ``-shm`` file in place, so the first open succeeds).
     """
     uri = f"file:{quote(str(path.resolve()))}?mode=ro"
     db = sqlite3.connect(uri, uri=True, timeout=30, isolation_level=None)
@@ -306,10 +308,12 @@ def _connect_readonly(path: Path) -> sqlite3.Connection:
         return db
     except sqlite3.OperationalError as exc:
         db.close()
-        if os.access(path.parent, os.W_OK) or "unable to open" not in str(exc):
+        wal = Path(str(path) + "-wal")
+        cannot_share = any(m in str(exc) for m in ("unable to open", "disk I/O error"))
+        wal_rows = wal.exists() and wal.stat().st_size > 0  # an empty -wal may be our own failed open's
+        if not cannot_share or (wal_rows and os.access(path.parent, os.W_OK)):
             raise
-    db = sqlite3.connect(uri + "&immutable=1", uri=True, isolation_level=None)
-    return db
+    return sqlite3.connect(uri + "&immutable=1", uri=True, isolation_level=None)
 
 
 def _create(out: Path, path: Path) -> None:
@@ -402,7 +406,7 @@ def _disk_full(where: Path, doing: str, need_bytes: int = 0) -> DiskFullError:
     except OSError:
         free = 0
     store = where / STORE_NAME if where.is_dir() else where
-    size = store.stat().st_size if store.is_file() else 0
+    size = sum(p.stat().st_size for p in (store, Path(f"{store}-wal")) if p.is_file())
     # the exports and the manifest take about as much again as the store itself
     need = max(need_bytes + 2 * size, 1 << 20)
     return DiskFullError(

@@ -16,6 +16,7 @@ import sqlite3
 import subprocess
 import sys
 
+import pandas as pd
 import pytest
 
 from _runtools import CONFIGS, assert_clean_refusal, integrity, run
@@ -63,3 +64,98 @@ def test_sigkill_at_each_early_write_leaves_no_store_or_a_valid_one(tmp_path):
     print(f"\nrows left after a SIGKILL at write k: {outcomes}")
     assert len(outcomes) >= 30 and list(outcomes) == list(range(1, len(outcomes) + 1))
     assert "none" in outcomes.values() and 0 in outcomes.values()  # kills before and after the rename
+
+
+# --------------------------------------------------------------------------- mounts
+def _sh(*cmd) -> None:
+    subprocess.run(list(map(str, cmd)), check=True, capture_output=True, timeout=30)
+
+
+@contextlib.contextmanager
+def _mounted(target, *how):
+    """Mount something at ``target`` for the block; always unmounted afterwards."""
+    target.mkdir(parents=True, exist_ok=True)
+    _sh("mount", *how, target)
+    try:
+        yield target
+    finally:
+        subprocess.run(["umount", "-l", str(target)], capture_output=True, timeout=30)
+
+
+needs_root = pytest.mark.skipif(os.geteuid() != 0 or shutil.which("mount") is None, reason="needs root to mount")
+
+TINY_RUN = (
+    '[experiment]\nname = "tiny"\n[protocol]\nfolds = 2\n'
+    '[datasets.toy]\nsource = "synthetic"\nn_rows = 120\ncardinalities = [4, 9]\ntask = "binary"\n'
+    '[encoders.codes]\nkind = "integer"\n[encoders.freq]\nkind = "frequency"\n'
+    '[models.lin]\nfamily = "linear"\n'
+)
+
+
+def _tiny_config(tmp_path, repeats: int = 1):
+    path = tmp_path / f"tiny{repeats}.toml"
+    path.write_text(TINY_RUN.replace("folds = 2\n", f"folds = 2\nrepeats = {repeats}\n"))
+    return path
+
+
+def _snapshot(directory) -> dict:
+    return {p.relative_to(directory): p.read_bytes() for p in sorted(directory.rglob("*")) if p.is_file()}
+
+
+@needs_root
+def test_a_finished_store_on_a_read_only_mount_is_read_exported_and_reported(tmp_path):
+    src = tmp_path / "src"
+    config = _tiny_config(tmp_path)
+    assert run("run", config, "--out", src, "--quiet").returncode == 0
+    before = _snapshot(src)
+    ro = tmp_path / "ro"
+    with _mounted(ro, "--bind", src):
+        _sh("mount", "-o", "remount,bind,ro", ro)
+        with pytest.raises(OSError):
+            (ro / "probe").write_text("x")  # really read-only
+        status = run("status", ro)
+        assert status.returncode == 0 and "4 rows" in status.stdout, status.stderr
+        dry = run("run", config, "--out", ro, "--dry-run")
+        assert dry.returncode == 0 and "0 to compute" in dry.stdout, dry.stderr
+        exported = run("export", ro, "--to", tmp_path / "copy.parquet")
+        assert exported.returncode == 0, exported.stderr
+        reported = run("report", ro, "--out", tmp_path / "elsewhere")
+        assert reported.returncode == 0, reported.stderr
+        assert (tmp_path / "elsewhere" / "report" / "report.html").stat().st_size > 0
+        writer = run("run", config, "--out", ro, "--quiet")  # a writer is refused clearly
+        flat = assert_clean_refusal(writer, code=2)
+        assert f"cannot write to the output directory {ro}" in flat
+    assert _snapshot(src) == before  # no WAL switch, no -shm, nothing changed
+    assert len(pd.read_parquet(tmp_path / "copy.parquet")) == len(read_results(src)) == 4
+
+
+@needs_root
+def test_a_full_disk_stops_the_run_with_one_message_and_loses_no_row(tmp_path):
+    disk = tmp_path / "disk"
+    config = _tiny_config(tmp_path, repeats=40)  # 160 cells: the WAL outgrows the disk
+    with _mounted(disk, "-t", "tmpfs", "-o", "size=400k", "tmpfs"):
+        out = disk / "out"
+        full = run("run", config, "--out", out, "--quiet", "--jobs", "1")
+        flat = assert_clean_refusal(full, code=4)
+        print(f"\n{flat}")
+        assert f"no space left on the device of {out}" in flat and "MB free" in flat
+        assert "Every row committed before is kept" in flat
+        assert integrity(out) == "ok"
+        kept = len(read_results(out))
+        assert 0 < kept < 160
+        assert not list(out.glob(".*tmp*"))  # no half-written export left behind
+        _sh("mount", "-o", "remount,size=64m", disk)  # space freed: a plain rerun resumes
+        again = run("run", config, "--out", out, "--quiet")
+        assert again.returncode == 0, again.stderr
+        assert f"160 cells ({160 - kept} computed, {kept} reused)" in again.stdout
+        csv_before = (out / "results.csv").read_bytes()
+        filler = disk / "filler"
+        with contextlib.suppress(OSError):
+            with open(filler, "wb") as fh:
+                while True:
+                    fh.write(b"\0" * 65536)
+        export = run("export", out, "--to", out / "results.csv")  # over the good file
+        flat = assert_clean_refusal(export, code=4)
+        assert "no space left" in flat
+        assert (out / "results.csv").read_bytes() == csv_before  # never truncated
+        assert not list(out.glob(".*tmp*"))
