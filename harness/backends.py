@@ -196,7 +196,10 @@ class DaskCluster:
                 previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
                 try:
                     self.cluster = LocalCluster(
-                        n_workers=jobs, threads_per_worker=1, processes=True, dashboard_address=None
+                        n_workers=jobs, threads_per_worker=1, processes=True, dashboard_address=None,
+                        # the workers' own log lines (tasks cancelled at close) are not the
+                        # user's business; a unit's failure is in its row
+                        silence_logs=logging.CRITICAL,
                     )
                 finally:
                     signal.signal(signal.SIGINT, previous)
