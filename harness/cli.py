@@ -180,6 +180,9 @@ def cmd_run(args) -> int:
         f"{summary.total} cells ({summary.computed} computed, {summary.reused} reused) in {summary.wall_s:.1f} s: {counts}.\n"
         f"results: {out / 'results.sqlite'}  table: {out / 'results.csv'}  manifest: {out / 'manifest.json'}"
     )
+    for label, ds in the_plan.datasets.items():
+        for note in ds.notes:
+            print(f"note: dataset '{label}': {note}.")
     if summary.interrupted:
         text, code = _interrupted_message(summary.stopped_by)
         _say(text)

@@ -87,6 +87,7 @@ def outer_splits(dataset, folds: int, repeats: int, stratify: bool, seed: int) -
     for repeat in range(repeats):
         rs = (seed * 1000 + repeat) % 2**32
         if dataset.groups is not None:
+            _check_groups(dataset, folds)
             splitter = StratifiedGroupKFold(folds, shuffle=True, random_state=rs) if classify else GroupKFold(folds, shuffle=True, random_state=rs)
             parts = splitter.split(np.zeros(n), dataset.y, dataset.groups)
         elif classify:
@@ -96,6 +97,16 @@ def outer_splits(dataset, folds: int, repeats: int, stratify: bool, seed: int) -
         for fold, (tr, te) in enumerate(parts):
             out[(repeat, fold)] = (tr, te)
     return out
+
+
+def _check_groups(dataset, folds: int) -> None:
+    n_groups = int(dataset.groups.nunique())
+    if n_groups < folds:
+        raise DataError(
+            f"dataset '{dataset.name}' has {n_groups} distinct group(s) in its group column, fewer than "
+            f"protocol.folds = {folds}: grouped folds need at least one group each. Lower protocol.folds, "
+            "or choose a group column with more groups."
+        )
 
 
 def _enumerate_splits(splits):

@@ -136,10 +136,14 @@ def _check_number(name, value, *, low, high=np.inf, open_ends=""):
         )
     if not ok:
         lo, hi = ("(" if "low" in open_ends else "["), (")" if "high" in open_ends else "]")
-        raise ConfigError(
-            f"TargetStatistics parameter '{name}' must be a finite number in "
-            f"{lo}{low}, {high}{hi}; got {value!r}."
-        )
+        # "in [0, inf]" would seem to allow inf: state an unbounded side as a plain inequality
+        if np.isinf(high) and np.isinf(low):
+            rule = ""
+        elif np.isinf(high):
+            rule = f" {'>' if 'low' in open_ends else '>='} {low:g}"
+        else:
+            rule = f" in {lo}{low}, {high}{hi}"
+        raise ConfigError(f"TargetStatistics parameter '{name}' must be a finite number{rule}; got {value!r}.")
 
 
 def _check_cv(cv):

@@ -351,7 +351,7 @@ def test_set_output_pandas(rng):
         ({"statistic": "median"}, "'statistic' must be one of"),
         ({"missing": "drop"}, "'missing' must be one of"),
         ({"target_type": "ordinal"}, "'target_type' must be one of"),
-        ({"m": -1.0}, r"'m' must be a finite number in \[0, inf\]; got -1.0"),
+        ({"m": -1.0}, r"'m' must be a finite number >= 0; got -1.0"),
         ({"m": True}, "'m' must be a finite number"),
         ({"ramp_width": -2}, "'ramp_width' must be a finite number"),
         ({"ramp_center": np.nan}, "'ramp_center' must be a finite number"),
