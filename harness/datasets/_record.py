@@ -412,7 +412,8 @@ def _column_roles(frame: pd.DataFrame, options: TableOptions, notes: list) -> tu
         _require_columns(frame, options.categorical, "categorical")
         categorical = list(options.categorical)
     else:
-        categorical = [c for c in frame.columns if _is_auto_categorical(frame[c])]
+        listed = set(options.numeric or ())  # a column listed as numeric is never detected as categorical
+        categorical = [c for c in frame.columns if _is_auto_categorical(frame[c]) and c not in listed]
     if options.numeric is not None:
         _require_columns(frame, options.numeric, "numeric")
         wrong = [c for c in options.numeric if not _is_numeric(frame[c]) and not _holds_numbers(frame[c])]
