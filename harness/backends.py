@@ -58,6 +58,24 @@ def _init_worker(driver_pid: int) -> None:
         os._exit(1)
 
 
+def _silence(*names: str) -> dict:
+    """Disable the named loggers and their children; returns their previous state."""
+    known = [n for n in logging.root.manager.loggerDict if any(n == m or n.startswith(m + ".") for m in names)]
+    loggers = {lg: lg.disabled for lg in map(logging.getLogger, set(known) | set(names))}
+    for lg in loggers:
+        lg.disabled = True
+    return loggers
+
+
+def _killed_workers(fut) -> bool:
+    """True when Dask gave up on the task because it killed worker after worker."""
+    if fut.status != "error":
+        return False
+    from distributed.scheduler import KilledWorker
+
+    return isinstance(fut.exception(), KilledWorker)
+
+
 def unit_budget_s(job: UnitJob) -> float | None:
     """Seconds a unit may take: its encoding's limit plus each model cell's (None: unbounded)."""
     limits = [job.timeout_s] + [c.model.cell_timeout_s or job.timeout_s for c in job.cells]
@@ -176,7 +194,8 @@ class DaskCluster:
     ``retries`` times per unit. A lost scheduler stops the run with :class:`ClusterError`.
     """
 
-    POLL_S = 1.0
+    POLL_S = 0.02  # how often the driver looks at its futures
+    CHECK_S = 1.0  # how often, while nothing finishes, it checks that the scheduler is there
 
     def __init__(self, datasets: dict, jobs: int, scheduler: str | None, retries: int = 1):
         try:
@@ -186,6 +205,9 @@ class DaskCluster:
         self.datasets, self.retries, self.scheduler = datasets, retries, scheduler
         self.cluster = None
         self.client = None
+        # distributed logs every rescheduled key and closed connection to stderr; the run
+        # handles those itself and reports what matters in one message
+        self._quiet = _silence("distributed", "tornado", "asyncio")
         try:
             if scheduler:
                 self.client = Client(scheduler, timeout="20s")
@@ -224,39 +246,56 @@ class DaskCluster:
         return self.client.submit(run_unit, self._data(label), job, pure=False)
 
     def run(self, work):
-        from distributed import wait as dask_wait
-
         futures = {}
         tries: dict[int, int] = {}
         for label, job in work:
             futures[self._guard(self._submit, label, job)] = (label, job)
+        idle_since = time.monotonic()
         while futures:
-            try:
-                done = self._guard(dask_wait, list(futures), timeout=self.POLL_S, return_when="FIRST_COMPLETED").done
-            except TimeoutError:
-                self._check_scheduler()
+            # poll the futures' local state: distributed.wait raises as soon as one future is
+            # cancelled (its data lost), which is exactly the case handled here
+            done = [f for f in futures if f.done()]
+            if not done:
+                time.sleep(self.POLL_S)
+                if time.monotonic() - idle_since > self.CHECK_S:
+                    self._check_scheduler()
+                    idle_since = time.monotonic()
                 continue
+            idle_since = time.monotonic()
             for fut in done:
                 label, job = futures.pop(fut)
-                if fut.status == "finished":
-                    yield job, fut.result()
+                rows = self._rows(fut)
+                if rows is not None:
+                    yield job, rows
                     continue
                 self._check_scheduler()
                 tries[id(job)] = tries.get(id(job), 0) + 1
-                if tries[id(job)] > self.retries:
-                    raise ClusterError(
-                        f"a unit of dataset '{label}' was lost with its Dask worker or its data "
-                        f"{tries[id(job)]} times (execution.retries = {self.retries}); the run stopped and "
-                        "recorded nothing for it. Check the workers' logs, then rerun the same command "
-                        "to compute what is missing (raise execution.retries on an unstable cluster)."
-                    )
-                if self._lost_data(fut):
-                    self.remote.pop(label, None)  # send the data again with the new task
-                futures[self._guard(self._submit, label, job)] = (label, job)
+                if tries[id(job)] <= self.retries:
+                    # _submit sends the data again if its copies went with the worker
+                    futures[self._guard(self._submit, label, job)] = (label, job)
+                    continue
+                if _killed_workers(fut):
+                    # the unit's own doing (a crash in native code, memory): record it
+                    yield job, [base_row(c, self.datasets[label], job, "failed",
+                                         f"the unit's task killed Dask workers {tries[id(job)]} times (KilledWorker)")
+                                for c in job.cells]
+                    continue
+                raise ClusterError(
+                    f"a unit of dataset '{label}' was lost with its Dask worker or its data "
+                    f"{tries[id(job)]} times (execution.retries = {self.retries}); the run stopped and "
+                    "recorded nothing for it. Check the workers' logs, then rerun the same command "
+                    "to compute what is missing (raise execution.retries on an unstable cluster)."
+                )
 
-    @staticmethod
-    def _lost_data(fut) -> bool:
-        return fut.status in ("lost", "cancelled") or "lost" in repr(fut.exception() if fut.status == "error" else "")
+    def _rows(self, fut):
+        """The unit's rows, or None when the task or its result was lost with a worker."""
+        if fut.status != "finished":
+            return None
+        try:
+            return fut.result(timeout=120)
+        except Exception:  # noqa: BLE001 - the result's worker died before it was gathered
+            self._check_scheduler()
+            return None
 
     def _check_scheduler(self) -> None:
         if self.client.status not in ("running", "newly-created"):
@@ -285,11 +324,6 @@ class DaskCluster:
         )
 
     def close(self) -> None:
-        # a closing cluster logs every task it cancels; those lines are not the user's business
-        quiet = [logging.getLogger(n) for n in ("distributed", "tornado", "asyncio")]
-        levels = [lg.level for lg in quiet]
-        for lg in quiet:
-            lg.setLevel(logging.CRITICAL + 1)
         try:
             if self.client is not None:
                 self.client.close(timeout=10)
@@ -298,8 +332,11 @@ class DaskCluster:
         except Exception:  # noqa: BLE001, S110 - closing a lost cluster may fail; nothing is lost
             pass
         finally:
-            for lg, level in zip(quiet, levels):
-                lg.setLevel(level)
+            # a client that lost its scheduler may still log from its event-loop thread:
+            # its loggers stay quiet then (the process is about to end with our message)
+            if self.client is None or self.client.status == "closed":
+                for lg, disabled in self._quiet.items():
+                    lg.disabled = disabled
 
 
 def make_backend(kind: str, datasets: dict, jobs: int, scheduler: str | None = None, retries: int = 1,

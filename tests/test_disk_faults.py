@@ -102,6 +102,7 @@ def _snapshot(directory) -> dict:
     return {p.relative_to(directory): p.read_bytes() for p in sorted(directory.rglob("*")) if p.is_file()}
 
 
+@pytest.mark.slow
 @needs_root
 def test_a_finished_store_on_a_read_only_mount_is_read_exported_and_reported(tmp_path):
     src = tmp_path / "src"
@@ -129,6 +130,7 @@ def test_a_finished_store_on_a_read_only_mount_is_read_exported_and_reported(tmp
     assert len(pd.read_parquet(tmp_path / "copy.parquet")) == len(read_results(src)) == 4
 
 
+@pytest.mark.slow
 @needs_root
 def test_a_full_disk_stops_the_run_with_one_message_and_loses_no_row(tmp_path):
     disk = tmp_path / "disk"
