@@ -136,6 +136,14 @@ def test_a_full_disk_stops_the_run_with_one_message_and_loses_no_row(tmp_path):
     disk = tmp_path / "disk"
     config = _tiny_config(tmp_path, repeats=40)  # 160 cells: the WAL outgrows the disk
     with _mounted(disk, "-t", "tmpfs", "-o", "size=400k", "tmpfs"):
+        filler = disk / "filler"
+        with contextlib.suppress(OSError), open(filler, "wb") as fh:
+            while True:
+                fh.write(b"\0" * 4096)
+        at_creation = run("run", config, "--out", disk / "new", "--quiet")  # no room for the store itself
+        assert "no space left on the device of" in assert_clean_refusal(at_creation, code=4)
+        assert not (disk / "new" / "results.sqlite").exists() and not list((disk / "new").glob(".*"))
+        filler.unlink()
         out = disk / "out"
         full = run("run", config, "--out", out, "--quiet", "--jobs", "1")
         flat = assert_clean_refusal(full, code=4)
@@ -151,13 +159,60 @@ def test_a_full_disk_stops_the_run_with_one_message_and_loses_no_row(tmp_path):
         assert again.returncode == 0, again.stderr
         assert f"160 cells ({160 - kept} computed, {kept} reused)" in again.stdout
         csv_before = (out / "results.csv").read_bytes()
-        filler = disk / "filler"
-        with contextlib.suppress(OSError):
-            with open(filler, "wb") as fh:
-                while True:
-                    fh.write(b"\0" * 65536)
+        with contextlib.suppress(OSError), open(filler, "wb") as fh:
+            while True:
+                fh.write(b"\0" * 65536)
         export = run("export", out, "--to", out / "results.csv")  # over the good file
         flat = assert_clean_refusal(export, code=4)
         assert "no space left" in flat
         assert (out / "results.csv").read_bytes() == csv_before  # never truncated
         assert not list(out.glob(".*tmp*"))
+
+
+# --------------------------------------------------------------------------- whole outputs
+def test_a_failed_export_or_report_leaves_the_previous_one_whole(tmp_path):
+    from harness._outputs import swap_in_dir, temporary_beside
+
+    old = tmp_path / "results.csv"
+    old.write_text("cell_id\nc0\n")
+    with pytest.raises(KeyboardInterrupt), temporary_beside(old) as tmp:
+        tmp.write_text("cell_id\nc")  # half written when the Ctrl-C came
+        raise KeyboardInterrupt
+    assert old.read_text() == "cell_id\nc0\n" and sorted(p.name for p in tmp_path.iterdir()) == ["results.csv"]
+    report = tmp_path / "report"
+    report.mkdir()
+    (report / "report.md").write_text("previous")
+    with pytest.raises(OSError), swap_in_dir(report) as new:
+        (new / "report.md").write_text("half")
+        raise OSError(28, "No space left on device")
+    assert (report / "report.md").read_text() == "previous"
+    with swap_in_dir(report) as new:
+        (new / "report.md").write_text("new")
+    assert (report / "report.md").read_text() == "new"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report", "results.csv"]  # no temporary left
+
+
+def test_two_reports_at_once_on_one_directory_both_finish(tmp_path):
+    """Each writer builds its own temporary; the later swap wins, neither crashes."""
+    import threading
+
+    from harness._outputs import swap_in_dir
+
+    report, errors, started = tmp_path / "report", [], threading.Barrier(2)
+
+    def write(tag):
+        try:
+            with swap_in_dir(report) as new:
+                started.wait(timeout=10)  # both are building at the same time
+                (new / "report.md").write_text(tag)
+        except Exception as exc:  # noqa: BLE001
+            errors.append(exc)
+
+    threads = [threading.Thread(target=write, args=(t,)) for t in ("a", "b")]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(timeout=30)
+    assert not errors
+    assert (report / "report.md").read_text() in {"a", "b"}
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report"]
