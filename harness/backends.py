@@ -92,7 +92,7 @@ def _overdue_rows(datasets, label: str, job: UnitJob, budget: float) -> list[dic
 
 
 class InProcess:
-    """Runs units one after another in the driver (``--jobs 1`` without limits): lowest overhead."""
+    """Runs units one after another in the driver (``--jobs 1``): lowest overhead."""
 
     def __init__(self, datasets: dict):
         self.datasets = datasets
@@ -340,15 +340,14 @@ class DaskCluster:
 
 
 def make_backend(kind: str, datasets: dict, jobs: int, scheduler: str | None = None, retries: int = 1,
-                 memory_mb: int = 0, timeout_s: float | None = None):
+                 memory_mb: int = 0):
     """Build the backend for ``--backend``/``--jobs``.
 
-    With a time limit even ``--jobs 1`` runs in one forked worker, so the watchdog can
-    kill it when it stops or hangs in native code; in-process is left for runs without
-    limits.
+    ``--jobs 1`` without a memory cap runs in the driver (lowest overhead); its time limit
+    is SIGALRM alone, as there is no worker a watchdog could kill.
     """
     if kind == "dask":
         return DaskCluster(datasets, jobs, scheduler, retries)
-    if jobs == 1 and not memory_mb and not timeout_s:
+    if jobs == 1 and not memory_mb:
         return InProcess(datasets)
     return ProcessPool(datasets, jobs, retries)

@@ -212,7 +212,7 @@ def _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress) -> Keyboa
     from tqdm import tqdm
 
     work = _jobs_for(plan_, todo)
-    runner = make_backend(backend, plan_.datasets, jobs, scheduler, ex.retries, ex.cell_memory_mb, ex.cell_timeout_s)
+    runner = make_backend(backend, plan_.datasets, jobs, scheduler, ex.retries, ex.cell_memory_mb)
     bar = tqdm(total=len(todo), unit="cell", disable=not progress, file=sys.stderr, dynamic_ncols=True)
     try:
         for job, rows in runner.run(work):
