@@ -227,6 +227,7 @@ class DaskCluster:
                     signal.signal(signal.SIGINT, previous)
                 self.client = Client(self.cluster)
         except (OSError, ValueError, TypeError) as exc:
+            self.close()
             raise ConfigError(
                 f"cannot reach the Dask scheduler at '{scheduler}' (--scheduler / execution.scheduler): "
                 f"{type(exc).__name__}: {exc}. Give an address like tcp://HOST:8786 where `dask scheduler` runs, "
@@ -250,18 +251,19 @@ class DaskCluster:
         tries: dict[int, int] = {}
         for label, job in work:
             futures[self._guard(self._submit, label, job)] = (label, job)
-        idle_since = time.monotonic()
+        checked = time.monotonic()
+        started: dict = {}  # (task key, worker) -> when the scheduler first showed it there
         while futures:
             # poll the futures' local state: distributed.wait raises as soon as one future is
             # cancelled (its data lost), which is exactly the case handled here
             done = [f for f in futures if f.done()]
             if not done:
                 time.sleep(self.POLL_S)
-                if time.monotonic() - idle_since > self.CHECK_S:
+                if time.monotonic() - checked > self.CHECK_S:
                     self._check_scheduler()
-                    idle_since = time.monotonic()
+                    yield from self._watchdog(futures, started)
+                    checked = time.monotonic()
                 continue
-            idle_since = time.monotonic()
             for fut in done:
                 label, job = futures.pop(fut)
                 rows = self._rows(fut)
@@ -287,6 +289,38 @@ class DaskCluster:
                     "to compute what is missing (raise execution.retries on an unstable cluster)."
                 )
 
+    def _watchdog(self, futures: dict, started: dict):
+        """Time out units processing past their limits by the margin; restart their workers.
+
+        A stopped worker, or one stuck in native code, never returns its task and its
+        SIGALRM-free thread cannot stop itself. The unit is recorded as ``timeout`` and its
+        worker restarted through its nanny (a worker without a nanny stays stuck, but the
+        run goes on).
+        """
+        now = time.monotonic()
+        threads = self._guard(self.client.nthreads)
+        running = {}  # key -> worker, for the tasks a worker is executing (its oldest ones)
+        for worker, keys in self._guard(self.client.processing).items():
+            # the scheduler also lists tasks queued on a worker behind the executing ones
+            for key in keys:
+                started.setdefault((key, worker), now)
+            oldest = sorted(keys, key=lambda k: started[(k, worker)])[: threads.get(worker, 1)]
+            running.update((key, worker) for key in oldest)
+        stuck = []
+        for fut, (label, job) in list(futures.items()):
+            budget = unit_budget_s(job)
+            worker = running.get(fut.key)
+            if budget and worker and now - started[(fut.key, worker)] > budget + WATCHDOG_MARGIN_S:
+                stuck.append(worker)
+                futures.pop(fut)
+                fut.cancel()
+                yield job, _overdue_rows(self.datasets, label, job, budget)
+        if stuck:
+            try:
+                self.client.restart_workers(sorted(set(stuck)), timeout=30, raise_for_error=False)
+            except Exception:  # noqa: BLE001, S110 - no nanny: the worker stays stuck, the run goes on
+                pass
+
     def _rows(self, fut):
         """The unit's rows, or None when the task or its result was lost with a worker."""
         if fut.status != "finished":
@@ -305,9 +339,7 @@ class DaskCluster:
         """Call ``fn`` and turn a lost connection to the scheduler into :class:`ClusterError`."""
         try:
             return fn(*args, **kwargs)
-        except TimeoutError:
-            raise
-        except (OSError, RuntimeError, ConnectionError) as exc:
+        except (OSError, RuntimeError) as exc:  # timeouts and closed comms included
             raise self._lost_scheduler(exc) from None
         except Exception as exc:  # noqa: BLE001 - distributed's CancelledError, CommClosedError ...
             if self.client.status in ("running", "newly-created"):
