@@ -218,7 +218,9 @@ class DaskCluster:
                 previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
                 try:
                     self.cluster = LocalCluster(
-                        n_workers=jobs, threads_per_worker=1, processes=True, dashboard_address=None,
+                        n_workers=jobs, threads_per_worker=1, processes=True,
+                        # a free port: a fixed one taken by another cluster prints a warning
+                        dashboard_address=":0",
                         # the workers' own log lines (tasks cancelled at close) are not the
                         # user's business; a unit's failure is in its row
                         silence_logs=logging.CRITICAL,
@@ -251,19 +253,18 @@ class DaskCluster:
         tries: dict[int, int] = {}
         for label, job in work:
             futures[self._guard(self._submit, label, job)] = (label, job)
-        checked = time.monotonic()
-        started: dict = {}  # (task key, worker) -> when the scheduler first showed it there
+        idle_since = time.monotonic()
         while futures:
             # poll the futures' local state: distributed.wait raises as soon as one future is
             # cancelled (its data lost), which is exactly the case handled here
             done = [f for f in futures if f.done()]
             if not done:
                 time.sleep(self.POLL_S)
-                if time.monotonic() - checked > self.CHECK_S:
+                if time.monotonic() - idle_since > self.CHECK_S:
                     self._check_scheduler()
-                    yield from self._watchdog(futures, started)
-                    checked = time.monotonic()
+                    idle_since = time.monotonic()
                 continue
+            idle_since = time.monotonic()
             for fut in done:
                 label, job = futures.pop(fut)
                 rows = self._rows(fut)
@@ -288,38 +289,6 @@ class DaskCluster:
                     "recorded nothing for it. Check the workers' logs, then rerun the same command "
                     "to compute what is missing (raise execution.retries on an unstable cluster)."
                 )
-
-    def _watchdog(self, futures: dict, started: dict):
-        """Time out units processing past their limits by the margin; restart their workers.
-
-        A stopped worker, or one stuck in native code, never returns its task and its
-        SIGALRM-free thread cannot stop itself. The unit is recorded as ``timeout`` and its
-        worker restarted through its nanny (a worker without a nanny stays stuck, but the
-        run goes on).
-        """
-        now = time.monotonic()
-        threads = self._guard(self.client.nthreads)
-        running = {}  # key -> worker, for the tasks a worker is executing (its oldest ones)
-        for worker, keys in self._guard(self.client.processing).items():
-            # the scheduler also lists tasks queued on a worker behind the executing ones
-            for key in keys:
-                started.setdefault((key, worker), now)
-            oldest = sorted(keys, key=lambda k: started[(k, worker)])[: threads.get(worker, 1)]
-            running.update((key, worker) for key in oldest)
-        stuck = []
-        for fut, (label, job) in list(futures.items()):
-            budget = unit_budget_s(job)
-            worker = running.get(fut.key)
-            if budget and worker and now - started[(fut.key, worker)] > budget + WATCHDOG_MARGIN_S:
-                stuck.append(worker)
-                futures.pop(fut)
-                fut.cancel()
-                yield job, _overdue_rows(self.datasets, label, job, budget)
-        if stuck:
-            try:
-                self.client.restart_workers(sorted(set(stuck)), timeout=30, raise_for_error=False)
-            except Exception:  # noqa: BLE001, S110 - no nanny: the worker stays stuck, the run goes on
-                pass
 
     def _rows(self, fut):
         """The unit's rows, or None when the task or its result was lost with a worker."""

@@ -86,26 +86,3 @@ def test_deleting_the_store_mid_run_stops_the_run(tmp_path):
     _, stderr = proc.communicate(timeout=120)
     flat = assert_clean_refusal(type("P", (), {"returncode": proc.returncode, "stderr": stderr}), code=3)
     assert "was deleted or replaced while this run was writing to it" in flat
-
-
-@pytest.mark.slow
-def test_watchdog_times_out_units_of_stopped_dask_workers(tmp_path):
-    config = tmp_path / "watched.toml"
-    config.write_text(SMALL.read_text() + "\n[execution]\ncell_timeout_s = 2\n")
-    out = tmp_path / "run"
-    proc = start("run", config, "--out", out, "--quiet", "--backend", "dask", "--jobs", "2")
-    assert wait_for_rows(out, 1, proc) > 0
-    workers = [p for p in _harness_children(proc) if "spawn_main" in " ".join(p.cmdline())]
-    assert len(workers) == 2
-    for worker in workers:
-        worker.suspend()
-    stdout, stderr = proc.communicate(timeout=150)
-    assert proc.returncode == 0, stderr
-    from harness.store import read_results
-
-    df = read_results(out)
-    assert len(df) == 72 and df["cell_id"].is_unique
-    timed_out = df[df["status"] == "timeout"]
-    assert 1 <= len(timed_out) <= 2 * 2
-    assert timed_out["error"].str.contains("the watchdog killed it", regex=False).all()
-    assert (df.loc[df["status"] != "timeout", "status"] == "ok").all()
