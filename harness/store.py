@@ -94,8 +94,8 @@ class Store:
     as it lives; the kernel releases it when the process dies. A new store is built under
     a temporary name with its schema committed, then renamed into place, so a kill during
     creation leaves either no store or a valid empty one. A reader (``lock=False``) opens
-    the file read-only (``mode=ro``): it never switches the journal mode, never creates a
-    file, and works on a read-only mount.
+    the file read-only (``mode=ro``): it never switches the journal mode nor writes the
+    database, and works on a read-only mount.
 
     Parameters
     ----------
@@ -127,13 +127,13 @@ class Store:
         self.db = None
         if not lock:
             if not self.path.is_file():
-                raise StoreError(f"no results store at {self.path}; run `harness run CONFIG --out {self.out}` first.")
+                raise self._missing()
             self.db = self._open(readonly=True)
             return
         if create:
             _make_dir(self.out)
         elif not self.path.exists():
-            raise StoreError(f"no results store at {self.path}; run `harness run CONFIG --out {self.out}` first.")
+            raise self._missing()
         self._take_lock()
         try:
             _finish_keeping(self.out)  # roll forward a --fresh that was killed half-way
@@ -149,6 +149,9 @@ class Store:
             raise
 
     # --- opening -------------------------------------------------------------------------
+    def _missing(self) -> StoreError:
+        return StoreError(f"no results store at {self.path}; run `harness run CONFIG --out {self.out}` first.")
+
     def _take_lock(self) -> None:
         """flock the output directory itself: no file a user could delete holds the lock."""
         try:
