@@ -180,9 +180,12 @@ def cmd_run(args) -> int:
         f"{summary.total} cells ({summary.computed} computed, {summary.reused} reused) in {summary.wall_s:.1f} s: {counts}.\n"
         f"results: {out / 'results.sqlite'}  table: {out / 'results.csv'}  manifest: {out / 'manifest.json'}"
     )
+    from harness.datasets._record import CHECK
+
     for label, ds in the_plan.datasets.items():
         for note in ds.notes:
-            print(f"note: dataset '{label}': {note}.")
+            if note.startswith(CHECK):
+                print(f"note: dataset '{label}': {note[len(CHECK):]}.")
     if summary.interrupted:
         text, code = _interrupted_message(summary.stopped_by)
         _say(text)

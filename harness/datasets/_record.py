@@ -35,6 +35,7 @@ from harness.errors import ConfigError, DataError, closest
 
 __all__ = [
     "TASKS",
+    "CHECK",
     "Dataset",
     "TableOptions",
     "fingerprint",
@@ -43,6 +44,9 @@ __all__ = [
 ]
 
 TASKS = ("binary", "multiclass", "regression")
+# notes with this prefix flag a guess about the data the user should check; the run
+# summary prints them (the manifest holds every note)
+CHECK = "check: "
 
 
 def _list_columns(columns, limit: int = 40) -> str:
@@ -431,7 +435,7 @@ def _column_roles(frame: pd.DataFrame, options: TableOptions, notes: list) -> tu
     numbers = [c for c in categorical if options.categorical is None and _holds_numbers(frame[c])]
     for c in numbers:
         notes.append(
-            f"column '{c}' holds only numbers ({frame[c].nunique()} distinct) stored as text or decimals, so it was "
+            f"{CHECK}column '{c}' holds only numbers ({frame[c].nunique()} distinct) stored as text or decimals, so it was "
             "taken as categorical with one level per value; list it under `numeric` to use it as a number"
         )
     ids = [c for c in categorical if len(frame) > 1 and frame[c].nunique() == len(frame)]
@@ -496,7 +500,7 @@ def _settle_task(y: pd.Series, task, notes: list) -> tuple[str, pd.Series]:
     if clean is not None:
         # counts only: the labels of a private file must not reach the manifest
         notes.append(
-            f"target '{y.name}' has {k} labels that are only {clean} once case and surrounding spaces are "
+            f"{CHECK}target '{y.name}' has {k} labels that are only {clean} once case and surrounding spaces are "
             f"ignored; they are kept as {k} classes. Clean the labels in the data if they mean the same class"
         )
     if task == "regression" and not numeric:
