@@ -3,38 +3,53 @@
 A backend takes ``(dataset_label, UnitJob)`` pairs and yields ``(UnitJob, rows)`` as units
 finish, in any order. Only the driver writes the store. Both backends run the same
 ``cellwork.run_unit`` with the same seeds, so their numbers are identical.
+
+Rows with status ``failed`` come only from a cell's own error (``run_unit`` catches
+those). A unit lost with a worker or with its data is run again; when that keeps
+happening, or the cluster itself is gone, the run stops with :class:`ClusterError` and
+records nothing for the lost units, so a plain rerun computes them.
 """
 
 from __future__ import annotations
 
+import logging
 import multiprocessing as mp
 import os
+import signal
+import time
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
 from typing import Iterable, Iterator
 
 from harness.cellwork import UnitJob, base_row, run_unit
-from harness.errors import ConfigError
+from harness.errors import ClusterError, ConfigError
 
-__all__ = ["InProcess", "ProcessPool", "DaskCluster", "make_backend"]
+__all__ = ["InProcess", "ProcessPool", "DaskCluster", "make_backend", "unit_budget_s", "WATCHDOG_MARGIN_S"]
 
 _DATASETS: dict = {}  # filled in the driver before forking; workers inherit it
+
+# how far past the sum of its cells' time limits a unit may run before its worker is
+# killed: the limits are enforced inside the worker (SIGALRM); the watchdog is for a worker
+# that cannot enforce them (stopped, or stuck in native code that never returns)
+WATCHDOG_MARGIN_S = 5.0
 
 
 def _work(label: str, job: UnitJob) -> list[dict]:
     return run_unit(_DATASETS[label], job)
 
 
-def _die_with_driver(driver_pid: int) -> None:
-    """Pool-worker initializer: ask Linux to SIGKILL this worker when the driver dies.
+def _init_worker(driver_pid: int) -> None:
+    """Pool-worker initializer: die with the driver; leave Ctrl-C and SIGTERM to it.
 
-    Without it a SIGKILL of the driver left its forked workers running forever (blocked
-    on the task queue, which their siblings keep open), burning memory and CPU.
-    Best effort: a no-op where ``prctl`` is unavailable.
+    Without PR_SET_PDEATHSIG a SIGKILL of the driver left its forked workers running
+    forever. A terminal's Ctrl-C reaches every process of the group: workers ignore it
+    (the driver stops them) instead of each printing a traceback; SIGTERM kills them
+    outright rather than running the driver's inherited handler.
     """
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
     try:
         import ctypes
-        import signal
 
         ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # 1 = PR_SET_PDEATHSIG
     except (OSError, AttributeError):  # pragma: no cover - not Linux
@@ -43,8 +58,37 @@ def _die_with_driver(driver_pid: int) -> None:
         os._exit(1)
 
 
-def _died(datasets, label: str, job: UnitJob, why: str) -> list[dict]:
-    return [base_row(c, datasets[label], job, "failed", why) for c in job.cells]
+def _silence(*names: str) -> dict:
+    """Disable the named loggers and their children; returns their previous state."""
+    known = [n for n in logging.root.manager.loggerDict if any(n == m or n.startswith(m + ".") for m in names)]
+    loggers = {lg: lg.disabled for lg in map(logging.getLogger, set(known) | set(names))}
+    for lg in loggers:
+        lg.disabled = True
+    return loggers
+
+
+def _killed_workers(fut) -> bool:
+    """True when Dask gave up on the task because it killed worker after worker."""
+    if fut.status != "error":
+        return False
+    from distributed.scheduler import KilledWorker
+
+    return isinstance(fut.exception(), KilledWorker)
+
+
+def unit_budget_s(job: UnitJob) -> float | None:
+    """Seconds a unit may take: its encoding's limit plus each model cell's (None: unbounded)."""
+    limits = [job.timeout_s] + [c.model.cell_timeout_s or job.timeout_s for c in job.cells]
+    if not all(limits):
+        return None
+    return float(sum(limits))
+
+
+def _overdue_rows(datasets, label: str, job: UnitJob, budget: float) -> list[dict]:
+    why = (f"worker ran {budget + WATCHDOG_MARGIN_S:g} s, past the unit's time limits of {budget:g} s in total "
+           "(execution.cell_timeout_s, models.<label>.cell_timeout_s), without returning (stopped or stuck "
+           "in native code); the watchdog killed it")
+    return [base_row(c, datasets[label], job, "timeout", why) for c in job.cells]
 
 
 class InProcess:
@@ -65,8 +109,11 @@ class ProcessPool:
     """A pool of forked worker processes (``--jobs N``).
 
     A worker that dies (killed, out of memory at the OS level) breaks the pool: the pool
-    is rebuilt and the units that were in flight are retried up to ``retries`` times,
-    then recorded as failed with the reason.
+    is rebuilt and the units that were in flight are run again, each up to ``retries``
+    times; a unit that kills its worker every time is recorded as failed with the reason.
+    A watchdog kills the pool when a unit runs past its cells' time limits by
+    ``WATCHDOG_MARGIN_S`` (the worker is stopped or stuck where SIGALRM cannot reach it);
+    that unit is recorded as ``timeout``, the others in flight are run again.
     """
 
     def __init__(self, datasets: dict, jobs: int, retries: int = 1):
@@ -77,99 +124,229 @@ class ProcessPool:
 
     def _new_pool(self):
         return ProcessPoolExecutor(
-            self.jobs, mp_context=mp.get_context("fork"), initializer=_die_with_driver, initargs=(os.getpid(),)
+            self.jobs, mp_context=mp.get_context("fork"), initializer=_init_worker, initargs=(os.getpid(),)
         )
 
     def run(self, work):
         pending = list(work)[::-1]
         tries: dict[int, int] = {}
         self.pool = self._new_pool()
-        inflight = {}
+        inflight: dict = {}  # future -> (label, job, deadline or None)
         while pending or inflight:
-            while pending and len(inflight) < 2 * self.jobs:
+            # at most one unit per worker, so a unit starts when it is submitted and its
+            # deadline counts from there
+            while pending and len(inflight) < self.jobs:
                 label, job = pending.pop()
-                inflight[self.pool.submit(_work, label, job)] = (label, job)
-            done, _ = wait(inflight, return_when=FIRST_COMPLETED)
+                budget = unit_budget_s(job)
+                deadline = time.monotonic() + budget + WATCHDOG_MARGIN_S if budget else None
+                inflight[self.pool.submit(_work, label, job)] = (label, job, deadline)
+            deadlines = [d for _, _, d in inflight.values() if d is not None]
+            timeout = max(0.0, min(deadlines) - time.monotonic()) + 0.05 if deadlines else None
+            done, _ = wait(inflight, timeout=timeout, return_when=FIRST_COMPLETED)
             broken = False
             for fut in done:
-                label, job = inflight.pop(fut)
+                label, job, _ = inflight.pop(fut)
                 try:
                     yield job, fut.result()
                 except BrokenProcessPool:
                     broken = True
-                    key = id(job)
-                    tries[key] = tries.get(key, 0) + 1
-                    if tries[key] > self.retries:
-                        yield job, _died(self.datasets, label, job, "worker process died while running this unit")
+                    tries[id(job)] = tries.get(id(job), 0) + 1
+                    if tries[id(job)] > self.retries:
+                        yield job, [base_row(c, self.datasets[label], job, "failed",
+                                             "worker process died while running this unit") for c in job.cells]
                     else:
                         pending.append((label, job))
+            now = time.monotonic()
+            overdue = [f for f, (_, _, d) in inflight.items() if d is not None and now > d and not f.done()]
+            for fut in overdue:
+                label, job, _ = inflight.pop(fut)
+                yield job, _overdue_rows(self.datasets, label, job, unit_budget_s(job))
+            if overdue:
+                self._kill_workers()
+                broken = True
             if broken:
-                # every other in-flight unit is lost with the pool: requeue them too
-                pending.extend(inflight.values())
+                # every other in-flight unit is lost with the pool: run them again
+                pending.extend((label, job) for label, job, _ in inflight.values())
                 inflight.clear()
                 self.pool.shutdown(wait=False, cancel_futures=True)
                 self.pool = self._new_pool()
 
+    def _kill_workers(self) -> None:
+        # SIGKILL: a stopped process never acts on SIGTERM
+        for proc in list(getattr(self.pool, "_processes", {}).values()):
+            if proc.is_alive():
+                proc.kill()
+        for proc in list(getattr(self.pool, "_processes", {}).values()):
+            proc.join(5)
+
     def close(self) -> None:
         if self.pool is not None:
-            for proc in list(getattr(self.pool, "_processes", {}).values()):
-                if proc.is_alive():
-                    proc.terminate()
+            self._kill_workers()
             self.pool.shutdown(wait=False, cancel_futures=True)
 
 
 class DaskCluster:
     """Runs units on a Dask cluster: an existing one (``scheduler`` address) or a local one.
 
-    Workers need the ``harness`` package installed. Datasets are broadcast once per run.
-    A task whose worker dies is retried by Dask (``retries``); one that still fails is
-    recorded as failed.
+    Workers need the ``harness`` package installed. The driver keeps every dataset and
+    scatters it to the workers; a task that fails because its worker or its data was lost
+    is submitted again, with the data sent again when its copies are gone, up to
+    ``retries`` times per unit. A lost scheduler stops the run with :class:`ClusterError`.
     """
+
+    POLL_S = 0.02  # how often the driver looks at its futures
+    CHECK_S = 1.0  # how often, while nothing finishes, it checks that the scheduler is there
 
     def __init__(self, datasets: dict, jobs: int, scheduler: str | None, retries: int = 1):
         try:
             from distributed import Client, LocalCluster
         except ImportError as exc:  # pragma: no cover - dependency of the package
             raise ConfigError(f"the dask backend needs `distributed` installed: {exc}") from None
-        self.datasets, self.retries = datasets, retries
+        self.datasets, self.retries, self.scheduler = datasets, retries, scheduler
         self.cluster = None
+        self.client = None
+        # distributed logs every rescheduled key and closed connection to stderr; the run
+        # handles those itself and reports what matters in one message
+        self._quiet = _silence("distributed", "tornado", "asyncio")
         try:
             if scheduler:
                 self.client = Client(scheduler, timeout="20s")
             else:
-                self.cluster = LocalCluster(
-                    n_workers=jobs, threads_per_worker=1, processes=True, dashboard_address=None
-                )
+                # the worker processes inherit an ignored SIGINT: a terminal's Ctrl-C then
+                # stops only the driver, which closes the cluster, instead of every worker
+                # printing its own traceback
+                previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+                try:
+                    self.cluster = LocalCluster(
+                        n_workers=jobs, threads_per_worker=1, processes=True,
+                        # a free port: a fixed one taken by another cluster prints a warning
+                        dashboard_address=":0",
+                        # the workers' own log lines (tasks cancelled at close) are not the
+                        # user's business; a unit's failure is in its row
+                        silence_logs=logging.CRITICAL,
+                    )
+                finally:
+                    signal.signal(signal.SIGINT, previous)
                 self.client = Client(self.cluster)
-        except OSError as exc:
+        except (OSError, ValueError, TypeError) as exc:
+            self.close()
             raise ConfigError(
-                f"cannot reach the Dask scheduler at '{scheduler}' (--scheduler / execution.scheduler): {exc}. "
-                "Start a scheduler there, or omit the address to use a local cluster."
+                f"cannot reach the Dask scheduler at '{scheduler}' (--scheduler / execution.scheduler): "
+                f"{type(exc).__name__}: {exc}. Give an address like tcp://HOST:8786 where `dask scheduler` runs, "
+                "or omit the address to use a local cluster."
             ) from None
-        self.remote = {k: self.client.scatter(v, broadcast=True) for k, v in datasets.items()}
+        self.remote: dict = {}
+
+    def _data(self, label: str):
+        """The scattered dataset, sent again when every copy was lost with its workers."""
+        fut = self.remote.get(label)
+        if fut is None or fut.status != "finished":
+            fut = self.client.scatter(self.datasets[label], broadcast=True, hash=False)
+            self.remote[label] = fut
+        return fut
+
+    def _submit(self, label: str, job: UnitJob):
+        return self.client.submit(run_unit, self._data(label), job, pure=False)
 
     def run(self, work):
-        from distributed import as_completed
-
         futures = {}
+        tries: dict[int, int] = {}
         for label, job in work:
-            fut = self.client.submit(run_unit, self.remote[label], job, pure=False, retries=self.retries)
-            futures[fut] = (label, job)
-        for fut in as_completed(list(futures)):
-            label, job = futures.pop(fut)
-            try:
-                yield job, fut.result()
-            except Exception as exc:  # noqa: BLE001 - KilledWorker and friends
-                yield job, _died(self.datasets, label, job, f"Dask task failed: {type(exc).__name__}: {exc}")
+            futures[self._guard(self._submit, label, job)] = (label, job)
+        idle_since = time.monotonic()
+        while futures:
+            # poll the futures' local state: distributed.wait raises as soon as one future is
+            # cancelled (its data lost), which is exactly the case handled here
+            done = [f for f in futures if f.done()]
+            if not done:
+                time.sleep(self.POLL_S)
+                if time.monotonic() - idle_since > self.CHECK_S:
+                    self._check_scheduler()
+                    idle_since = time.monotonic()
+                continue
+            idle_since = time.monotonic()
+            for fut in done:
+                label, job = futures.pop(fut)
+                rows = self._rows(fut)
+                if rows is not None:
+                    yield job, rows
+                    continue
+                self._check_scheduler()
+                tries[id(job)] = tries.get(id(job), 0) + 1
+                if tries[id(job)] <= self.retries:
+                    # _submit sends the data again if its copies went with the worker
+                    futures[self._guard(self._submit, label, job)] = (label, job)
+                    continue
+                if _killed_workers(fut):
+                    # the unit's own doing (a crash in native code, memory): record it
+                    yield job, [base_row(c, self.datasets[label], job, "failed",
+                                         f"the unit's task killed Dask workers {tries[id(job)]} times (KilledWorker)")
+                                for c in job.cells]
+                    continue
+                raise ClusterError(
+                    f"a unit of dataset '{label}' was lost with its Dask worker or its data "
+                    f"{tries[id(job)]} times (execution.retries = {self.retries}); the run stopped and "
+                    "recorded nothing for it. Check the workers' logs, then rerun the same command "
+                    "to compute what is missing (raise execution.retries on an unstable cluster)."
+                )
+
+    def _rows(self, fut):
+        """The unit's rows, or None when the task or its result was lost with a worker."""
+        if fut.status != "finished":
+            return None
+        try:
+            return fut.result(timeout=120)
+        except Exception:  # noqa: BLE001 - the result's worker died before it was gathered
+            self._check_scheduler()
+            return None
+
+    def _check_scheduler(self) -> None:
+        if self.client.status not in ("running", "newly-created"):
+            raise self._lost_scheduler()
+
+    def _guard(self, fn, *args, **kwargs):
+        """Call ``fn`` and turn a lost connection to the scheduler into :class:`ClusterError`."""
+        try:
+            return fn(*args, **kwargs)
+        except (OSError, RuntimeError) as exc:  # timeouts and closed comms included
+            raise self._lost_scheduler(exc) from None
+        except Exception as exc:  # noqa: BLE001 - distributed's CancelledError, CommClosedError ...
+            if self.client.status in ("running", "newly-created"):
+                raise
+            raise self._lost_scheduler(exc) from None
+
+    def _lost_scheduler(self, exc: BaseException | None = None) -> ClusterError:
+        where = self.scheduler or "the local cluster"
+        why = f" ({type(exc).__name__})" if exc is not None else ""
+        return ClusterError(
+            f"lost the connection to the Dask scheduler at {where}{why}; the run stopped. Every unit "
+            "finished before is kept in the store and nothing was recorded as failed. Restart the "
+            "scheduler and rerun the same command (or rerun with --backend local) to compute the rest."
+        )
 
     def close(self) -> None:
-        self.client.close()
-        if self.cluster is not None:
-            self.cluster.close()
+        try:
+            if self.client is not None:
+                self.client.close(timeout=10)
+            if self.cluster is not None:
+                self.cluster.close(timeout=10)
+        except Exception:  # noqa: BLE001, S110 - closing a lost cluster may fail; nothing is lost
+            pass
+        finally:
+            # a client that lost its scheduler may still log from its event-loop thread:
+            # its loggers stay quiet then (the process is about to end with our message)
+            if self.client is None or self.client.status == "closed":
+                for lg, disabled in self._quiet.items():
+                    lg.disabled = disabled
 
 
-def make_backend(kind: str, datasets: dict, jobs: int, scheduler: str | None = None, retries: int = 1, memory_mb: int = 0):
-    """Build the backend for ``--backend``/``--jobs``."""
+def make_backend(kind: str, datasets: dict, jobs: int, scheduler: str | None = None, retries: int = 1,
+                 memory_mb: int = 0):
+    """Build the backend for ``--backend``/``--jobs``.
+
+    ``--jobs 1`` without a memory cap runs in the driver (lowest overhead); its time limit
+    is SIGALRM alone, as there is no worker a watchdog could kill.
+    """
     if kind == "dask":
         return DaskCluster(datasets, jobs, scheduler, retries)
     if jobs == 1 and not memory_mb:

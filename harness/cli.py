@@ -1,18 +1,21 @@
 """Command line: argument parsing and exit codes only; the work lives in the modules.
 
-Exit codes: 0 success, 2 bad input (config, data, options), 3 results store problem,
-130 interrupted. A ``HarnessError`` is printed as one paragraph, never a traceback.
+Exit codes: 0 success, 2 bad input (config, data, options, output paths), 3 results store
+problem, 4 disk full, 130 interrupted by Ctrl-C (SIGINT), 143 stopped by SIGTERM. A
+``HarnessError`` is printed as one paragraph, never a traceback.
 """
 
 from __future__ import annotations
 
 import argparse
+import errno
+import signal
 import sys
 import textwrap
 import warnings
 from pathlib import Path
 
-from harness.errors import ConfigError, HarnessError
+from harness.errors import ConfigError, DiskFullError, HarnessError
 
 __all__ = ["main"]
 
@@ -38,7 +41,7 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--jobs", type=int, help="parallel worker processes")
     run.add_argument("--backend", choices=["local", "dask"], help="execution backend")
     run.add_argument("--scheduler", help="Dask scheduler address (tcp://host:8786); none = local cluster")
-    run.add_argument("--fresh", action="store_true", help="start over (the old store is kept as results.sqlite.old)")
+    run.add_argument("--fresh", action="store_true", help="start over (the old store is kept as kept-N/, numbered)")
     run.add_argument("--retry-failed", action="store_true", help="also rerun cells recorded as failed, timeout or out-of-memory")
     run.add_argument("--only", metavar="PATTERN", help="only cells whose dataset/encoder/model label matches")
     run.add_argument("--dry-run", action="store_true", help="print the grid size and the cells, run nothing")
@@ -56,6 +59,7 @@ def _parser() -> argparse.ArgumentParser:
     rep = sub.add_parser("report", help="write DIR/report/: report.md, report.html, figures, tables")
     rep.add_argument("dir")
     rep.add_argument("--compare", metavar="OTHER_DIR", help="show what changed against another run")
+    rep.add_argument("--out", metavar="OUT_DIR", help="write OUT_DIR/report/ instead of DIR/report/ (e.g. DIR is read-only)")
 
     bench = sub.add_parser("bench", help="speed benchmarks that print ratios against a reference")
     bench.add_argument("what", choices=["encoders", "runner", "scaling"])
@@ -63,8 +67,26 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
+INTERRUPTED = "finished cells are kept in the store; rerun the same command to resume."
+
+
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, raised where Ctrl-C would be so that every backend stops the same way."""
+
+
+def _on_sigterm(signum, frame):
+    raise Terminated()
+
+
+def _interrupted_message(exc: BaseException) -> tuple[str, int]:
+    if isinstance(exc, Terminated):
+        return f"stopped by SIGTERM: {INTERRUPTED}", 128 + signal.SIGTERM
+    return f"interrupted: {INTERRUPTED}", 128 + signal.SIGINT
+
+
 def main(argv=None) -> int:
     args = _parser().parse_args(argv)
+    previous = signal.signal(signal.SIGTERM, _on_sigterm)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("default", UserWarning)
@@ -72,19 +94,37 @@ def main(argv=None) -> int:
     except HarnessError as exc:
         _say(f"error: {exc}")
         return exc.exit_code
-    except KeyboardInterrupt:
-        _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
-        return 130
+    except KeyboardInterrupt as exc:
+        text, code = _interrupted_message(exc)
+        _say(text)
+        return code
     except BrokenPipeError:  # output piped into `head` and the like
         sys.stderr.close()
         return 0
-    except Exception as exc:  # noqa: BLE001 - a bug must still not print a traceback at the user
-        log = _write_traceback()
+    except OSError as exc:
+        if exc.errno not in (errno.ENOSPC, errno.EDQUOT, errno.EROFS):
+            return _internal_error(exc)
+        where = Path(exc.filename).parent if exc.filename else "the output directory"
+        full = exc.errno != errno.EROFS
         _say(
-            f"internal error: {type(exc).__name__}: {exc}. This is a bug in harness, not in your input; "
-            f"finished cells are kept. The traceback is in {log}; please attach it to a bug report."
+            f"error: {'no space left on the device of' if full else 'read-only file system at'} {where} "
+            f"({exc.strerror}). Every row committed before is kept. "
+            + ("Free some space and rerun the same command." if full else "Pass --out to a writable directory.")
         )
-        return 1
+        return DiskFullError.exit_code if full else ConfigError.exit_code
+    except Exception as exc:  # noqa: BLE001 - a bug must still not print a traceback at the user
+        return _internal_error(exc)
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+def _internal_error(exc: BaseException) -> int:
+    log = _write_traceback()
+    _say(
+        f"internal error: {type(exc).__name__}: {exc}. This is a bug in harness, not in your input; "
+        f"finished cells are kept. The traceback is in {log}; please attach it to a bug report."
+    )
+    return 1
 
 
 def _write_traceback() -> str:
@@ -127,6 +167,12 @@ def cmd_run(args) -> int:
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be an integer >= 1; got {args.jobs}.")
     config = _load_for_run(args)
+    if args.scheduler and (args.backend or config.execution.backend) != "dask":
+        raise ConfigError(
+            f"--scheduler '{args.scheduler}' is given but the backend is "
+            f"'{args.backend or config.execution.backend}', which does not use a scheduler. Add --backend dask "
+            "(or set execution.backend = \"dask\"), or drop --scheduler."
+        )
     if args.jobs is not None and not (args.scheduler or config.execution.scheduler):
         check_jobs(args.jobs, "--jobs")
     the_plan = plan(config, args.only)
@@ -150,9 +196,16 @@ def cmd_run(args) -> int:
         from harness.store import describe_set_aside
 
         _say("note: " + describe_set_aside(summary.set_aside))
+    from harness.datasets._record import CHECK
+
+    for label, ds in the_plan.datasets.items():
+        for note in ds.notes:
+            if note.startswith(CHECK):
+                print(f"note: dataset '{label}': {note[len(CHECK):]}.")
     if summary.interrupted:
-        _say("interrupted: finished cells are kept in the store; rerun the same command to resume.")
-        return 130
+        text, code = _interrupted_message(summary.stopped_by)
+        _say(text)
+        return code
     _warn_few_folds(config)
     return 0
 
@@ -252,7 +305,7 @@ def cmd_report(args) -> int:
         Store(where, lock=False, create=False).close()
     from harness.reporting import write_report
 
-    path = write_report(args.dir, compare=args.compare)
+    path = write_report(args.dir, compare=args.compare, out=args.out)
     print(f"report: {path}")
     return 0
 

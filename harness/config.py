@@ -14,6 +14,7 @@ import itertools
 import json
 import math
 import os
+import re
 import tomllib
 import types
 import typing
@@ -144,6 +145,30 @@ def _number_at_least(lo, hi=None):
 
 
 _STR = (lambda v: isinstance(v, str) and v != "", "a non-empty string")
+
+NAME_MAX = 100
+
+
+def _plain_name(v) -> bool:
+    """A name that is safe as one directory level and readable in a report."""
+    return (
+        isinstance(v, str) and 0 < len(v) <= NAME_MAX and v == v.strip() and v.isprintable()
+        and not any(sep in v for sep in "/\\") and not v.startswith(".")
+    )
+
+
+_NAME = (
+    _plain_name,
+    f"a plain name of 1 to {NAME_MAX} printable characters, without '/', '\\', a leading '.' or "
+    "surrounding spaces (it names the directory results/<name>/)",
+)
+# a Dask address: tcp://host:port (or tls://, ws://, ...), or host:port
+_ADDRESS_RE = re.compile(r"^([a-z]+://)?[A-Za-z0-9_.\-\[\]:]+:\d{1,5}$")
+_ADDRESS = (
+    lambda v: isinstance(v, str) and bool(_ADDRESS_RE.match(v)),
+    "a Dask scheduler address such as tcp://10.0.0.5:8786",
+)
+SEED_MAX = 2**32 - 1
 _BOOL = (lambda v: isinstance(v, bool), "true or false")
 
 
@@ -171,7 +196,7 @@ def _number_between(lo, hi):
 
 RULES = {
     "experiment": {
-        "name": (_STR, None),
+        "name": (_NAME, None),
         "seed": (_int_at_least(0, 2**32 - 1), 0),
         "description": ((lambda v: isinstance(v, str), "a string"), ""),
         "output": (_STR, None),
@@ -189,7 +214,7 @@ RULES = {
     "execution": {
         "jobs": (_int_at_least(1), 1),
         "backend": (_one_of(BACKENDS), "local"),
-        "scheduler": (_STR, None),
+        "scheduler": (_ADDRESS, None),
         "cell_timeout_s": (_number_at_least(1, MAX_TIMEOUT_S), 900.0),
         "cell_memory_mb": (_int_at_least(0, MAX_MEMORY_MB), 0),
         "retries": (_int_at_least(0, MAX_RETRIES), 1),
@@ -226,6 +251,11 @@ def _read_toml(path: Path) -> dict:
         raise ConfigError(f"config file {path} does not exist; pass the path of a TOML file (see configs/).") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise ConfigError(f"config file {path} cannot be read: {exc}.") from None
+    if text.startswith("\ufeff"):
+        raise ConfigError(
+            f"config file {path} starts with a UTF-8 byte-order mark (BOM), which TOML does not allow. "
+            "Save it as UTF-8 without BOM (most editors call it plain 'UTF-8')."
+        )
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -258,6 +288,7 @@ def parse_config(raw: dict, path: str = "<config>") -> Config:
     datasets = _parse_datasets(raw["datasets"], path)
     _check_native(encoders, models, path)
     _check_reference(sections["decision"], encoders, path)
+    _check_group_not_target(datasets, prot["group"], path)
     normalized = {**raw, **sections}
     return Config(
         path=path,
@@ -316,7 +347,7 @@ def _fill(table: dict, rules: dict, path: str, section: str) -> dict:
             continue
         value = table[key]
         if not ok(value):
-            raise ConfigError(f"`{section}.{key}` in {path} must be {allowed}; got {value!r}.")
+            raise ConfigError(f"`{section}.{key}` in {path} must be {allowed}; got {_shown(value)}.")
         out[key] = value
     return out
 
@@ -362,6 +393,34 @@ def _check_grid_size(raw: dict, sections: dict, path: str) -> None:
             f"more than `execution.max_cells` = {limit:,}. Shorten the lists of encoder values, or raise "
             "`execution.max_cells` if you mean it."
         )
+def _shown(value, limit: int = 60) -> str:
+    """A value as the user can see it: quoted (so spaces show), control characters escaped, cut."""
+    text = repr(value)
+    return text if len(text) <= limit else f"{text[:limit]}... ({len(value) if isinstance(value, str) else len(text)} characters)"
+
+
+def _check_label(label, what: str, path: str) -> None:
+    if not (isinstance(label, str) and label.strip() and label.isprintable() and len(label) <= NAME_MAX):
+        raise ConfigError(
+            f"the {what} label {_shown(label)} in {path} must be 1 to {NAME_MAX} printable characters, not blank: "
+            f"it names rows, tables and figures. Rename that [{what}s.<label>] table."
+        )
+
+
+def _check_group_not_target(datasets, group, path: str) -> None:
+    """A group column that is also the target would leave the target out of the data."""
+    for spec in datasets:
+        target = spec.params.get("target")
+        own = spec.params.get("group")
+        takes_group = "group" in _datasets.params_of(spec.source)
+        used = own if own is not None else (group if takes_group else None)
+        if target is not None and used == target:
+            key = f"datasets.{spec.label}.group" if own is not None else "protocol.group"
+            raise ConfigError(
+                f"`{key}` in {path} names the column '{used}', which is the target of dataset "
+                f"'{spec.label}'. The group column must be another column (the one that ties rows "
+                "together, e.g. a customer id); fix `group` or `target`."
+            )
 
 
 def _check_primary(prot: dict, path: str) -> None:
@@ -393,6 +452,7 @@ def _expand(params: dict, path: str = "<config>", where: str = "") -> list[tuple
 def _parse_encoders(table: dict, path: str) -> tuple[EncoderSpec, ...]:
     specs = []
     for label, body in table.items():
+        _check_label(label, "encoder", path)
         where = f"encoders.{label}"
         if not isinstance(body, dict):
             raise ConfigError(f"`{where}` in {path} must be a table with a `kind` key; got {body!r}.")
@@ -424,6 +484,7 @@ def _validate_encoder(kind: str, params: dict, path: str, where: str) -> None:
 def _parse_models(table: dict, path: str) -> tuple[ModelSpec, ...]:
     specs = []
     for label, body in table.items():
+        _check_label(label, "model", path)
         where = f"models.{label}"
         if not isinstance(body, dict) or "family" not in body:
             raise ConfigError(
@@ -524,6 +585,7 @@ def _parse_datasets(table: dict, path: str) -> tuple[DatasetSpec, ...]:
     specs = []
     sources = sorted(_datasets.SOURCES)
     for label, body in table.items():
+        _check_label(label, "dataset", path)
         where = f"datasets.{label}"
         if not isinstance(body, dict) or "source" not in body:
             raise ConfigError(f"`{where}.source` is missing in {path}; allowed: {', '.join(sources)}.")
@@ -550,8 +612,10 @@ def _check_source_params(source: str, params: dict, path: str, where: str) -> No
         annotation = signature[key].annotation
         if not _matches(value, annotation):
             raise ConfigError(
-                f"`{where}.{key}` in {path} must be {_describe(annotation)}; got {value!r}."
+                f"`{where}.{key}` in {path} must be {_describe(annotation)}; got {_shown(value)}."
             )
+        if key == "seed" and not 0 <= value <= SEED_MAX:
+            raise ConfigError(f"`{where}.seed` in {path} must be an integer in [0, {SEED_MAX}]; got {value!r}.")
     for key, param in signature.items():
         if param.default is inspect.Parameter.empty and key not in params:
             raise ConfigError(f"`{where}.{key}` is required for source '{source}' in {path} but missing.")

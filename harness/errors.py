@@ -9,6 +9,9 @@ __all__ = [
     "ConfigError",
     "DataError",
     "StoreError",
+    "OutputError",
+    "DiskFullError",
+    "ClusterError",
     "EncoderInputError",
     "closest",
 ]
@@ -32,6 +35,22 @@ class StoreError(HarnessError):
     """The results store is unreadable, locked, or of an unknown schema."""
 
     exit_code = 3
+
+
+class OutputError(HarnessError):
+    """An output path (directory, export file, report) cannot be written."""
+
+
+class DiskFullError(HarnessError):
+    """No space left on the device of an output: the run stops, committed rows are kept."""
+
+    exit_code = 4
+
+
+class ClusterError(HarnessError):
+    """The Dask cluster was lost (scheduler gone, or units lost more often than retries allow)."""
+
+    exit_code = 5
 
 
 class EncoderInputError(HarnessError, ValueError):

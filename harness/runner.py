@@ -60,6 +60,7 @@ class RunSummary:
     wall_s: float = 0.0
     interrupted: bool = False
     set_aside: dict = field(default_factory=dict)  # reason -> rows set aside by this run
+    stopped_by: BaseException | None = field(default=None, repr=False)  # the Ctrl-C or SIGTERM
 
 
 def load_datasets(config: Config) -> dict:
@@ -95,6 +96,7 @@ def outer_splits(dataset, folds: int, repeats: int, stratify: bool, seed: int) -
     for repeat in range(repeats):
         rs = (seed * 1000 + repeat) % 2**32
         if dataset.groups is not None:
+            _check_groups(dataset, folds)
             splitter = StratifiedGroupKFold(folds, shuffle=True, random_state=rs) if classify else GroupKFold(folds, shuffle=True, random_state=rs)
             parts = splitter.split(np.zeros(n), dataset.y, dataset.groups)
         elif classify:
@@ -104,6 +106,16 @@ def outer_splits(dataset, folds: int, repeats: int, stratify: bool, seed: int) -
         for fold, (tr, te) in enumerate(parts):
             out[(repeat, fold)] = (tr, te)
     return out
+
+
+def _check_groups(dataset, folds: int) -> None:
+    n_groups = int(dataset.groups.nunique())
+    if n_groups < folds:
+        raise DataError(
+            f"dataset '{dataset.name}' has {n_groups} distinct group(s) in its group column, fewer than "
+            f"protocol.folds = {folds}: grouped folds need at least one group each. Lower protocol.folds, "
+            "or choose a group column with more groups."
+        )
 
 
 def _enumerate_splits(splits):
@@ -226,7 +238,9 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
         summary = RunSummary(out, len(plan_.cells), len(todo), len(plan_.cells) - len(todo), set_aside=set_aside)
         _write_manifest(out, plan_, start_iso, None, summary)
         if todo:
-            summary.interrupted = _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress)
+            summary.stopped_by = _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress)
+            summary.interrupted = summary.stopped_by is not None
+        store.check_in_place()  # a store deleted after the last write must not end in success
         frame = store.frame()
     summary.wall_s = time.perf_counter() - started
     wanted = {c.cell_id for c in plan_.cells}
@@ -239,8 +253,12 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
     return summary
 
 
-def _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress) -> bool:
-    """Execute units and write each unit's rows as it finishes. Returns True if interrupted."""
+def _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress) -> KeyboardInterrupt | None:
+    """Execute units and write each unit's rows as it finishes.
+
+    Returns the ``KeyboardInterrupt`` (Ctrl-C, or SIGTERM raised as one) that stopped the
+    run, or None when every unit finished.
+    """
     from tqdm import tqdm
 
     work = _jobs_for(plan_, todo)
@@ -250,12 +268,12 @@ def _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress) -> bool:
         for job, rows in runner.run(work):
             store.write(rows)
             bar.update(len(rows))
-    except KeyboardInterrupt:
-        return True
+    except KeyboardInterrupt as exc:
+        return exc
     finally:
         bar.close()
         runner.close()
-    return False
+    return None
 
 
 def _versions() -> dict:

@@ -1,36 +1,42 @@
 """The results store: SQLite in WAL mode, one row per cell, keyed by the cell's content hash.
 
 Each finished encoding unit's rows are committed in one transaction, so a crash loses at
-most the unit in flight and never leaves half a unit.
+most the unit in flight and never leaves half a unit. A lock on the output directory keeps
+a second run off it. A new store appears only whole (built under a temporary name, then
+renamed). Readers open the file read-only, refuse damaged files and unknown schema
+versions, and never change them. Exports are written to a temporary file and renamed.
 
 A store is bound to one experiment: the ``grid`` table holds the cell ids and identities
 of the config last run into it, ``cells`` holds only rows of that grid, and rows of cells
 no longer in it (a changed parameter, a removed encoder, replaced data, another harness
 version) are moved to ``superseded`` with the reason (:meth:`Store.bind_grid`). They come
-back if the config returns to them. A lock file keeps a second run off
-the same directory. Readers refuse damaged files and unknown schema versions, and never
-overwrite them.
+back if the config returns to them.
 """
 
 from __future__ import annotations
 
+import errno
 import fcntl
 import json
 import math
 import os
+import shutil
 import sqlite3
 from pathlib import Path
+from urllib.parse import quote
 
 import pandas as pd
 
-from harness.errors import StoreError
+from harness._outputs import fsync_path, is_disk_full, temporary_beside
+from harness.errors import DiskFullError, OutputError, StoreError
 from harness.grid import SCHEMA_VERSION, changed_parts
 from harness.metrics import METRICS
 
 __all__ = ["COLUMNS", "Store", "read_results", "read_set_aside", "describe_set_aside", "export"]
 
 STORE_NAME = "results.sqlite"
-LOCK_NAME = ".run.lock"
+CREATING_PREFIX = ".results.sqlite.creating-"  # a store being built; renamed when complete
+KEPT_PREFIX = "kept-"  # kept-1/, kept-2/ ...: earlier stores set aside by --fresh
 
 # Run-lock descriptors held by this process. A forked pool worker inherits them, and flock
 # locks belong to the shared open file description: a worker orphaned by a SIGKILL of the
@@ -109,76 +115,110 @@ BOOL_COLUMNS = ("uses_target", "leaky")
 class Store:
     """Open (or create) ``<out>/results.sqlite``.
 
+    A writer (``lock=True``) holds an OS-level lock on the output directory for as long
+    as it lives; the kernel releases it when the process dies. A new store is built under
+    a temporary name with its schema committed, then renamed into place, so a kill during
+    creation leaves either no store or a valid empty one. A reader (``lock=False``) opens
+    the file read-only (``mode=ro``): it never switches the journal mode nor writes the
+    database, and works on a read-only mount.
+
     Parameters
     ----------
     out : path
         Output directory.
     lock : bool
-        Take the run lock (writers); readers pass False.
+        Take the run lock and open read-write (writers); readers pass False.
     fresh : bool
-        Move an existing store aside (``results.sqlite.old``) and start empty.
+        Keep an existing store aside as ``kept-N/`` (numbered, never overwritten, with its
+        WAL) and start empty.
+    create : bool
+        Create the directory and the store when missing (writers).
 
     Raises
     ------
     StoreError
         Damaged file, unknown schema version, or another run holds the lock.
+    OutputError
+        The output directory cannot be created or written.
+    DiskFullError
+        No space left to create the store.
     """
 
     def __init__(self, out, *, lock: bool = True, fresh: bool = False, create: bool = True):
         self.out = Path(out)
         self.path = self.out / STORE_NAME
         self._lock_fd = None
+        self._identity = None
+        self.db = None
+        if not lock:
+            if not self.path.is_file():
+                raise self._missing()
+            self.db = self._open(readonly=True)
+            return
         if create:
-            self.out.mkdir(parents=True, exist_ok=True)
+            _make_dir(self.out)
         elif not self.path.exists():
-            raise StoreError(f"no results store at {self.path}; run `harness run CONFIG --out {self.out}` first.")
-        if lock:
-            self._take_lock()
-        if fresh and self.path.exists():
-            for suffix in ("", "-wal", "-shm"):
-                old = Path(str(self.path) + suffix)
-                if old.exists():
-                    old.replace(str(self.path) + ".old" + suffix)
-        self.db = self._connect()
+            raise self._missing()
+        self._take_lock()
+        try:
+            _finish_keeping(self.out)  # roll forward a --fresh that was killed half-way
+            _remove_creation_leftovers(self.out)
+            if fresh and self.path.exists():
+                _keep_aside(self.out)
+            if not self.path.exists():
+                _create(self.out, self.path)
+            self.db = self._open(readonly=False)
+            self._identity = _identity(self.path)
+        except BaseException:
+            self.close()
+            raise
 
     # --- opening -------------------------------------------------------------------------
+    def _missing(self) -> StoreError:
+        return StoreError(f"no results store at {self.path}; run `harness run CONFIG --out {self.out}` first.")
+
     def _take_lock(self) -> None:
-        fd = os.open(self.out / LOCK_NAME, os.O_RDWR | os.O_CREAT, 0o644)
+        """flock the output directory itself: no file a user could delete holds the lock."""
+        try:
+            fd = os.open(self.out, os.O_RDONLY | os.O_DIRECTORY)
+        except OSError as exc:
+            raise _output_error(self.out, exc) from None
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except BlockingIOError:
             os.close(fd)
             raise StoreError(
-                f"another `harness run` is writing to {self.out} (lock file {self.out / LOCK_NAME} is held). "
+                f"another `harness run` is writing to {self.out} (it holds the lock on that directory). "
                 "Wait for it to finish, or pass a different --out."
             ) from None
-        os.ftruncate(fd, 0)
-        os.write(fd, str(os.getpid()).encode())
         self._lock_fd = fd
         _HELD_LOCK_FDS.add(fd)
 
-    def _connect(self) -> sqlite3.Connection:
-        existed = self.path.exists() and self.path.stat().st_size > 0
+    def _open(self, readonly: bool) -> sqlite3.Connection:
+        db = None
         try:
-            db = sqlite3.connect(self.path, timeout=30, isolation_level=None)
-            db.execute("PRAGMA journal_mode=WAL")
-            db.execute("PRAGMA synchronous=NORMAL")
-            if existed:
-                ok = db.execute("PRAGMA quick_check").fetchone()[0]
-                if ok != "ok":
-                    raise sqlite3.DatabaseError(ok)
+            if readonly:
+                db = _connect_readonly(self.path)
+            else:
+                db = sqlite3.connect(self.path, timeout=30, isolation_level=None)
+                db.execute("PRAGMA journal_mode=WAL")
+                db.execute("PRAGMA synchronous=NORMAL")
+            ok = db.execute("PRAGMA quick_check").fetchone()[0]
+            if ok != "ok":
+                raise sqlite3.DatabaseError(ok)
         except sqlite3.DatabaseError as exc:
+            if db is not None:
+                db.close()
             self.close()
+            if is_disk_full(exc):
+                raise _disk_full(self.out, "opening the results store") from None
             raise StoreError(
                 f"the results store {self.path} is damaged ({exc}). Nothing was changed. Move it aside "
-                "(or rerun with --fresh, which keeps it as results.sqlite.old) to start over."
+                "(or rerun with --fresh, which keeps it under kept-N/) to start over."
             ) from None
-        if existed:
-            version = self._check_schema(db)
-            if version != SCHEMA_VERSION and self._lock_fd is not None:
-                _create_tables(db)  # additive upgrade: version 1 had no grid or superseded table
-        else:
-            _create_tables(db)
+        version = self._check_schema(db)
+        if not readonly and version != SCHEMA_VERSION:
+            _create_tables(db)  # additive upgrade of an older store (a writer holds the lock)
         return db
 
     def _check_schema(self, db) -> None:
@@ -193,7 +233,17 @@ class Store:
             raise StoreError(
                 f"the results store {self.path} has schema version {version}, this harness reads "
                 f"version {SCHEMA_VERSION}. Nothing was changed. Export it with the harness version that "
-                "wrote it, or rerun with --fresh (the old file is kept as results.sqlite.old)."
+                "wrote it, or rerun with --fresh (the old file is kept under kept-N/)."
+            )
+        have = {r[1] for r in db.execute("PRAGMA table_info(cells)")}
+        missing = [c for c in NAMES if c not in have]
+        if missing and version == SCHEMA_VERSION:  # older versions are upgraded by a writer
+            db.close()
+            self.close()
+            raise StoreError(
+                f"the results store {self.path} lacks the column(s) {', '.join(missing)} of schema version "
+                f"{SCHEMA_VERSION}; it was changed by hand or by another program. Nothing was changed. "
+                "Rerun with --fresh (the old file is kept under kept-N/) to start over."
             )
         return version
 
@@ -204,19 +254,46 @@ class Store:
         return {cid for cid, status in rows if status not in retry}
 
     def write(self, rows: list[dict]) -> None:
-        """Insert rows in one transaction (replacing rows of the same cell)."""
+        """Insert rows in one transaction (replacing rows of the same cell).
+
+        Raises
+        ------
+        StoreError
+            The store file was deleted or replaced since it was opened.
+        DiskFullError
+            No space left: nothing of this transaction is written, every earlier row stays.
+        """
         if not rows:
             return
+        self.check_in_place()
         marks = ", ".join("?" for _ in NAMES)
         cols = ", ".join(f'"{c}"' for c in NAMES)
         values = [tuple(_sql(row.get(c)) for c in NAMES) for row in rows]
-        self.db.execute("BEGIN IMMEDIATE")
         try:
-            self.db.executemany(f"INSERT OR REPLACE INTO cells ({cols}) VALUES ({marks})", values)
-            self.db.execute("COMMIT")
-        except BaseException:
-            self.db.execute("ROLLBACK")
+            self.db.execute("BEGIN IMMEDIATE")
+            try:
+                self.db.executemany(f"INSERT OR REPLACE INTO cells ({cols}) VALUES ({marks})", values)
+                self.db.execute("COMMIT")
+            except BaseException:
+                # SQLite may have rolled back already (a full disk does): a second ROLLBACK
+                # would raise "no transaction is active" and hide the real error
+                if self.db.in_transaction:
+                    self.db.execute("ROLLBACK")
+                raise
+        except sqlite3.OperationalError as exc:
+            if is_disk_full(exc):
+                need = sum(len(str(v)) for row in values for v in row if v is not None)
+                raise _disk_full(self.out, f"writing {len(rows)} result row(s)", need) from None
             raise
+
+    def check_in_place(self) -> None:
+        """Raise if the store file this writer opened is no longer at its path."""
+        if self._identity is not None and _identity(self.path) != self._identity:
+            raise StoreError(
+                f"the results store {self.path} was deleted or replaced while this run was writing to it; "
+                "the run stopped. Rows written since are lost with the deleted file. Rerun the same "
+                "command to start a new store (or restore the file and rerun to resume)."
+            )
 
     def frame(self) -> pd.DataFrame:
         return pd.read_sql_query("SELECT * FROM cells ORDER BY dataset, repeat, fold, encoder, model", self.db)
@@ -346,6 +423,149 @@ def _utc_now() -> str:
     return datetime.now(timezone.utc).isoformat(timespec="seconds")
 
 
+# --------------------------------------------------------------------------- file handling
+def _identity(path: Path):
+    try:
+        st = path.stat()
+    except FileNotFoundError:
+        return None
+    return st.st_dev, st.st_ino
+
+
+def _connect_readonly(path: Path) -> sqlite3.Connection:
+    """Open read-only; as immutable where SQLite cannot create its ``-shm`` file.
+
+    That happens on a read-only mount or a full disk. ``immutable=1`` is safe then: an
+    absent or empty ``-wal`` file means the main file holds every committed row, and no writer is live
+    (a live writer keeps the ``-shm`` file in place, so the first open succeeds).
+    """
+    uri = f"file:{quote(str(path.resolve()))}?mode=ro"
+    db = sqlite3.connect(uri, uri=True, timeout=30, isolation_level=None)
+    try:
+        db.execute("SELECT count(*) FROM sqlite_master").fetchone()
+        return db
+    except sqlite3.OperationalError as exc:
+        db.close()
+        wal = Path(str(path) + "-wal")
+        cannot_share = any(m in str(exc) for m in ("unable to open", "disk I/O error"))
+        wal_rows = wal.exists() and wal.stat().st_size > 0  # an empty -wal may be our own failed open's
+        if not cannot_share or (wal_rows and os.access(path.parent, os.W_OK)):
+            raise
+    return sqlite3.connect(uri + "&immutable=1", uri=True, isolation_level=None)
+
+
+def _create(out: Path, path: Path) -> None:
+    """Build an empty store under a temporary name, commit its schema, rename it into place."""
+    tmp = out / f"{CREATING_PREFIX}{os.getpid()}"
+    try:
+        db = sqlite3.connect(tmp, isolation_level=None)
+        try:
+            db.execute("BEGIN")
+            _create_tables(db)
+            db.execute("COMMIT")
+            db.execute("PRAGMA journal_mode=WAL")  # recorded in the header; no -wal left at close
+        finally:
+            db.close()
+        fsync_path(tmp)
+        os.rename(tmp, path)
+        fsync_path(out)
+    except (sqlite3.Error, OSError) as exc:
+        _remove_creation_leftovers(out)
+        if is_disk_full(exc):
+            raise _disk_full(out, "creating the results store") from None
+        if isinstance(exc, OSError):
+            raise _output_error(out, exc) from None
+        raise
+
+
+def _remove_creation_leftovers(out: Path) -> None:
+    """Remove temporaries of a creation that was killed (only a lock holder calls this)."""
+    for leftover in out.glob(CREATING_PREFIX + "*"):
+        leftover.unlink(missing_ok=True)
+
+
+def _kept_dirs(out: Path) -> list[Path]:
+    return [p for p in out.glob(KEPT_PREFIX + "*") if p.name[len(KEPT_PREFIX):].split(".")[0].isdigit()]
+
+
+def _keep_aside(out: Path) -> Path:
+    """Move the store with its ``-wal`` and ``-shm`` into a new ``kept-N/``.
+
+    The files go into ``kept-N.partial/`` first, which is then renamed: a kill half-way
+    leaves the ``.partial`` directory, and the next writer finishes the move before it
+    touches anything (:func:`_finish_keeping`), so a WAL is never separated from its file.
+    """
+    numbers = [int(p.name[len(KEPT_PREFIX):].split(".")[0]) for p in _kept_dirs(out)]
+    partial = out / f"{KEPT_PREFIX}{max(numbers, default=0) + 1}.partial"
+    try:
+        partial.mkdir()
+        fsync_path(out)
+    except OSError as exc:
+        raise _output_error(out, exc) from None
+    return _finish_keeping(out)
+
+
+def _finish_keeping(out: Path) -> Path | None:
+    done = None
+    for partial in sorted(p for p in _kept_dirs(out) if p.name.endswith(".partial")):
+        try:
+            # the WAL first: the main file must never sit alone beside a new store's name
+            for suffix in ("-wal", "-shm", ""):
+                src = out / (STORE_NAME + suffix)
+                if src.exists():
+                    os.rename(src, partial / src.name)
+            fsync_path(partial)
+            done = partial.with_name(partial.name[: -len(".partial")])
+            os.rename(partial, done)
+            fsync_path(out)
+        except OSError as exc:
+            raise _output_error(out, exc) from None
+    return done
+
+
+def _make_dir(out: Path) -> None:
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise _output_error(out, exc) from None
+    if not os.access(out, os.W_OK | os.X_OK):
+        raise _output_error(out, PermissionError(errno.EACCES, "not writable"))
+
+
+def _disk_full(where: Path, doing: str, need_bytes: int = 0) -> DiskFullError:
+    """The one message for a full disk: the directory, the free space, the space wanted."""
+    where = Path(where)
+    probe = where if where.exists() else where.parent
+    try:
+        free = shutil.disk_usage(probe).free
+    except OSError:
+        free = 0
+    store = where / STORE_NAME if where.is_dir() else where
+    size = sum(p.stat().st_size for p in (store, Path(f"{store}-wal")) if p.is_file())
+    # the exports and the manifest take about as much again as the store itself
+    need = max(need_bytes + 2 * size, 1 << 20)
+    return DiskFullError(
+        f"no space left on the device of {where} while {doing} ({_mb(free)} free; this run needs at least "
+        f"about {_mb(need)} more). Every row committed before is kept. Free some space (or pass --out on "
+        "another disk) and rerun the same command to resume."
+    )
+
+
+def _mb(n: int) -> str:
+    return f"{n / 2**20:.1f} MB"
+
+
+def _output_error(where: Path, exc: OSError) -> OutputError:
+    if is_disk_full(exc):
+        return _disk_full(where, "writing")
+    reason = exc.strerror or str(exc)
+    return OutputError(
+        f"cannot write to the output directory {where} ({reason}). It must be a directory you can "
+        "write to, not a file or a path under a file; pass --out (or set experiment.output) to "
+        "another directory."
+    )
+
+
 def _sql(value):
     if value is None:
         return None
@@ -392,13 +612,36 @@ def describe_set_aside(aside: dict) -> str:
 
 
 def export(df: pd.DataFrame, path) -> Path:
-    """Write the results table to ``.csv`` or ``.parquet`` (by suffix)."""
+    """Write the results table to ``.csv`` or ``.parquet`` (by suffix), atomically.
+
+    The table goes to a temporary file beside ``path`` that is renamed over it when
+    complete: a kill or a full disk leaves the previous file or none, never half a file.
+
+    Raises
+    ------
+    OutputError
+        Unknown suffix, or a path that cannot be written.
+    DiskFullError
+        No space left for the file.
+    """
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    if path.suffix == ".csv":
-        df.to_csv(path, index=False)
-    elif path.suffix == ".parquet":
-        df.to_parquet(path, index=False)
-    else:
-        raise StoreError(f"cannot export to {path}: the suffix must be .csv or .parquet; got '{path.suffix}'.")
+    if path.suffix not in (".csv", ".parquet"):
+        raise OutputError(
+            f"cannot export to {path}: the suffix must be .csv or .parquet; got '{path.suffix}'. "
+            "Pass --to FILE.csv or --to FILE.parquet."
+        )
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        with temporary_beside(path) as tmp:
+            if path.suffix == ".csv":
+                df.to_csv(tmp, index=False)
+            else:
+                df.to_parquet(tmp, index=False)
+    except OSError as exc:
+        if is_disk_full(exc):
+            raise _disk_full(path.parent, f"writing {path.name}", len(df) * 512) from None
+        raise OutputError(
+            f"cannot write the export {path} ({exc.strerror or exc}). Pass a path in a directory you "
+            "can write to."
+        ) from None
     return path

@@ -74,7 +74,7 @@ def test_rerun_after_fresh_matches(reference, tmp_path, capsys):
     config = write_config(tmp_path / "determinism.toml", _raw())
     assert main(["run", str(config), "--out", str(out), "--quiet", "--fresh"]) == 0
     assert f"({len(df)} computed, 0 reused)" in capsys.readouterr().out
-    assert (out / "results.sqlite.old").exists()
+    assert (out / "kept-1" / "results.sqlite").exists()
     assert_same_results(results_by_cell(out), df)
 
 

@@ -373,5 +373,5 @@ def test_fresh_sets_a_damaged_store_aside_and_runs(tmp_path, capsys):
     _scribble(out / "results.sqlite")
     before = (out / "results.sqlite").read_bytes()
     assert main(["run", str(_tiny_config(tmp_path)), "--out", str(out), "--quiet", "--fresh"]) == 0
-    assert (out / "results.sqlite.old").read_bytes() == before
+    assert (out / "kept-1" / "results.sqlite").read_bytes() == before
     assert len(read_results(out)) == 2

@@ -6,7 +6,7 @@ import sqlite3
 
 import pytest
 
-from harness.errors import StoreError
+from harness.errors import OutputError, StoreError
 from harness.grid import SCHEMA_VERSION
 from harness.store import Store, export, read_results
 
@@ -70,12 +70,78 @@ def test_other_schema_version_is_refused(tmp_path):
         Store(tmp_path)
 
 
-def test_fresh_keeps_old_file_aside(tmp_path):
-    with Store(tmp_path) as store:
-        store.write(_rows(2))
+def _store_with_rows_in_wal(out, n: int) -> None:
+    """A store whose last ``n`` rows live only in its ``-wal`` file, as a killed writer leaves it."""
+    with Store(out):
+        pass  # created empty, schema committed
+    live = sqlite3.connect(out / "results.sqlite", isolation_level=None)
+    live.execute("PRAGMA wal_autocheckpoint=0")  # keep every row in the WAL
+    live.executemany("INSERT INTO cells (cell_id, schema_version, status) VALUES (?, ?, 'ok')",
+                     [(f"c{i}", SCHEMA_VERSION) for i in range(n)])
+    snapshot = {p.name: p.read_bytes() for p in out.glob("results.sqlite*")}
+    live.close()  # checkpoints and removes the WAL ...
+    for name, data in snapshot.items():  # ... so put back the files as the live writer had them
+        (out / name).write_bytes(data)
+    assert (out / "results.sqlite-wal").stat().st_size > 0
+
+
+def test_every_fresh_keeps_the_earlier_store_numbered_with_its_wal(tmp_path):
+    _store_with_rows_in_wal(tmp_path, 30)
     with Store(tmp_path, fresh=True) as store:
         assert store.done_ids() == set()
-    assert (tmp_path / "results.sqlite.old").exists()
+        store.write(_rows(2))
+    with Store(tmp_path, fresh=True):  # a second --fresh never overwrites the first one's copy
+        pass
+    assert len(read_results(tmp_path / "kept-1")) == 30  # the rows that lived in the WAL
+    assert len(read_results(tmp_path / "kept-2")) == 2
+    assert len(read_results(tmp_path)) == 0
+
+
+def test_a_fresh_killed_half_way_is_finished_by_the_next_writer(tmp_path):
+    """The kill fell after the WAL moved into kept-1.partial/ but before the main file did."""
+    _store_with_rows_in_wal(tmp_path, 30)
+    partial = tmp_path / "kept-1.partial"
+    partial.mkdir()
+    (tmp_path / "results.sqlite-wal").rename(partial / "results.sqlite-wal")
+    with Store(tmp_path) as store:  # a plain run: it completes the move first, then starts empty
+        assert store.done_ids() == set()
+    assert not partial.exists()
+    assert len(read_results(tmp_path / "kept-1")) == 30  # no row lost
+
+
+def test_creation_leaves_no_temporary_and_a_valid_empty_store(tmp_path):
+    (tmp_path / ".results.sqlite.creating-99999").write_bytes(b"half a header")  # a killed creation
+    with Store(tmp_path) as store:
+        assert store.done_ids() == set()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["results.sqlite"]  # WAL checkpointed at close
+
+
+def test_deleting_the_store_under_a_live_writer_stops_it(tmp_path):
+    with Store(tmp_path) as store:
+        store.write(_rows(1))
+        for p in tmp_path.glob("results.sqlite*"):
+            p.unlink()
+        with pytest.raises(StoreError, match="was deleted or replaced while this run was writing"):
+            store.write(_rows(2))
+
+
+def test_the_lock_is_on_the_directory_not_on_a_deletable_file(tmp_path):
+    with Store(tmp_path):
+        for p in tmp_path.glob(".*"):
+            p.unlink()  # whatever a user might take for a stale lock file
+        with pytest.raises(StoreError, match="another `harness run` is writing"):
+            Store(tmp_path)
+
+
+def test_a_store_missing_a_column_is_refused(tmp_path):
+    with Store(tmp_path) as store:
+        store.write(_rows(1))
+    db = sqlite3.connect(tmp_path / "results.sqlite")
+    db.execute("ALTER TABLE cells DROP COLUMN peak_rss_mb")
+    db.commit()
+    db.close()
+    with pytest.raises(StoreError, match="lacks the column.s. peak_rss_mb .*--fresh"):
+        read_results(tmp_path)
 
 
 def test_missing_store_and_bad_export_suffix(tmp_path):
@@ -83,5 +149,5 @@ def test_missing_store_and_bad_export_suffix(tmp_path):
         read_results(tmp_path / "nothing")
     with Store(tmp_path) as store:
         store.write(_rows(1))
-    with pytest.raises(StoreError, match="suffix must be .csv or .parquet"):
+    with pytest.raises(OutputError, match="suffix must be .csv or .parquet"):
         export(read_results(tmp_path), tmp_path / "x.xlsx")

@@ -35,6 +35,7 @@ from harness.errors import ConfigError, DataError, closest
 
 __all__ = [
     "TASKS",
+    "CHECK",
     "Dataset",
     "TableOptions",
     "fingerprint",
@@ -43,6 +44,9 @@ __all__ = [
 ]
 
 TASKS = ("binary", "multiclass", "regression")
+# notes with this prefix flag a guess about the data the user should check; the run
+# summary prints them (the manifest holds every note)
+CHECK = "check: "
 
 
 def _list_columns(columns, limit: int = 40) -> str:
@@ -339,9 +343,13 @@ def _check_options(options: TableOptions) -> None:
 def _require_columns(frame: pd.DataFrame, columns, key: str) -> None:
     missing = [c for c in columns if c not in frame.columns]
     if missing:
+        # quoted: a stray space in a name is invisible otherwise
+        spaced = [c for c in missing if isinstance(c, str) and c.strip() in frame.columns]
+        hint = (f" Did you mean {spaced[0].strip()!r}? The name in the config has surrounding spaces."
+                if spaced else closest(missing[0], frame.columns))
         raise DataError(
-            f"`{key}` names column(s) {_list_columns(missing)} that the data does not have. "
-            f"Available columns: {_list_columns(frame.columns)}.{closest(missing[0], frame.columns)}"
+            f"`{key}` names column(s) {', '.join(repr(str(c)) for c in missing)} that the data does not have. "
+            f"Available columns: {_list_columns(frame.columns)}.{hint}"
         )
 
 
@@ -408,10 +416,11 @@ def _column_roles(frame: pd.DataFrame, options: TableOptions, notes: list) -> tu
         _require_columns(frame, options.categorical, "categorical")
         categorical = list(options.categorical)
     else:
-        categorical = [c for c in frame.columns if _is_auto_categorical(frame[c])]
+        listed = set(options.numeric or ())  # a column listed as numeric is never detected as categorical
+        categorical = [c for c in frame.columns if _is_auto_categorical(frame[c]) and c not in listed]
     if options.numeric is not None:
         _require_columns(frame, options.numeric, "numeric")
-        wrong = [c for c in options.numeric if not _is_numeric(frame[c])]
+        wrong = [c for c in options.numeric if not _is_numeric(frame[c]) and not _holds_numbers(frame[c])]
         if wrong:
             raise DataError(
                 f"`numeric` lists column(s) {_list_columns(wrong)} that are not numeric "
@@ -423,10 +432,37 @@ def _column_roles(frame: pd.DataFrame, options: TableOptions, notes: list) -> tu
     unused = [c for c in frame.columns if c not in categorical and c not in numeric]
     if unused:
         notes.append(f"left out {len(unused)} column(s) that are neither categorical nor numeric: {_list_columns(unused)}")
+    numbers = [c for c in categorical if options.categorical is None and _holds_numbers(frame[c])]
+    for c in numbers:
+        notes.append(
+            f"{CHECK}column '{c}' holds only numbers ({frame[c].nunique()} distinct) stored as text or decimals, so it was "
+            "taken as categorical with one level per value; list it under `numeric` to use it as a number"
+        )
     ids = [c for c in categorical if len(frame) > 1 and frame[c].nunique() == len(frame)]
     if ids:
         notes.append(f"column(s) {_list_columns(ids)} have one level per row (an identifier?)")
     return categorical, numeric
+
+
+def _holds_numbers(s: pd.Series) -> bool:
+    """An object or string column whose every value reads as a number (decimals, "3.5")."""
+    if not (s.dtype == object or pd.api.types.is_string_dtype(s.dtype)):
+        return False
+    present = s.dropna()
+    if present.empty or pd.api.types.infer_dtype(present, skipna=True) == "boolean":
+        return False
+    return bool(pd.to_numeric(pd.Series(present.unique()), errors="coerce").notna().all())
+
+
+def _dirty_labels(y: pd.Series) -> int | None:
+    """Number of classes left once case and surrounding spaces are ignored, when fewer."""
+    if not (y.dtype == object or pd.api.types.is_string_dtype(y.dtype)):
+        return None
+    levels = pd.Series(y.dropna().unique())
+    if pd.api.types.infer_dtype(levels, skipna=True) != "string":
+        return None
+    clean = levels.str.strip().str.casefold().nunique()
+    return clean if clean < len(levels) else None
 
 
 def _as_categorical(s: pd.Series) -> pd.Series:
@@ -443,6 +479,8 @@ def _as_categorical(s: pd.Series) -> pd.Series:
 
 
 def _as_numeric(s: pd.Series) -> pd.Series:
+    if not _is_numeric(s):  # numbers stored as text or decimals, listed under `numeric`
+        s = pd.to_numeric(s, errors="coerce")
     return s.astype("float64").reset_index(drop=True)
 
 
@@ -458,6 +496,13 @@ def _settle_task(y: pd.Series, task, notes: list) -> tuple[str, pd.Series]:
             notes.append(f"target has {k} integer values: inferred regression; set task = 'multiclass' to treat them as classes")
     if k < 2:
         raise DataError(f"the target '{y.name}' has {k} distinct value(s); at least 2 are needed.")
+    clean = _dirty_labels(y) if task != "regression" else None
+    if clean is not None:
+        # counts only: the labels of a private file must not reach the manifest
+        notes.append(
+            f"{CHECK}target '{y.name}' has {k} labels that are only {clean} once case and surrounding spaces are "
+            f"ignored; they are kept as {k} classes. Clean the labels in the data if they mean the same class"
+        )
     if task == "regression" and not numeric:
         raise DataError(
             f"task 'regression' needs a numeric target; '{y.name}' has dtype {y.dtype}. "

@@ -51,9 +51,12 @@ class PlantedTruth:
     noise_columns: tuple
 
 
+MAX_ROWS = 20_000_000  # a table this size already takes gigabytes once encoded
+
+
 def _check(n_rows, cardinalities, zipf, effect, noise_column, task, n_classes, n_numeric) -> None:
     rules = [
-        (n_rows >= 2, "n_rows", "an integer >= 2", n_rows),
+        (2 <= n_rows <= MAX_ROWS, "n_rows", f"an integer in [2, {MAX_ROWS:,}] (use a `file` dataset for larger tables)", n_rows),
         (len(cardinalities) > 0 and min(cardinalities) >= 1, "cardinalities", "a non-empty list of integers >= 1", cardinalities),
         (zipf >= 0, "zipf", "a number >= 0", zipf),
         (effect >= 0, "effect", "a number >= 0", effect),

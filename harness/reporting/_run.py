@@ -9,7 +9,7 @@ from pathlib import Path
 import pandas as pd
 
 from harness import stats
-from harness.errors import StoreError
+from harness.errors import ConfigError, StoreError
 from harness.reporting import tables
 from harness.store import read_results, read_set_aside
 
@@ -46,8 +46,14 @@ def load_run(directory) -> Run:
     directory = Path(directory)
     results = read_results(directory)
     path = directory / "manifest.json"
+    if not path.exists():
+        raise ConfigError(
+            f"{directory} has a results store but no manifest.json, which the report needs (datasets, "
+            f"protocol, models). Rerun `harness run CONFIG --out {directory}` with the config that made it: "
+            "it computes nothing already stored and writes the manifest."
+        )
     try:
-        manifest = json.loads(path.read_text(encoding="utf-8")) if path.exists() else {}
+        manifest = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, json.JSONDecodeError) as exc:
         raise StoreError(f"the manifest {path} cannot be read ({exc}); rerun `harness run` "
                          "with the same config to rewrite it.") from None

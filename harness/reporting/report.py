@@ -14,7 +14,6 @@ only the exception type is kept (:func:`harness.reporting.tables.scrub_error`).
 
 from __future__ import annotations
 
-import shutil
 from dataclasses import replace
 from pathlib import Path
 
@@ -33,6 +32,7 @@ from harness.reporting._robustness import robustness_section
 from harness.reporting._run import Run, load_run
 from harness.reporting._status import status_section
 from harness.reporting.tables import metric_name
+from harness._outputs import swap_in_dir
 from harness.store import describe_set_aside
 
 __all__ = ["Run", "Analysis", "load_run", "analyse", "write_report"]
@@ -235,8 +235,11 @@ def _numbered(blocks: list) -> list:
     return out
 
 
-def write_report(directory, compare=None) -> Path:
+def write_report(directory, compare=None, out=None) -> Path:
     """Write ``DIR/report/``: report.md, report.html, figures/, tables/, references.bib.
+
+    The report is built in a new directory beside ``report/`` and swapped in when
+    complete: a kill or a full disk leaves the previous report whole.
 
     Parameters
     ----------
@@ -244,6 +247,8 @@ def write_report(directory, compare=None) -> Path:
         A results directory (``results.sqlite`` and ``manifest.json``).
     compare : path, optional
         Another results directory; the report then lists what changed from it.
+    out : path, optional
+        Where to put ``report/`` instead of ``directory`` (e.g. a store on a read-only mount).
 
     Returns
     -------
@@ -256,10 +261,13 @@ def write_report(directory, compare=None) -> Path:
         No readable results store in ``directory`` or ``compare``.
     """
     run = load_run(directory)
-    root = Path(directory) / "report"
-    if root.exists():
-        shutil.rmtree(root)  # a report is regenerated whole: no stale figure survives
-    root.mkdir(parents=True)
+    final = Path(out or directory) / "report"
+    with swap_in_dir(final) as root:  # regenerated whole: no stale figure survives
+        _write_into(run, root, compare)
+    return final / "report.html"
+
+
+def _write_into(run: Run, root: Path, compare) -> None:
     a = analyse(run)
     blocks = _header(a) + answer_section(a, root) + methods_section(a)
     blocks += results_section(a, root) + robustness_section(a, root) + leakage_section(a, root)
@@ -268,6 +276,4 @@ def write_report(directory, compare=None) -> Path:
         blocks += compare_section(a, analyse(load_run(compare)), root)
     blocks = _numbered(blocks + references_section(a, root))
     (root / "report.md").write_text(to_markdown(blocks), encoding="utf-8")
-    html_path = root / "report.html"
-    html_path.write_text(to_html(blocks, blocks[0].text, root), encoding="utf-8")
-    return html_path
+    (root / "report.html").write_text(to_html(blocks, blocks[0].text, root), encoding="utf-8")

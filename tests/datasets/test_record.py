@@ -81,7 +81,7 @@ def test_missing_target_rows_are_dropped_and_counted(frame):
 @pytest.mark.parametrize("key", ["target", "group", "drop", "categorical", "numeric"])
 def test_unknown_column_lists_the_available_columns(frame, key):
     keys = {"target": "label", key: "tean" if key in ("target", "group") else ["tean"]}
-    with pytest.raises(DataError, match=rf"`{key}` names column\(s\) tean .*Available columns: row_id, colour.*Did you mean 'team'"):
+    with pytest.raises(DataError, match=rf"`{key}` names column\(s\) 'tean' .*Available columns: row_id, colour.*Did you mean 'team'"):
         _prep(frame, **keys)
 
 

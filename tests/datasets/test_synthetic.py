@@ -86,7 +86,8 @@ def test_same_seed_same_data(seed):
 @pytest.mark.parametrize(
     ("keys", "pattern"),
     [
-        ({"n_rows": 1}, r"`n_rows` must be an integer >= 2; got 1"),
+        ({"n_rows": 1}, r"`n_rows` must be an integer in \[2, 20,000,000\] .*; got 1"),
+        ({"n_rows": 10**11}, r"`n_rows` must be an integer in \[2, 20,000,000\] \(use a `file` dataset for larger tables\); got 100000000000"),
         ({"cardinalities": []}, r"`cardinalities` must be a non-empty list of integers >= 1; got \[\]"),
         ({"cardinalities": [3, 0]}, r"`cardinalities` must be a non-empty list"),
         ({"zipf": -1.0}, r"`zipf` must be a number >= 0; got -1.0"),

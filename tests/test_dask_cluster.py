@@ -1,0 +1,153 @@
+"""The Dask backend against a real cluster: a `dask scheduler` and `dask worker` processes
+that the test starts on 127.0.0.1 and stops itself (by pid), with bounded waits.
+
+- One worker lost mid-run, holding the only copy of the data: every unit is still
+  computed (resubmitted, the data sent again), no cell is recorded as failed, exit 0.
+- The scheduler lost mid-run: one message, a non-zero exit, nothing recorded as failed;
+  a plain rerun completes.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import signal
+import socket
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from _runtools import CONFIGS, ROOT, count_rows, integrity, results_by_cell, run, start, wait_for_rows
+
+pytestmark = pytest.mark.slow
+
+SMALL = CONFIGS / "small.toml"
+DASK = str(Path(sys.executable).with_name("dask"))
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _wait_port(port: int, timeout: float = 60) -> None:
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        with contextlib.suppress(OSError), socket.create_connection(("127.0.0.1", port), timeout=1):
+            return
+        time.sleep(0.2)
+    raise AssertionError(f"nothing listens on port {port} after {timeout} s")
+
+
+class Cluster:
+    """Processes of one test cluster; every one is stopped by pid at the end."""
+
+    def __init__(self, log_dir: Path):
+        self.port = _free_port()
+        self.address = f"tcp://127.0.0.1:{self.port}"
+        self.log_dir = log_dir
+        self.procs: list[subprocess.Popen] = []
+
+    def _spawn(self, name: str, *args) -> subprocess.Popen:
+        log = open(self.log_dir / f"{name}.log", "wb")
+        proc = subprocess.Popen([DASK, *args], cwd=ROOT, stdout=log, stderr=subprocess.STDOUT,
+                                env={**os.environ, "PYTHONUNBUFFERED": "1"})
+        self.procs.append(proc)
+        return proc
+
+    def scheduler(self) -> subprocess.Popen:
+        proc = self._spawn("scheduler", "scheduler", "--host", "127.0.0.1", "--port", str(self.port), "--no-dashboard")
+        _wait_port(self.port)
+        return proc
+
+    def worker(self, name: str) -> subprocess.Popen:
+        # no nanny: a killed worker stays dead, as a lost machine does
+        return self._spawn(name, "worker", self.address, "--nthreads", "1", "--no-nanny", "--no-dashboard",
+                           "--host", "127.0.0.1", "--name", name, "--death-timeout", "60")
+
+    def wait_workers(self, n: int, timeout: float = 60) -> None:
+        from distributed import Client
+
+        with Client(self.address, timeout="20s") as client:
+            client.wait_for_workers(n, timeout=timeout)
+
+    def stop(self) -> None:
+        for proc in self.procs:
+            if proc.poll() is None:
+                proc.kill()
+        for proc in self.procs:
+            with contextlib.suppress(subprocess.TimeoutExpired):
+                proc.wait(timeout=20)
+
+
+@pytest.fixture
+def cluster(tmp_path):
+    c = Cluster(tmp_path)
+    try:
+        yield c
+    finally:
+        c.stop()
+
+
+def _dask_run(out, address, *extra) -> subprocess.Popen:
+    return start("run", SMALL, "--out", out, "--quiet", "--backend", "dask", "--scheduler", address, *extra)
+
+
+def test_a_lost_worker_holding_the_only_copy_of_the_data_loses_no_cell(tmp_path, cluster):
+    cluster.scheduler()
+    first = cluster.worker("w1")
+    cluster.wait_workers(1)
+    out = tmp_path / "run"
+    proc = _dask_run(out, cluster.address)
+    try:
+        assert wait_for_rows(out, 1, proc) > 0  # the data went to w1 only: w2 did not exist yet
+        cluster.worker("w2")
+        cluster.wait_workers(2)
+        first.send_signal(signal.SIGKILL)
+        first.wait(timeout=20)
+        assert count_rows(out) < 72  # mid-run
+        stdout, stderr = proc.communicate(timeout=240)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode == 0, stderr
+    df = results_by_cell(out)
+    assert len(df) == 72 and integrity(out) == "ok"
+    assert (df["status"] == "ok").all(), df.loc[df["status"] != "ok", "error"].unique()
+
+
+def test_a_lost_scheduler_stops_the_run_and_a_plain_rerun_completes(tmp_path, cluster):
+    scheduler = cluster.scheduler()
+    cluster.worker("w1")
+    cluster.worker("w2")
+    cluster.wait_workers(2)
+    out = tmp_path / "run"
+    proc = _dask_run(out, cluster.address)
+    try:
+        assert wait_for_rows(out, 1, proc) > 0
+        scheduler.send_signal(signal.SIGKILL)
+        scheduler.wait(timeout=20)
+        lost_at = time.monotonic()
+        stdout, stderr = proc.communicate(timeout=120)
+        took = time.monotonic() - lost_at
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    print(f"\nlost scheduler: exit {proc.returncode} {took:.1f} s after the kill; {stderr.strip()}")
+    assert proc.returncode == 5, stderr
+    lines = stderr.strip().splitlines()
+    flat = " ".join(stderr.split())
+    assert flat.startswith("error: lost the connection to the Dask scheduler at " + cluster.address), stderr
+    assert "Traceback" not in stderr and len([ln for ln in lines if ln.startswith("error")]) == 1
+    kept = count_rows(out)
+    df = results_by_cell(out)
+    assert integrity(out) == "ok" and 0 < kept < 72
+    assert (df["status"] == "ok").all()  # nothing recorded as failed
+    rerun = run("run", SMALL, "--out", out, "--quiet")  # plain rerun, local backend
+    assert rerun.returncode == 0, rerun.stderr
+    assert f"72 cells ({72 - kept} computed, {kept} reused)" in rerun.stdout
+    assert (results_by_cell(out)["status"] == "ok").all()
