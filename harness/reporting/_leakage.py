@@ -15,9 +15,9 @@ __all__ = ["leakage_section"]
 def _bullets(summary) -> tuple:
     out = []
     for r in summary.itertuples():  # loop over settings x models
-        verb = "flagged" if r.flagged_datasets else "not flagged"
-        out.append(f"**{r.encoder}** with {r.model}: {verb} on {r.flagged_datasets} of "
-                   f"{r.n_datasets} dataset(s) against its twin '{r.twin}' (median gap "
+        where = (f"flagged on {r.flagged_datasets} of {r.n_datasets} dataset(s)" if r.flagged_datasets
+                 else f"flagged on none of {r.n_datasets} dataset(s)")
+        out.append(f"**{r.encoder}** with {r.model}: {where} against its twin '{r.twin}' (median gap "
                    f"excess {r.median_gap_diff:+.3f}, median test effect "
                    f"{pct(r.median_test_effect)})"
                    + ("; never chosen (it fits target statistics on the rows it encodes)."
