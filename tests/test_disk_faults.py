@@ -115,7 +115,7 @@ def test_a_finished_store_on_a_read_only_mount_is_read_exported_and_reported(tmp
         with pytest.raises(OSError):
             (ro / "probe").write_text("x")  # really read-only
         status = run("status", ro)
-        assert status.returncode == 0 and "4 rows" in status.stdout, status.stderr
+        assert status.returncode == 0 and "4 finished" in status.stdout, status.stderr
         dry = run("run", config, "--out", ro, "--dry-run")
         assert dry.returncode == 0 and "0 to compute" in dry.stdout, dry.stderr
         exported = run("export", ro, "--to", tmp_path / "copy.parquet")
