@@ -18,7 +18,8 @@ import shutil
 import uuid
 from pathlib import Path
 
-__all__ = ["temporary_beside", "swap_in_dir", "fsync_path", "is_disk_full"]
+__all__ = ["temporary_beside", "swap_in_dir", "fsync_path", "is_disk_full",
+           "remove_stale_temporaries"]
 
 _AT_FDCWD = -100
 _RENAME_EXCHANGE = 2
@@ -48,6 +49,7 @@ def _tmp_name(path: Path) -> Path:
 def temporary_beside(path):
     """Yield a temporary path beside ``path``; on success it replaces ``path`` atomically."""
     path = Path(path)
+    remove_stale_temporaries(path)
     tmp = _tmp_name(path)
     try:
         yield tmp
@@ -68,22 +70,71 @@ def _exchange(a: Path, b: Path) -> bool:
     return res == 0
 
 
+def _pid_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def remove_stale_temporaries(path) -> int:
+    """Remove temporaries beside ``path`` left by writers that were killed; return how many.
+
+    A temporary's name carries its writer's process id: one whose process is gone can
+    only be the remains of a kill (a live writer's temporary is never touched).
+    """
+    path = Path(path)
+    removed = 0
+    for tmp in path.parent.glob(f".{path.name}.tmp-*-*"):
+        try:
+            pid = int(tmp.name[len(f".{path.name}.tmp-"):].split("-")[0])
+        except ValueError:
+            continue
+        if pid == os.getpid() or _pid_alive(pid):
+            continue
+        if tmp.is_dir():
+            shutil.rmtree(tmp, ignore_errors=True)
+        else:
+            with contextlib.suppress(FileNotFoundError):
+                tmp.unlink()
+        removed += 1
+    return removed
+
+
+def _swap(tmp: Path, final: Path) -> None:
+    """Put ``tmp`` at ``final``; whatever was at ``final`` ends at ``tmp`` (or is removed)."""
+    for _ in range(100):  # another writer may create or swap ``final`` between our steps
+        if final.exists():
+            if _exchange(tmp, final):
+                return  # tmp now holds the previous directory, removed by the caller
+            aside = _tmp_name(final)
+            try:
+                os.rename(final, aside)
+            except FileNotFoundError:
+                continue  # the other writer moved it aside first: try again
+            shutil.rmtree(aside, ignore_errors=True)
+        try:
+            os.rename(tmp, final)
+            return
+        except OSError as exc:
+            if exc.errno not in (errno.ENOTEMPTY, errno.EEXIST):
+                raise
+            # another writer's directory arrived first: swap ours in over it
+    raise OSError(errno.EBUSY, f"could not swap {tmp} into {final}: another writer kept replacing it")
+
+
 @contextlib.contextmanager
 def swap_in_dir(final):
     """Yield a new empty directory beside ``final``; on success it takes ``final``'s place."""
     final = Path(final)
+    remove_stale_temporaries(final)
     tmp = _tmp_name(final)
     tmp.mkdir(parents=True)
     try:
         yield tmp
-        if not final.exists():
-            os.rename(tmp, final)
-        elif _exchange(tmp, final):
-            pass  # tmp now holds the previous directory, removed below
-        else:
-            aside = _tmp_name(final)
-            os.rename(final, aside)
-            os.rename(tmp, final)
-            shutil.rmtree(aside, ignore_errors=True)
+        _swap(tmp, final)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)

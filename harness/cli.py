@@ -224,13 +224,18 @@ def _warn_few_folds(config) -> None:
              f"{config.path} (or pass --config with such a protocol).")
 
 
+DRY_RUN_SHOWN = 40  # cells to compute listed by --dry-run; the rest are counted
+
+
 def _dry_run(the_plan, out: Path) -> int:
-    from harness.store import STORE_NAME, Store
+    from harness.store import STORE_NAME, Store, read_results, table_only
 
     done = set()
     if (out / STORE_NAME).exists():
         with Store(out, lock=False, create=False) as store:
             done = store.done_ids()
+    elif table_only(out) is not None:  # a run would start its store from this table
+        done = set(read_results(out)["cell_id"])
     cfg = the_plan.config
     n = len(the_plan.cells)
     todo = sum(c.cell_id not in done for c in the_plan.cells)
@@ -241,18 +246,26 @@ def _dry_run(the_plan, out: Path) -> int:
     stale = len(done - {c.cell_id for c in the_plan.grid})
     if stale:
         print(f"  {stale} stored row(s) of cells not in this config would be set aside as superseded.")
-    for cell in the_plan.cells:
-        print(("  todo " if cell.cell_id not in done else "  done ") + cell.path)
+    pending = [c.path for c in the_plan.cells if c.cell_id not in done]
+    for path in pending[:DRY_RUN_SHOWN]:
+        print("  todo " + path)
+    if len(pending) > DRY_RUN_SHOWN:
+        print(f"  ... and {len(pending) - DRY_RUN_SHOWN} more to compute (finished cells are not listed)")
     return 0
 
 
 def cmd_status(args) -> int:
     from harness.runner import RETRY_STATUSES
-    from harness.store import Store, read_results
+    from harness.store import Store, read_results, table_only
 
     df = read_results(args.dir)
-    with Store(args.dir, lock=False, create=False) as store:
-        grid, aside = store.grid(), store.set_aside()
+    if table_only(args.dir) is not None:  # a committed sample: its table is the grid
+        grid, aside = {}, {}
+        _say(f"note: {args.dir} has no results store; read its exported table "
+             f"{table_only(args.dir).name} (the rows of the grid it was made with).")
+    else:
+        with Store(args.dir, lock=False, create=False) as store:
+            grid, aside = store.grid(), store.set_aside()
     finished = int(df["cell_id"].isin(grid).sum()) if grid else len(df)
     missing = len(grid) - finished if grid else 0
     print(f"{args.dir}: {len(grid) or len(df)} cells in the current grid: {finished} finished, {missing} missing; "
@@ -297,12 +310,15 @@ def cmd_list(args) -> int:
 
 
 def cmd_report(args) -> int:
-    from harness.store import Store
+    from harness.store import Store, read_results, table_only
 
     # refuse a missing, damaged or foreign store before the plotting stack loads
     # (opening read-only checks integrity and schema and changes nothing)
     for where in filter(None, (args.dir, args.compare)):
-        Store(where, lock=False, create=False).close()
+        if table_only(where) is not None:
+            read_results(where)  # a committed table: refuse it now if it cannot be read
+        else:
+            Store(where, lock=False, create=False).close()
     from harness.reporting import write_report
 
     path = write_report(args.dir, compare=args.compare, out=args.out)

@@ -47,6 +47,13 @@ MAX_RETRIES = 10
 MAX_TIMEOUT_S = 7 * 24 * 3600  # one week per cell
 MAX_MEMORY_MB = 4 * 1024 * 1024  # 4 TiB per cell
 JOBS_PER_CORE = 4  # workers beyond this many per core only compete for the cores
+#: iteration and tree counts (scikit-learn's and LightGBM's names and aliases): capped at
+#: load, and the probe fit runs a few of them so that a huge count cannot stall loading
+ITERATION_KEYS = frozenset({"n_estimators", "max_iter", "num_iterations", "num_iteration",
+                            "n_iter", "num_tree", "num_trees", "num_round", "num_rounds",
+                            "num_boost_round", "n_iter_no_change"})
+MAX_ITERATIONS = 100_000
+PROBE_ITERATIONS = 3
 DEFAULT_MAX_CELLS = 50_000  # grid size above which a run must be asked for explicitly
 
 
@@ -547,11 +554,24 @@ def _probe_fit(family: str, items: tuple) -> str:
     return ""
 
 
+def _is_count(value) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
+
+
 def _probe_model(family: str, items: tuple, path: str, where: str) -> None:
     for key, value in items:
         if isinstance(value, tuple) and not value:
             raise ConfigError(f"`{where}.{key}` in {path} is an empty list; give a value.")
-    problem = _probe_fit(family, items)
+        if key in ITERATION_KEYS and _is_count(value) and value > MAX_ITERATIONS:
+            raise ConfigError(
+                f"`{where}.{key}` in {path} must be at most {MAX_ITERATIONS:,} (an iteration or "
+                f"tree count); got {value!r}. Give a smaller count (with early stopping if the "
+                "model needs many)."
+            )
+    # the probe checks types and ranges, not run time: a few iterations of the same type
+    probe = tuple((k, type(v)(min(v, PROBE_ITERATIONS)) if k in ITERATION_KEYS and _is_count(v)
+                   and v > PROBE_ITERATIONS else v) for k, v in items)
+    problem = _probe_fit(family, probe)
     if problem:
         shown = ", ".join(f"{k} = {v!r}" for k, v in items)
         raise ConfigError(

@@ -32,9 +32,11 @@ from harness.errors import DiskFullError, OutputError, StoreError
 from harness.grid import SCHEMA_VERSION, changed_parts
 from harness.metrics import METRICS
 
-__all__ = ["COLUMNS", "Store", "read_results", "read_set_aside", "describe_set_aside", "export"]
+__all__ = ["COLUMNS", "STORE_NAME", "TABLE_NAME", "Store", "read_results", "read_set_aside",
+           "describe_set_aside", "export", "table_only"]
 
 STORE_NAME = "results.sqlite"
+TABLE_NAME = "results.parquet"  # the exported table; read when a directory has no store
 CREATING_PREFIX = ".results.sqlite.creating-"  # a store being built; renamed when complete
 KEPT_PREFIX = "kept-"  # kept-1/, kept-2/ ...: earlier stores set aside by --fresh
 
@@ -578,10 +580,40 @@ def _sql(value):
     return value
 
 
+def table_only(out) -> Path | None:
+    """``<out>/results.parquet`` when the directory holds that table but no store.
+
+    A committed sample ships its exported table (the current grid's rows) instead of the
+    SQLite store; ``status``, ``export`` and ``report`` read it as they read a store.
+    """
+    out = Path(out)
+    table = out / TABLE_NAME
+    if (out / STORE_NAME).exists() or not table.is_file():
+        return None
+    return table
+
+
 def read_results(out) -> pd.DataFrame:
-    """Read the results table of a run directory (no lock; refuses damaged or foreign stores)."""
-    with Store(out, lock=False, create=False) as store:
-        df = store.frame()
+    """Read the results table of a run directory (no lock; refuses damaged or foreign stores).
+
+    A directory with ``results.parquet`` and no store (a committed sample) is read from
+    that table.
+    """
+    table = table_only(out)
+    if table is not None:
+        try:
+            df = pd.read_parquet(table)
+        except Exception as exc:  # pyarrow raises several types for a damaged file
+            raise StoreError(f"the results table {table} cannot be read ({exc}); restore it "
+                             "from version control or rerun the config that made it.") from None
+        missing = [col for col, _ in COLUMNS if col not in df and col not in BOOL_COLUMNS]
+        if missing:
+            raise StoreError(f"the results table {table} lacks the column(s) "
+                             f"{', '.join(missing)}; it was not written by `harness export`. "
+                             "Rerun the config that made it.")
+    else:
+        with Store(out, lock=False, create=False) as store:
+            df = store.frame()
     for col, typ in COLUMNS:
         if typ == "REAL":
             df[col] = pd.to_numeric(df[col], errors="coerce").astype(float)
@@ -598,6 +630,8 @@ def read_results(out) -> pd.DataFrame:
 
 def read_set_aside(out) -> dict:
     """``{reason: rows}`` of the rows a run directory set aside as superseded."""
+    if table_only(out) is not None:
+        return {}  # an exported table holds the current grid only
     with Store(out, lock=False, create=False) as store:
         return store.set_aside()
 

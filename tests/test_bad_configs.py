@@ -27,7 +27,7 @@ def test_there_are_at_least_25_cases():
 def test_bad_config_is_refused_clearly(path, capsys, tmp_path):
     code = main(["run", str(path), "--dry-run", "--out", str(tmp_path / "out")])
     err = capsys.readouterr().err
-    assert code != 0
+    assert code == 2  # bad input, never an internal error (1) or a store problem (3)
     assert "Traceback" not in err
     flat = " ".join(err.split())
     assert re.search(_expected(path), flat), flat

@@ -15,6 +15,7 @@ import shutil
 import sqlite3
 import subprocess
 import sys
+from pathlib import Path
 
 import pandas as pd
 import pytest
@@ -216,3 +217,41 @@ def test_two_reports_at_once_on_one_directory_both_finish(tmp_path):
     assert not errors
     assert (report / "report.md").read_text() in {"a", "b"}
     assert sorted(p.name for p in tmp_path.iterdir()) == ["report"]
+
+
+def test_a_report_that_appears_between_check_and_rename_is_swapped_over(tmp_path, monkeypatch):
+    """The other writer's report lands after our existence check: ours still swaps in."""
+    from harness import _outputs
+
+    report, real_rename = tmp_path / "report", os.rename
+    calls = []
+
+    def racing_rename(src, dst):
+        if Path(dst) == report and not calls:
+            calls.append(dst)
+            report.mkdir()  # the other writer wins the race by a hair
+            (report / "report.md").write_text("other")
+        return real_rename(src, dst)
+
+    monkeypatch.setattr(_outputs.os, "rename", racing_rename)
+    with _outputs.swap_in_dir(report) as new:
+        (new / "report.md").write_text("ours")
+    assert calls and (report / "report.md").read_text() == "ours"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report"]
+
+
+def test_temporaries_of_killed_writers_are_removed_and_live_ones_kept(tmp_path):
+    from harness._outputs import swap_in_dir, temporary_beside
+
+    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                          capture_output=True, text=True, check=True)
+    dead_pid = int(dead.stdout)  # a process that has exited: its temporaries are remains
+    (tmp_path / f".report.tmp-{dead_pid}-0000dead").mkdir()
+    (tmp_path / f".results.csv.tmp-{dead_pid}-0000dead").write_text("half")
+    live = tmp_path / f".report.tmp-{os.getppid()}-0000live"
+    live.mkdir()  # a live writer's temporary is never touched
+    with swap_in_dir(tmp_path / "report") as new:
+        (new / "report.md").write_text("x")
+    with temporary_beside(tmp_path / "results.csv") as tmp:
+        tmp.write_text("cell_id\n")
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(["report", "results.csv", live.name])

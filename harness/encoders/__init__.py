@@ -11,12 +11,16 @@ from __future__ import annotations
 from typing import NamedTuple
 
 from harness.encoders._base import factorised
+from harness.encoders._contrast import ContrastCodes
 from harness.encoders._frequency import FrequencyCodes
+from harness.encoders._glmm import RandomInterceptCodes
 from harness.encoders._hashing import HashedCodes
+from harness.encoders._hybrid import CardinalitySplit
 from harness.encoders._integer import IntegerCodes
 from harness.encoders._onehot import OneHotCodes
 from harness.encoders._passthrough import DropColumns, NativeCategories
-from harness.encoders._rules import ParameterError, check_params
+from harness.encoders._rules import ParameterError
+from harness.encoders._similarity import NgramSimilarity
 from harness.encoders._target import TargetStatistics
 from harness.errors import ConfigError, closest
 
@@ -28,6 +32,10 @@ ENCODERS = {
     "target": TargetStatistics,
     "drop": DropColumns,
     "native": NativeCategories,
+    "contrast": ContrastCodes,
+    "hybrid": CardinalitySplit,
+    "similarity": NgramSimilarity,
+    "glmm": RandomInterceptCodes,
 }
 
 KINDS = tuple(sorted(ENCODERS))
@@ -47,12 +55,16 @@ __all__ = [
     "declaration",
     "describe",
     "params_of",
+    "CardinalitySplit",
+    "ContrastCodes",
     "DropColumns",
     "FrequencyCodes",
     "HashedCodes",
     "IntegerCodes",
     "NativeCategories",
+    "NgramSimilarity",
     "OneHotCodes",
+    "RandomInterceptCodes",
     "TargetStatistics",
 ]
 
@@ -96,7 +108,7 @@ def check(kind: str, params: dict) -> None:
         Unknown kind or parameter; :class:`ParameterError` (also a ``ValueError``) for a
         value outside the rules.
     """
-    check_params(build(kind, **params))
+    build(kind, **params)._check_params()  # a composite kind also checks its parts
 
 
 class Declaration(NamedTuple):

@@ -28,7 +28,7 @@ class HashedCodes(CategoricalEncoder):
 
     Parameters
     ----------
-    width : int, default=256
+    width : int in [1, 2**24], default=256
         Number of hash columns (per input column when ``space="per-column"``).
     space : {"shared", "per-column"}, default="shared"
         All input columns share one block of ``width`` columns (collisions across
@@ -80,7 +80,9 @@ class HashedCodes(CategoricalEncoder):
 
     references = ("weinberger2009",)
     param_rules = {
-        "width": (Interval("int", 1, None),),
+        # 2**24 columns: far beyond any useful hashed width (common practice, no source), and
+        # below the index range of the sparse formats the models take
+        "width": (Interval("int", 1, 2**24),),
         "space": (Options(*SPACES),),
         "signed": (Flag(),),
         "missing": (Options(*MISSING_RULES),),

@@ -88,17 +88,21 @@ class Interval:
                 return False
         return True
 
+    def _num(self, value) -> str:
+        return str(int(value)) if self.kind == "int" else f"{value:g}"
+
     def describe(self) -> str:
         noun = "an integer" if self.kind == "int" else "a finite number"
-        if self.low is not None and self.high is None:
-            return f"{noun} {'>=' if self.closed in ('both', 'left') else '>'} {self.low:g}"
-        if self.high is not None and self.low is None:
-            return f"{noun} {'<=' if self.closed in ('both', 'right') else '<'} {self.high:g}"
-        if self.low is None:
+        low, high = self.low, self.high
+        if low is not None and high is None:
+            return f"{noun} {'>=' if self.closed in ('both', 'left') else '>'} {self._num(low)}"
+        if high is not None and low is None:
+            return f"{noun} {'<=' if self.closed in ('both', 'right') else '<'} {self._num(high)}"
+        if low is None:
             return noun
         left = "[" if self.closed in ("both", "left") else "("
         right = "]" if self.closed in ("both", "right") else ")"
-        return f"{noun} in {left}{self.low:g}, {self.high:g}{right}"
+        return f"{noun} in {left}{self._num(low)}, {self._num(high)}{right}"
 
     def bad_examples(self):
         out = ["<text>", True, float("nan")]

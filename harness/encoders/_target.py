@@ -222,7 +222,7 @@ class TargetStatistics(CategoricalEncoder):
         before the row in one random permutation (CatBoost's ordered target
         statistics), prior from all other rows unless ``prior`` is set; ``holdout`` a
         random ``holdout_fraction`` of rows encodes the rest and the rest encodes it.
-    cv : int or splitter, default=5
+    cv : int in [2, 1000] or splitter, default=5
         Inner folds for ``"kfold"``. An integer deals a random permutation (seeded by
         ``random_state``) round-robin into ``cv`` folds, class by class for a class
         target (stratified); a splitter is used as is: its splits, so results reproduce
@@ -232,7 +232,7 @@ class TargetStatistics(CategoricalEncoder):
     statistic : {"mean", "woe"}, default="mean"
         ``"woe"``: weight of evidence of the smoothed rate (binary targets only); see
         :func:`weight_of_evidence`.
-    noise : float >= 0, default=0.0
+    noise : float in [0, 1e6], default=0.0
         Standard deviation of Gaussian noise added to the training encodings returned
         by ``fit_transform`` (never to ``transform``).
     holdout_fraction : float in (0, 1), default=0.5
@@ -300,10 +300,12 @@ class TargetStatistics(CategoricalEncoder):
         "ramp_center": (Interval("real", None, None),),
         "ramp_width": (Interval("real", 0, None),),
         "crossfit": (Options(*CROSSFITS),),
-        "cv": (Interval("int", 2, None), Splitter()),
+        # more inner folds than 1,000 is leave-one-out in all but name: use crossfit="loo"
+        "cv": (Interval("int", 2, 1000), Splitter()),
         "random_state": (Nothing(), Interval("int", 0, 2**32 - 1), Seed()),
         "statistic": (Options(*STATISTICS),),
-        "noise": (Interval("real", 0, None),),
+        # noise in target units; 1e6 bounds a typo (1e300), not a sensible setting
+        "noise": (Interval("real", 0, 1e6),),
         "holdout_fraction": (Interval("real", 0, 1, closed="neither"),),
         "missing": (Options(*MISSING_POLICIES),),
         "target_type": (Options(*TARGET_TYPES),),

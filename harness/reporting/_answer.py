@@ -25,8 +25,12 @@ _FAILED = ("failed", "timeout", "out-of-memory")
 def _evidence_phrase(row: pd.Series, d: stats.Decision) -> str:
     test = ("Holm-adjusted one-sided Wilcoxon" if d.method == "datasets"
             else "Holm-adjusted one-sided corrected resampled t")
-    return (f"{row['verdict']} ({test} {fmt_p(row['p_ni_holm'])} against 'worse by more "
-            f"than {100 * d.rule.margin:g} %'), effect {pct(row['effect'])} "
+    m = int((d.table["family"] == row["family"]).sum())
+    fam = ("candidates that save enough cost" if row["family"] == "switch" else
+           "candidates that cannot change the choice" if row["family"] == "other" else
+           "leaky settings")
+    return (f"{row['verdict']} ({test} {fmt_p(row['p_ni_holm'])} over the {m} {fam}, against "
+            f"'worse by more than {100 * d.rule.margin:g} %'), effect {pct(row['effect'])} "
             f"[{pct(row['lower'])}, {pct(row['upper'])}] (simultaneous one-sided bounds at "
             f"{row['bound_level']:.2g}), P(practically worse) = "
             f"{row['prob_worse']:.2f}")
@@ -164,29 +168,31 @@ def _summary(a) -> pd.DataFrame:
 
 def _decision_tables(a, root: Path) -> list:
     full = stats.decision_table(a.headline)
-    shown = full[stats.DECISION_COLUMNS].copy()
+    shown = full[stats.DECISION_COLUMNS + ["family"]].copy()
     out = [table(full, root, "decision", "Decision per model and encoder (headline analysis, "
                  "confirmatory): verdict against the reference, effect (unit-free, positive = "
                  "better) with simultaneous one-sided bounds (Bonferroni over the candidates, "
                  "level in bound_level of the CSV: a lower bound above the margin always "
                  "means non-inferior; Holm can also show it with a bound below), "
                  "Holm-adjusted non-inferiority p, Bayesian "
-                 "P(practically worse), median per-dataset cost ratio.", shown=shown)]
+                 "P(practically worse), median per-dataset cost ratio, and the Holm family, "
+                 "set by cost alone: switch = saves enough cost to replace the reference (the "
+                 "only family the choice reads), other = cannot change the choice (secondary "
+                 "verdicts), leaky = never chosen.", shown=shown)]
     out += figure(lambda: figures.delta_plot(a.headline), root, "decision_effects",
                   f"Effect of each candidate against its reference with simultaneous one-sided "
-                  f"bounds (α = {a.rule.alpha:g} shared over the candidates); the dashed line is the margin −"
-                  f"{pct(a.rule.margin, False)}; marker shapes give the verdict.",
+                  f"bounds (α = {a.rule.alpha:g} shared over the candidates of each Holm "
+                  f"family); the dashed line is the margin −{pct(a.rule.margin, False)}; marker shapes give the verdict.",
                   "decision effects")
     return out
 
 
 def answer_section(a, root: Path) -> list:
     """The question, the choice per model, the decision table and the caveats."""
-    n_cand = max((len(d.table) - 1 for d in a.headline), default=0)
     out = [Heading("Which encoding should be the default?", 2, "answer"),
            Para("Question: for each model in this run, which categorical encoding should be "
                 "the default, and at what cost? Decision rule, applied per model: "
-                + a.rule.describe(n_cand or None))]
+                + a.rule.describe())]
     if not a.decisions:
         return out + [Note("No cell of this run produced a score: there is nothing to "
                            "decide. See the list of cells that did not run below.")]

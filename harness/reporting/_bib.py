@@ -116,6 +116,14 @@ BIB = {
   pages   = {2671--2692},
   year    = {2022}
 }"""),
+    "cerda2018": ("Cerda et al. (2018)", """@article{cerda2018,
+  author  = {Cerda, Patricio and Varoquaux, Ga{\\"e}l and K{\\'e}gl, Bal{\\'a}zs},
+  title   = {Similarity Encoding for Learning with Dirty Categorical Variables},
+  journal = {Machine Learning},
+  volume  = {107},
+  pages   = {1477--1494},
+  year    = {2018}
+}"""),
     "benavoli2017": ("Benavoli et al. (2017)", """@article{benavoli2017,
   author  = {Benavoli, Alessio and Corani, Giorgio and Dem{\\v{s}}ar, Janez and
              Zaffalon, Marco},

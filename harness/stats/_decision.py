@@ -27,7 +27,7 @@ __all__ = ["Decision", "DECISION_COLUMNS", "decide", "decision_table"]
 #: the fixed columns of ``report/tables/decision.csv`` (scripts outside the package read them)
 DECISION_COLUMNS = ["model", "encoder", "reference", "verdict", "chosen", "n_datasets",
                     "effect", "lower", "upper", "p_noninferior", "prob_worse", "cost_ratio"]
-_EXTRA = ["eligible", "method", "n_folds", "p_superior", "bound_level", "saving_s",
+_EXTRA = ["eligible", "family", "method", "n_folds", "p_superior", "bound_level", "saving_s",
           "n_features", "needed", "needed_unit"]
 
 
@@ -36,12 +36,17 @@ class Decision:
     """The choice for one model and metric with the evidence per encoder.
 
     ``table`` has one row per encoder (the reference included, verdict ``"reference"``)
-    and the columns of :data:`DECISION_COLUMNS` plus ``eligible, method, n_folds,
-    p_superior, bound_level, saving_s, n_features, needed, needed_unit``. ``lower`` and
+    and the columns of :data:`DECISION_COLUMNS` plus ``eligible, family, method, n_folds,
+    p_superior, bound_level, saving_s, n_features, needed, needed_unit``.
+
+    Candidates fall into Holm families by cost and leakage alone (``family``): ``switch``
+    (saves enough cost to replace the reference; the only family the choice reads),
+    ``other`` (cannot change the choice; secondary verdicts) and ``leaky``. ``lower`` and
     ``upper`` are one-sided bounds at ``bound_level = alpha / m`` (Bonferroni over the m
-    candidates of the family): a lower bound above ``-margin`` implies that the
-    Holm-adjusted non-inferiority test rejects; Holm may also reject with a bound below it. ``choice`` holds more than
-    one label only when a tie could not be broken (it is then stated, not resolved).
+    candidates of the row's family): a lower bound above ``-margin`` implies that the
+    Holm-adjusted non-inferiority test rejects; Holm may also reject with a bound below
+    it. ``choice`` holds more than one label only when a tie could not be broken (it is
+    then stated, not resolved).
     """
 
     model: str
@@ -56,19 +61,27 @@ class Decision:
     notes: tuple
 
     @property
+    def family_size(self) -> int:
+        """m of the family the choice reads: candidates saving enough cost (else the others)."""
+        t = self.table
+        if not len(t) or "family" not in t:
+            return 1
+        switch = int((t["family"] == "switch").sum())
+        return switch or max(int((t["family"] == "other").sum()), 1)
+
+    @property
     def holm_floor(self) -> tuple[int, float]:
         """(m, smallest Holm-adjusted p reachable over datasets).
 
         With all N effects on one side the exact one-sided signed-rank p is ``2^-N``; Holm
-        multiplies the smallest p by m, the number of eligible candidates. On one dataset
-        (corrected t) any p can be reached: the floor is 0.
+        multiplies the smallest p by m, the size of the family (:attr:`family_size`). On
+        one dataset (corrected t) any p can be reached: the floor is 0.
 
         References
         ----------
         Wilcoxon (1945), Biometrics Bulletin 1(6); Holm (1979), Scand. J. Statistics 6(2).
         """
-        t = self.table
-        m = max(int(t["eligible"].sum()) - 1, 1) if len(t) else 1
+        m = self.family_size
         if self.method != "datasets":
             return m, 0.0
         return m, float(m * 2.0 ** -self.n_datasets)
@@ -166,26 +179,44 @@ def _over_folds(d: np.ndarray, ratio: float, n_folds: int, rule: DecisionRule,
             "needed_unit": "repeats"}
 
 
-def _candidate(cells, per, ref, enc, method, rule, m) -> dict:
+def _cost_row(per, ref, enc) -> dict:
+    """Paired cost of ``enc`` against ``ref``: median per-dataset ratio and saving."""
     a, b = per.xs(enc, level="encoder"), per.xs(ref, level="encoder")
     j = a.join(b.add_suffix("_ref"), how="inner")
     ratio_cost = (j["cost"] / j["cost_ref"]).replace([np.inf, -np.inf], np.nan)
-    row = {"n_datasets": len(j), "cost_ratio": float(ratio_cost.median()),
-           "saving_s": float((j["cost_ref"] - j["cost"]).median()),
-           "n_features": float(j["features"].median())}
+    return {"n_datasets": len(j), "cost_ratio": float(ratio_cost.median()),
+            "saving_s": float((j["cost_ref"] - j["cost"]).median()),
+            "n_features": float(j["features"].median())}
+
+
+def _quality(cells, per, ref, enc, method, rule, m) -> dict:
+    """The one-sided tests, bounds and power of ``enc`` in a family of ``m`` candidates."""
     if method == "datasets":
+        a, b = per.xs(enc, level="encoder"), per.xs(ref, level="encoder")
+        j = a.join(b.add_suffix("_ref"), how="inner")
         d = unit_free_delta(j["value"], j["value_ref"], j["gib"])
-        row["n_folds"] = np.nan
-        return {**row, **_over_datasets(d[np.isfinite(d)], rule, m)}
+        return {"n_folds": np.nan, **_over_datasets(d[np.isfinite(d)], rule, m)}
     keys = ["repeat", "fold"]
     fa = cells.loc[cells["encoder"] == enc].set_index(keys)
     fb = cells.loc[cells["encoder"] == ref].set_index(keys)
     f = fa.join(fb[["value"]].add_suffix("_ref"), how="inner")
     d = unit_free_delta(f["value"], f["value_ref"], f["gib"])
-    row["n_folds"] = int(np.isfinite(d).sum())
     n_folds = int(cells["fold"].nunique())
-    return {**row, **_over_folds(d[np.isfinite(d)], float(f["ratio"].mean()), n_folds, rule,
-                                 m)}
+    return {"n_folds": int(np.isfinite(d).sum()),
+            **_over_folds(d[np.isfinite(d)], float(f["ratio"].mean()), n_folds, rule, m)}
+
+
+def _families(costs: pd.DataFrame, leaky, rule: DecisionRule) -> pd.Series:
+    """Each candidate's Holm family, decided by cost and leakage alone (never by quality).
+
+    ``switch``: eligible and saving enough cost to replace the reference: the only family
+    the choice reads, so adding or removing a candidate that cannot save enough cost
+    never changes the choice. ``other``: eligible, but not cheap enough to change the
+    choice (secondary verdicts). ``leaky``: never chosen.
+    """
+    saves = (1 - costs["cost_ratio"] >= rule.min_saving) & (costs["saving_s"] >= rule.min_saving_s)
+    leak = costs.index.isin(list(leaky))
+    return pd.Series(np.where(leak, "leaky", np.where(saves, "switch", "other")), costs.index)
 
 
 # ------------------------------------------------------------------------- verdicts
@@ -204,9 +235,8 @@ def _verdicts(t: pd.DataFrame, alpha: float) -> pd.Series:
                                                     "inferior"], "inconclusive"), t.index)
 
 
-def _choose(t: pd.DataFrame, ref: str, rule: DecisionRule) -> tuple[tuple, list]:
-    ok = t.loc[t["eligible"] & t["verdict"].isin(SHOWN_NOT_WORSE)
-               & (1 - t["cost_ratio"] >= rule.min_saving) & (t["saving_s"] >= rule.min_saving_s)]
+def _choose(t: pd.DataFrame, ref: str) -> tuple[tuple, list]:
+    ok = t.loc[(t["family"] == "switch") & t["verdict"].isin(SHOWN_NOT_WORSE)]
     if ok.empty:
         return (ref,), []
     best = ok.loc[ok["cost_ratio"] == ok["cost_ratio"].min()]
@@ -222,13 +252,16 @@ def _choose(t: pd.DataFrame, ref: str, rule: DecisionRule) -> tuple[tuple, list]
 
 def _evidence(cells, ref, encoders, leaky, method, rule) -> pd.DataFrame:
     per = _per_dataset(cells)
-    m = max(sum(e not in leaky for e in encoders), 1)  # size of the confirmatory family
-    rows = {enc: _candidate(cells, per, ref, enc, method, rule, m) for enc in encoders}
-    t = pd.DataFrame.from_dict(rows, orient="index")
-    t["eligible"] = ~t.index.isin(list(leaky))
-    # eligible candidates form the confirmatory family; leaky settings their own family
-    parts = [_adjust(t.loc[t["eligible"] == flag]) for flag in (True, False)]
-    t = pd.concat([p for p in parts if len(p)]).reindex(t.index)
+    costs = pd.DataFrame.from_dict({e: _cost_row(per, ref, e) for e in encoders}, orient="index")
+    costs["family"] = _families(costs, leaky, rule)
+    costs["eligible"] = costs["family"] != "leaky"
+    size = costs["family"].value_counts()
+    rows = {e: _quality(cells, per, ref, e, method, rule, int(size[costs.at[e, "family"]]))
+            for e in encoders}
+    t = costs.join(pd.DataFrame.from_dict(rows, orient="index"))
+    # Holm within each family (loop over at most three families)
+    parts = [_adjust(t.loc[t["family"] == fam]) for fam in pd.unique(t["family"])]
+    t = pd.concat(parts).reindex(t.index)
     t["verdict"] = _verdicts(t, rule.alpha)
     return t
 
@@ -239,7 +272,8 @@ def _reference_row(cells, ref, method) -> pd.DataFrame:
     return pd.DataFrame({"n_datasets": len(per), "cost_ratio": 1.0, "saving_s": 0.0,
                          "n_features": float(per["features"].median()), "effect": 0.0,
                          "lower": 0.0, "upper": 0.0, "verdict": "reference",
-                         "eligible": True, "n_folds": n_folds}, index=[ref])
+                         "eligible": True, "family": "reference", "n_folds": n_folds},
+                        index=[ref])
 
 
 def decide(results: pd.DataFrame, model: str, metric: str = POOLED,
@@ -286,7 +320,7 @@ def decide(results: pd.DataFrame, model: str, metric: str = POOLED,
     method = "datasets" if n_ref >= 2 else "folds"
     others = [e for e in encoders if e != ref]
     t = _evidence(cells, ref, others, leaky, method, rule) if others else pd.DataFrame()
-    choice, tie = _choose(t, ref, rule) if len(t) else ((ref,), [])
+    choice, tie = _choose(t, ref) if len(t) else ((ref,), [])
     table = pd.concat([_reference_row(cells, ref, method), t]) if len(t) else \
         _reference_row(cells, ref, method)
     table["chosen"] = table.index.isin(choice)

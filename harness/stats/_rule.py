@@ -50,29 +50,31 @@ class DecisionRule:
         names = {f.name for f in fields(cls)}
         return cls(**{k: v for k, v in dict(values or {}).items() if k in names})
 
-    def describe(self, n_candidates: int | None = None) -> str:
+    def describe(self) -> str:
         """The rule in words, every number taken from this object."""
         ref = (f"the reference '{self.reference}'" if self.reference else
                "the reference (the eligible setting with the best average rank, chosen from "
                "the data, which makes the tests conservative)")
         m, a = _pct(self.margin), f"{self.alpha:g}"
-        fam = (f" across the {n_candidates} candidates" if n_candidates else
-               " across the candidates")
         return (
             f"Each candidate is compared with {ref} on a unit-free effect per dataset: "
             f"(score − reference) / |reference| for scores, log(reference error / error) "
             f"for errors, so a positive effect means better. A candidate is non-inferior "
             f"when a one-sided Wilcoxon signed-rank test rejects 'the median effect is at "
-            f"most −{m}' at α = {a}, Holm-adjusted{fam}; superior when it rejects 'at most "
-            f"0'; equivalent only when both one-sided tests against −{m} and +{m} reject "
+            f"most −{m}' at α = {a}, Holm-adjusted within its family; superior when it "
+            f"rejects 'at most 0'; equivalent only when both one-sided tests against −{m} and +{m} reject "
             f"(TOST); inferior when the test of 'at least −{m}' rejects; otherwise "
             f"inconclusive. On one dataset the same tests run on fold-paired effects with "
-            f"the corrected resampled t. Among the non-inferior (or better) candidates the "
-            f"one with the largest cost saving is chosen, provided the median cost ratio "
-            f"saves at least {_pct(self.min_saving)} and {self.min_saving_s:g} s per fold; "
-            f"otherwise the reference is kept. Exact cost ties go to the larger effect, then "
-            f"to fewer output features; a tie that remains is stated. Settings that fit "
-            f"target statistics on the rows they encode are never chosen.")
+            f"the corrected resampled t. Families are set by cost alone: the candidates "
+            f"whose median cost ratio saves at least {_pct(self.min_saving)} and "
+            f"{self.min_saving_s:g} s per fold form the family the choice reads, so a "
+            f"candidate that cannot save that much never changes the choice; the others "
+            f"are adjusted among themselves and their verdicts are secondary. Among the "
+            f"non-inferior (or better) cost-saving candidates the one with the largest "
+            f"cost saving is chosen; otherwise the reference is kept. Exact cost ties go "
+            f"to the larger effect, then to fewer output features; a tie that remains is "
+            f"stated. Settings that fit target statistics on the rows they encode are "
+            f"never chosen.")
 
 
 def _pct(value: float) -> str:

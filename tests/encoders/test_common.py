@@ -38,7 +38,16 @@ _CROSS_FITTED = (
     "2018, NeurIPS: in-sample target statistics leak), so it differs from fit().transform() "
     "under the default m-estimate smoothing; the check wants them equal within 0.01"
 )
+_CROSS_FITTED_MODEL = (
+    "fit_transform returns cross-fitted training encodings by design (each fold's rows are "
+    "encoded by a random-intercept model fitted on the other folds), so it differs from "
+    "fit().transform(); the check wants them equal within 0.01"
+)
 EXPECTED_FAILURES: dict[str, dict[str, str]] = {
+    "glmm": {
+        "check_transformer_general": _CROSS_FITTED_MODEL,
+        "check_transformer_data_not_an_array": _CROSS_FITTED_MODEL,
+    },
     "native": {
         "check_transformer_general": _NUMERIC_COMPARE,
         "check_transformer_data_not_an_array": _NUMERIC_COMPARE,

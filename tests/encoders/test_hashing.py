@@ -100,7 +100,8 @@ def test_output_and_names(rng):
 @pytest.mark.parametrize(
     ("param", "value", "match"),
     [
-        ("width", 0, "'width' must be an integer >= 1"),
+        ("width", 0, r"'width' must be an integer in \[1, 16777216\]"),
+        ("width", 2**24 + 1, r"'width' must be an integer in \[1, 16777216\]; got 16777217"),
         ("space", "separate", "'space' must be one of 'shared', 'per-column'"),
         ("signed", 1, "'signed' must be true or false"),
     ],

@@ -57,6 +57,9 @@ def test_target_statistic_of_missing_is_the_m_estimate_of_its_rows():
     ("onehot", {"missing": "zeros"}, "a row of zeros"),
     ("hashing", {"missing": "zeros"}, "no entry"),
     ("frequency", {"missing": "unseen"}, "0, as an unseen value"),
+    ("contrast", {"missing": "zeros"}, "a row of zeros"),
+    ("similarity", {"missing": "zeros"}, "a vector of zeros"),
+    ("glmm", {"missing": "prior"}, "the intercept"),
 ])
 def test_missing_is_configurable_per_encoder(kind, params, rule):
     X, y = _frame()
@@ -66,6 +69,8 @@ def test_missing_is_configurable_per_encoder(kind, params, rule):
     got = got.toarray() if hasattr(got, "toarray") else np.asarray(got, dtype=float)
     if kind == "target":
         np.testing.assert_allclose(got, y.mean())
+    elif kind == "glmm":  # the model's intercept: what an unseen level gets
+        np.testing.assert_allclose(got, np.broadcast_to(enc.intercept_[0], got.shape))
     elif kind == "integer":
         assert np.isnan(got).all()
     else:  # no column, no entry, or the frequency of a value never seen

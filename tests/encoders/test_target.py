@@ -359,8 +359,10 @@ def test_set_output_pandas(rng):
         ({"noise": -0.1}, "'noise' must be a finite number"),
         ({"holdout_fraction": 1.0}, r"'holdout_fraction' must be a finite number in \(0, 1\)"),
         ({"prior": "half"}, "'prior' must be None or a finite number"),
-        ({"cv": 1}, "'cv' must be an integer >= 2 or a scikit-learn splitter"),
-        ({"cv": "five"}, "'cv' must be an integer >= 2"),
+        ({"cv": 1}, r"'cv' must be an integer in \[2, 1000\] or a scikit-learn splitter"),
+        ({"cv": "five"}, r"'cv' must be an integer in \[2, 1000\]"),
+        ({"cv": 10**9}, r"'cv' must be an integer in \[2, 1000\] .*; got 1000000000"),
+        ({"noise": 1e300}, r"'noise' must be a finite number in \[0, 1e\+06\]"),
     ],
 )
 def test_invalid_parameters(rng, params, match):

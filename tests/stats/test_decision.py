@@ -93,6 +93,25 @@ def test_irrelevant_alternatives_do_not_change_the_choice():
     assert added.choice == ("cheap",)
 
 
+def test_candidates_that_cannot_save_enough_cost_never_move_the_choice():
+    # a cost-saving candidate close to the margin: its Holm p must not grow when encoders
+    # that cannot replace the reference on cost (slower, or saving < 20 %) join the run
+    borderline = np.array([0.003, -0.012, 0.002, 0.004, -0.009, 0.001, 0.003, 0.002,
+                           -0.011, 0.005])
+    secs = {"ref": 3.0, "cheap": 1.0}
+    alone = _decide(table({"cheap": borderline}, seconds=secs))
+    row = alone.table.loc["cheap"]
+    for k in range(1, 6):  # up to five slower, noisy encoders
+        extra = {f"slow{i}": NOISY + 0.001 * i for i in range(k)}
+        secs_k = {**secs, **{f"slow{i}": 5.0 + i for i in range(k)}}
+        d = _decide(table({"cheap": borderline, **extra}, seconds=secs_k))
+        assert d.choice == alone.choice, k
+        assert d.table.loc["cheap", "p_ni_holm"] == row["p_ni_holm"], k
+        assert d.table.loc["cheap", "lower"] == row["lower"], k
+        assert set(d.table.loc[list(extra), "family"]) == {"other"}
+    assert alone.table.loc["cheap", "family"] == "switch"
+
+
 def _write_decision(df, path):
     d = S.decide(df, "m", S.POOLED, RULE)
     S.decision_table([d]).to_csv(path, index=False, float_format="%.10g")
@@ -154,9 +173,9 @@ def test_missing_cells_never_drop_the_reference_or_the_choice():
 
 
 def test_rule_text_is_generated_from_its_numbers():
-    text = S.DecisionRule(margin=0.02, alpha=0.1, min_saving=0.3, min_saving_s=0.5).describe(4)
+    text = S.DecisionRule(margin=0.02, alpha=0.1, min_saving=0.3, min_saving_s=0.5).describe()
     for piece in ("−2 %", "α = 0.1", "at least 30 %", "0.5 s per fold",
-                  "across the 4 candidates"):
+                  "Holm-adjusted within its family", "never changes the choice"):
         assert piece in text
 
 
