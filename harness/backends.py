@@ -8,10 +8,15 @@ Rows with status ``failed`` come only from a cell's own error (``run_unit`` catc
 those). A unit lost with a worker or with its data is run again; when that keeps
 happening, or the cluster itself is gone, the run stops with :class:`ClusterError` and
 records nothing for the lost units, so a plain rerun computes them.
+
+Both worker backends have a watchdog: a unit that runs past its cells' time limits by
+``WATCHDOG_MARGIN_S`` without returning (its worker stopped, or stuck in native code
+where SIGALRM cannot reach) is recorded ``timeout`` and its worker taken out of the run.
 """
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import multiprocessing as mp
 import os
@@ -84,10 +89,10 @@ def unit_budget_s(job: UnitJob) -> float | None:
     return float(sum(limits))
 
 
-def _overdue_rows(datasets, label: str, job: UnitJob, budget: float) -> list[dict]:
+def _overdue_rows(datasets, label: str, job: UnitJob, budget: float, fate: str = "killed it") -> list[dict]:
     why = (f"worker ran {budget + WATCHDOG_MARGIN_S:g} s, past the unit's time limits of {budget:g} s in total "
            "(execution.cell_timeout_s, models.<label>.cell_timeout_s), without returning (stopped or stuck "
-           "in native code); the watchdog killed it")
+           f"in native code); the watchdog {fate}")
     return [base_row(c, datasets[label], job, "timeout", why) for c in job.cells]
 
 
@@ -185,6 +190,113 @@ class ProcessPool:
             self.pool.shutdown(wait=False, cancel_futures=True)
 
 
+_NOT_YET = object()  # a finished unit whose result its worker has not handed over yet
+
+
+def _dask_unit(dataset, job: UnitJob, topic: str) -> list[dict]:
+    """``run_unit`` on a Dask worker, telling the driver first that the unit has started.
+
+    The scheduler lists the tasks assigned to a worker, queued ones included; only this
+    event says which one is executing, so the watchdog times a unit from its real start.
+    """
+    from distributed import get_worker
+
+    worker = get_worker()
+    worker.log_event(topic, {"key": worker.get_current_task(), "worker": worker.address})
+    return run_unit(dataset, job)
+
+
+class _DaskWatchdog:
+    """Finds the Dask units that overran their limits and the workers to take out.
+
+    Two verdicts, both at the unit's ``unit_budget_s`` + ``WATCHDOG_MARGIN_S``:
+
+    - *overdue*: a unit started on a worker (its task's event) and has not returned for
+      that long; the worker is stopped, or stuck in native code where no limit reaches.
+      The unit is recorded ``timeout`` and its worker removed.
+    - *silent*: a worker holds a unit that has not started there, or a finished unit's
+      result, and has sent the scheduler no heartbeat for that long (stopped between two
+      units). The worker is removed; the scheduler runs the unit again elsewhere.
+
+    A worker is removed through the scheduler (``remove_worker``): it forgets the worker
+    at once and reschedules the tasks queued there, without waiting for the worker to
+    answer, which a stopped one never does. A unit without a time limit is never timed.
+    """
+
+    def __init__(self, client, clock=time.monotonic):
+        self.client, self.clock = client, clock
+        self.topic = f"harness-unit-started-{client.id}"
+        self.started: dict = {}  # task key -> (worker, driver time its start event arrived)
+        self.held: dict = {}  # (task key, worker) -> driver time the key was first seen there
+        self.beats: dict = {}  # worker -> (last heartbeat as the scheduler saw it, driver time it changed)
+        self.where: dict = {}  # task key -> workers it is queued, executing or held on (last check)
+        # before the first submission: the subscription and the tasks share one ordered stream
+        client.subscribe_topic(self.topic, self._on_start)
+
+    def _on_start(self, event) -> None:
+        # called on the client's event-loop thread; one dict assignment, atomic under the GIL
+        msg = event[1]
+        self.started[msg["key"]] = (msg["worker"], self.clock())
+
+    def check(self, futures: dict, finished: set) -> tuple[list, set]:
+        """``(overdue futures, workers to remove)`` among ``futures`` (future -> (label, job)).
+
+        ``finished`` holds the futures whose results could not be fetched yet; they are
+        held by the workers that have their results.
+        """
+        now = self.clock()
+        self._heartbeats(now)
+        where = {key: [w] for w, keys in self.client.processing().items() for key in keys}
+        if finished:
+            where.update(self.client.who_has(list(finished)))
+        self.where = where
+        overdue, stuck, busy, silent = [], set(), set(), set()
+        for fut, (_, job) in futures.items():
+            budget = unit_budget_s(job)
+            if not budget:
+                continue
+            limit = budget + WATCHDOG_MARGIN_S
+            for worker in where.get(fut.key, ()):
+                since = self.held.setdefault((fut.key, worker), now)
+                start = self.started.get(fut.key)
+                if fut not in finished and start and start[0] == worker:
+                    busy.add(worker)  # a unit executing there: its own clock decides
+                    if now - start[1] > limit and not fut.done():
+                        overdue.append(fut)
+                        stuck.add(worker)
+                elif now - max(since, self.beats.get(worker, (None, now))[1]) > limit:
+                    silent.add(worker)
+        self._forget(futures)
+        return overdue, stuck | (silent - busy)
+
+    def _heartbeats(self, now: float) -> None:
+        workers = self.client.scheduler_info(n_workers=-1)["workers"]
+        for worker, info in workers.items():
+            seen = info.get("last_seen")
+            if self.beats.get(worker, (object(),))[0] != seen:
+                self.beats[worker] = (seen, now)
+        for worker in set(self.beats) - set(workers):
+            del self.beats[worker]
+
+    def _forget(self, futures: dict) -> None:
+        live = {fut.key for fut in futures}
+        for key in [k for k in self.started if k not in live]:
+            self.started.pop(key, None)
+        for pair in [p for p in self.held if p[0] not in live]:
+            del self.held[pair]
+
+    def remove(self, worker: str) -> None:
+        """Make the scheduler forget ``worker`` and reschedule what was queued there."""
+        # expected: the units queued there are not to blame (no KilledWorker count for them)
+        self.client.sync(self.client.scheduler.unregister, address=worker,
+                         stimulus_id=f"harness-watchdog-{time.time()}", expected=True)
+        self.beats.pop(worker, None)
+
+    def close(self) -> None:
+        with contextlib.suppress(Exception):
+            self.client.unsubscribe_topic(self.topic)
+
+
 class DaskCluster:
     """Runs units on a Dask cluster: an existing one (``scheduler`` address) or a local one.
 
@@ -195,7 +307,8 @@ class DaskCluster:
     """
 
     POLL_S = 0.02  # how often the driver looks at its futures
-    CHECK_S = 1.0  # how often, while nothing finishes, it checks that the scheduler is there
+    CHECK_S = 1.0  # how often it checks that the scheduler is there and runs the watchdog
+    GATHER_S = 2.0  # first wait for a finished unit's result (doubled on each later try)
 
     def __init__(self, datasets: dict, jobs: int, scheduler: str | None, retries: int = 1):
         try:
@@ -236,6 +349,8 @@ class DaskCluster:
                 "or omit the address to use a local cluster."
             ) from None
         self.remote: dict = {}
+        self.watchdog = None
+        self.spared: set[int] = set()  # units lost to a worker the watchdog removed: a free retry
 
     def _data(self, label: str):
         """The scattered dataset, sent again when every copy was lost with its workers."""
@@ -246,32 +361,45 @@ class DaskCluster:
         return fut
 
     def _submit(self, label: str, job: UnitJob):
-        return self.client.submit(run_unit, self._data(label), job, pure=False)
+        return self.client.submit(_dask_unit, self._data(label), job, self.watchdog.topic, pure=False)
 
     def run(self, work):
         futures = {}
         tries: dict[int, int] = {}
+        self.watchdog = self._guard(_DaskWatchdog, self.client)
         for label, job in work:
             futures[self._guard(self._submit, label, job)] = (label, job)
-        idle_since = time.monotonic()
+        unclaimed: dict = {}  # finished future whose result its worker did not hand over -> (tries, retry at)
+        checked = time.monotonic()
         while futures:
+            if time.monotonic() - checked > self.CHECK_S:
+                # on a timer, not only while idle: a healthy worker finishing units must
+                # not hide a stopped one
+                self._check_scheduler()
+                yield from self._watch(futures, unclaimed)
+                checked = time.monotonic()
             # poll the futures' local state: distributed.wait raises as soon as one future is
             # cancelled (its data lost), which is exactly the case handled here
-            done = [f for f in futures if f.done()]
+            now = time.monotonic()
+            done = [f for f in futures if f.done() and unclaimed.get(f, (0, 0.0))[1] <= now]
             if not done:
                 time.sleep(self.POLL_S)
-                if time.monotonic() - idle_since > self.CHECK_S:
-                    self._check_scheduler()
-                    idle_since = time.monotonic()
                 continue
-            idle_since = time.monotonic()
             for fut in done:
+                rows = self._rows(fut, unclaimed)
+                if rows is _NOT_YET:
+                    continue
+                unclaimed.pop(fut, None)
                 label, job = futures.pop(fut)
-                rows = self._rows(fut)
                 if rows is not None:
                     yield job, rows
                     continue
                 self._check_scheduler()
+                if id(job) in self.spared:
+                    # lost because the watchdog removed a worker: not the cluster's failure
+                    self.spared.discard(id(job))
+                    futures[self._guard(self._submit, label, job)] = (label, job)
+                    continue
                 tries[id(job)] = tries.get(id(job), 0) + 1
                 if tries[id(job)] <= self.retries:
                     # _submit sends the data again if its copies went with the worker
@@ -290,12 +418,60 @@ class DaskCluster:
                     "to compute what is missing (raise execution.retries on an unstable cluster)."
                 )
 
-    def _rows(self, fut):
-        """The unit's rows, or None when the task or its result was lost with a worker."""
+    def _watch(self, futures: dict, unclaimed: dict):
+        """Record overdue units as ``timeout`` and take their workers, and silent ones, out."""
+        overdue, drop = self._guard(self.watchdog.check, futures, set(unclaimed))
+        fate = "killed it" if self.cluster is not None else "removed it from the cluster"
+        for fut in overdue:
+            label, job = futures.pop(fut)
+            unclaimed.pop(fut, None)
+            fut.cancel()  # before the worker goes: the scheduler must not run it again elsewhere
+            yield job, _overdue_rows(self.datasets, label, job, unit_budget_s(job), fate)
+        if drop:
+            self._spare(futures, drop)
+        for worker in drop:
+            self._guard(self.watchdog.remove, worker)
+            self._kill_local(worker)
+
+    def _spare(self, futures: dict, drop: set) -> None:
+        """Give a free retry to the units that removing ``drop`` may lose.
+
+        Those queued there are rescheduled, but the scheduler keeps one copy of a scattered
+        dataset (its memory manager drops the broadcast's extra replicas); when that copy
+        is on a removed worker, every pending unit of the dataset is lost and sent again.
+        """
+        holders = self._guard(self.client.who_has, list(self.remote.values()))
+        alone = {label for label, fut in self.remote.items() if set(holders.get(fut.key, ())) <= drop}
+        for fut, (label, job) in futures.items():
+            if label in alone or drop & set(self.watchdog.where.get(fut.key, ())):
+                self.spared.add(id(job))
+
+    def _kill_local(self, worker: str) -> None:
+        """SIGKILL a worker process of the local cluster (a stopped one never acts on SIGTERM).
+
+        Its nanny starts a fresh worker in its place; nothing waits for that. Workers of an
+        external cluster are not ours to kill: they are only removed from the scheduler.
+        """
+        if self.cluster is None:
+            return
+        for nanny in list(self.cluster.workers.values()):
+            pid = getattr(nanny, "pid", None)
+            if getattr(nanny, "worker_address", None) == worker and pid:
+                with contextlib.suppress(ProcessLookupError):
+                    os.kill(pid, signal.SIGKILL)
+
+    def _rows(self, fut, unclaimed: dict):
+        """The unit's rows; None when the task or its result was lost with a worker;
+        ``_NOT_YET`` when its worker did not hand the result over in time (it may be
+        stopped: the watchdog drops it and the scheduler computes the unit again)."""
         if fut.status != "finished":
             return None
+        attempts, _ = unclaimed.get(fut, (0, 0.0))
         try:
-            return fut.result(timeout=120)
+            return fut.result(timeout=min(self.GATHER_S * 2**attempts, 120))
+        except TimeoutError:
+            unclaimed[fut] = (attempts + 1, time.monotonic() + self.CHECK_S)
+            return _NOT_YET
         except Exception:  # noqa: BLE001 - the result's worker died before it was gathered
             self._check_scheduler()
             return None
@@ -326,6 +502,8 @@ class DaskCluster:
 
     def close(self) -> None:
         try:
+            if self.watchdog is not None:
+                self.watchdog.close()
             if self.client is not None:
                 self.client.close(timeout=10)
             if self.cluster is not None:

@@ -297,8 +297,9 @@ def cmd_list(args) -> int:
 
     print("encoder kinds:")
     for kind in encoders.KINDS:
-        print(f"  {kind:<10} parameters: {', '.join(encoders.params_of(kind)) or '-'}")
-        print(f"  {'':<10} {encoders.describe(kind)}")
+        print(f"  {kind:<10} {encoders.describe(kind)}")
+        for line in encoders.parameter_lines(kind) or ["(no parameters)"]:
+            print(f"  {'':<10}   {line}")
     print("model families:")
     for name, fam in sorted(models.FAMILIES.items()):
         caps = ", ".join(c for c, ok in (("sparse", fam.sparse), ("native categoricals", fam.native_categorical)) if ok)

@@ -13,9 +13,12 @@ from harness.errors import ConfigError
 def test_bench_table_on_tiny_data(seed):
     table = bench.run_encoder_bench(n_rows=2_000, cardinalities=(5, 300), repeats=1, seed=seed, wide=3)
     assert list(table.columns) == bench.RESULT_COLUMNS
-    assert set(table["kind"]) == {"integer", "onehot", "hashing", "frequency", "target"}
+    assert set(table["kind"]) == {"integer", "onehot", "hashing", "frequency", "target",
+                                  *bench.NEWER_KINDS}
     assert set(table["dtype"]) == {"object", "str", "category"}
-    assert len(table) == 3 * 3 * 5 and set(table["columns"]) == {1, 3}
+    assert len(table) == 3 * 3 * 9 and set(table["columns"]) == {1, 3}
+    newer = table["kind"].isin(bench.NEWER_KINDS)
+    assert (table.loc[newer, "reference"] == bench.TARGET_REFERENCE).all()
     # every output equals the reference's, on every dtype (scikit-learn, pandas)
     assert table["identical"].all(), table.to_string()
     np.testing.assert_allclose(table["over_floor"], table["ours_s"] / table["floor_s"])

@@ -65,3 +65,19 @@ def test_one_dataset_with_few_folds_warns_with_the_repeats_needed(tmp_path, caps
     err = " ".join(capsys.readouterr().err.split())
     assert code == 0
     assert "5 folds x 1 repeat(s) = 5 outer folds" in err and "`protocol.repeats = 2`" in err
+
+
+def test_dry_run_lists_only_cells_to_compute_and_counts_the_rest(tmp_path, capsys):
+    config = tmp_path / "many.toml"
+    config.write_text(
+        '[experiment]\nname = "many"\n[protocol]\nfolds = 10\n'
+        '[datasets.toy]\nsource = "synthetic"\nn_rows = 200\ncardinalities = [4]\ntask = "binary"\n'
+        '[encoders.a]\nkind = "integer"\n[encoders.b]\nkind = "frequency"\n'
+        '[encoders.c]\nkind = "onehot"\n[models.lin]\nfamily = "linear"\n'
+        '[models.knn]\nfamily = "knn"\n')
+    assert main(["run", str(config), "--dry-run", "--out", str(tmp_path / "o")]) == 0
+    out = capsys.readouterr().out.splitlines()
+    todo = [line for line in out if line.startswith("  todo ")]
+    assert "60 cells; 60 to compute" in out[0]
+    assert len(todo) == 40 and out[-1] == "  ... and 20 more to compute (finished cells are not listed)"
+    assert not any(line.startswith("  done ") for line in out)

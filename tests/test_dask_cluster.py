@@ -5,6 +5,9 @@ that the test starts on 127.0.0.1 and stops itself (by pid), with bounded waits.
   computed (resubmitted, the data sent again), no cell is recorded as failed, exit 0.
 - The scheduler lost mid-run: one message, a non-zero exit, nothing recorded as failed;
   a plain rerun completes.
+- One worker stopped (SIGSTOP) mid-run: the watchdog records the unit it was executing
+  as `timeout`, removes the worker from the scheduler, and the units queued there run on
+  the other worker; the run ends, exit 0.
 """
 
 from __future__ import annotations
@@ -151,3 +154,38 @@ def test_a_lost_scheduler_stops_the_run_and_a_plain_rerun_completes(tmp_path, cl
     assert rerun.returncode == 0, rerun.stderr
     assert f"72 cells ({72 - kept} computed, {kept} reused)" in rerun.stdout
     assert (results_by_cell(out)["status"] == "ok").all()
+
+
+def test_a_stopped_worker_is_timed_out_and_removed_and_the_run_ends(tmp_path, cluster):
+    cluster.scheduler()
+    stopped = cluster.worker("w1")
+    cluster.worker("w2")
+    cluster.wait_workers(2)
+    config = tmp_path / "watched.toml"
+    # no retries: a unit lost because the watchdog removed a worker is not the cluster's
+    # failure and must not need one
+    config.write_text(SMALL.read_text() + "\n[execution]\ncell_timeout_s = 2\nretries = 0\n")
+    out = tmp_path / "run"
+    proc = start("run", config, "--out", out, "--quiet", "--backend", "dask", "--scheduler", cluster.address)
+    try:
+        assert wait_for_rows(out, 1, proc) > 0
+        os.kill(stopped.pid, signal.SIGSTOP)
+        sent = time.monotonic()
+        stdout, stderr = proc.communicate(timeout=120)
+        took = time.monotonic() - sent
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+        with contextlib.suppress(ProcessLookupError):
+            os.kill(stopped.pid, signal.SIGCONT)  # cluster.stop() kills it by pid
+    assert proc.returncode == 0, stderr
+    print(f"\nstopped dask worker: run ended {took:.1f} s after SIGSTOP; {stdout.splitlines()[0]}")
+    df = results_by_cell(out)
+    assert len(df) == 72 and df.index.is_unique and integrity(out) == "ok"
+    timed_out = df[df["status"] == "timeout"]
+    # the unit it was executing (two models), unless the stop fell between two units:
+    # then its queued units are only run again elsewhere
+    assert len(timed_out) in (0, 2), timed_out[["encoder", "model", "repeat", "fold", "error"]]
+    assert timed_out[["encoder", "repeat", "fold"]].drop_duplicates().shape[0] <= 1
+    assert timed_out["error"].str.endswith("the watchdog removed it from the cluster").all()
+    assert (df.loc[df["status"] != "timeout", "status"] == "ok").all(), df["error"].unique()

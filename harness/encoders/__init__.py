@@ -54,6 +54,7 @@ __all__ = [
     "factorised",
     "declaration",
     "describe",
+    "parameter_lines",
     "params_of",
     "CardinalitySplit",
     "ContrastCodes",
@@ -123,6 +124,18 @@ def declaration(kind: str, params: dict) -> Declaration:
     """The declarations of ``kind`` under ``params`` (defaults filled from the class)."""
     cls = _cls(kind)
     return Declaration(bool(cls.uses_target), bool(cls.is_leaky(params)), cls.cited(params))
+
+
+def parameter_lines(kind: str) -> list[str]:
+    """One line per parameter of ``kind``: name, default and the values its rules allow."""
+    cls = _cls(kind)
+    defaults = cls().get_params(deep=False)
+    lines = []
+    for name in sorted(defaults):
+        rules = cls.param_rules.get(name, ())
+        allowed = " or ".join(rule.describe() for rule in rules) or "any value"
+        lines.append(f"{name} = {defaults[name]!r}: {allowed}")
+    return lines
 
 
 def describe(kind: str) -> str:

@@ -19,33 +19,27 @@ sufficient statistics of the other folds' rows, so each fold gets its own model.
 
 from __future__ import annotations
 
-from numbers import Integral
-
 import numpy as np
 from scipy.optimize import minimize, minimize_scalar
 from scipy.special import expit
-from sklearn.model_selection import KFold
 from sklearn.utils import check_random_state
 from sklearn.utils.validation import (
     _check_feature_names_in,
-    check_array,
     check_consistent_length,
     check_is_fitted,
     column_or_1d,
 )
 
 from harness.encoders import _crossfit
-from harness.encoders._base import MISSING, CategoricalEncoder
+from harness.encoders._base import CategoricalEncoder
 from harness.encoders._rules import Interval, Nothing, Options, Seed, Splitter
-from harness.encoders._target import _group_codes, _target_kind
-from harness.errors import EncoderInputError
+from harness.encoders._supervised import TARGET_TYPES, _SupervisedLevels
 
 __all__ = ["RandomInterceptCodes", "reml_one_way", "laplace_loglik", "fit_logistic"]
 
 # leave-one-out and ordered schemes need one model per row; not offered
 CROSSFITS = ("none", "kfold", "holdout")
 MISSING_POLICIES = ("category", "prior")
-TARGET_TYPES = ("auto", "binary", "multiclass", "continuous")
 # search range of log(tau^2/sigma^2): e^-30 is no level effect at any realistic count,
 # e^15 is no shrinkage at all; the REML optimum may sit on either end
 LOG_RATIO_BOUNDS = (-30.0, 15.0)
@@ -256,7 +250,7 @@ def fit_logistic(n, s, start=None):
 
 
 # --- the encoder -------------------------------------------------------------------------
-class RandomInterceptCodes(CategoricalEncoder):
+class RandomInterceptCodes(_SupervisedLevels, CategoricalEncoder):
     """GLMM encoding: each level becomes its fitted random intercept ``mu + u_c``.
 
     Parameters
@@ -267,7 +261,7 @@ class RandomInterceptCodes(CategoricalEncoder):
         inner folds, one model per fold; ``holdout`` a random ``holdout_fraction`` of rows
         encodes the rest and the rest encodes it. The folds are those of
         ``TargetStatistics`` (``_crossfit``), group-aware when ``groups`` is given.
-    cv : int or splitter, default=5
+    cv : int in [2, 1000] or splitter, default=5
         Inner folds for ``"kfold"``: an integer deals a random permutation (seeded by
         ``random_state``) into ``cv`` folds, stratified for a class target; a splitter is
         used as is.
@@ -328,7 +322,7 @@ class RandomInterceptCodes(CategoricalEncoder):
     references = ("pargent2022",)
     param_rules = {
         "crossfit": (Options(*CROSSFITS),),
-        "cv": (Interval("int", 2, None), Splitter()),
+        "cv": (Interval("int", 2, 1000), Splitter()),
         "random_state": (Nothing(), Interval("int", 0, 2**32 - 1), Seed()),
         "holdout_fraction": (Interval("real", 0, 1, closed="neither"),),
         "missing": (Options(*MISSING_POLICIES),),
@@ -381,7 +375,7 @@ class RandomInterceptCodes(CategoricalEncoder):
             Differs from ``fit(X, y).transform(X)`` except under ``crossfit="none"``.
         """
         frame, y, Y, classes, codes = self._prepare(X, y)
-        groups = self._own_errors(_group_codes, groups, len(y))
+        groups = self._groups(groups, len(y))
         folds = self._folds(frame, y, classes, check_random_state(self.random_state), groups)
         out = []
         for j, c in enumerate(codes):
@@ -493,56 +487,3 @@ class RandomInterceptCodes(CategoricalEncoder):
             fold_cells = _crossfit.LevelStats(cells.n[part], cells.total[part], sq)
             tables.append(self._fit_cells(fold_cells, full)[0])
         return np.concatenate(tables)
-
-    def _folds(self, frame, y, classes, rng, groups=None):
-        """Fold of each row and number of folds (``None`` without cross-fitting).
-
-        The same dispatch to ``_crossfit``'s fold builders as ``TargetStatistics``.
-        """
-        if self.crossfit == "holdout" and groups is not None:
-            return _crossfit.group_holdout(groups, self.holdout_fraction, rng), 2
-        if self.crossfit == "holdout":
-            return _crossfit.holdout_folds(len(y), self.holdout_fraction, rng), 2
-        if self.crossfit == "none":
-            return None
-        if isinstance(self.cv, Integral) and groups is not None:
-            return _crossfit.group_folds(groups, int(self.cv), rng)
-        if isinstance(self.cv, Integral):
-            return _crossfit.random_folds(len(y), int(self.cv), rng, classes), int(self.cv)
-        if type(self.cv) is KFold and groups is None:
-            return _crossfit.kfold_folds(len(y), self.cv), self.cv.n_splits
-        return _crossfit.folds_from_splits(self.cv.split(frame, y, groups), len(y))
-
-    # --- target and codes ---------------------------------------------------------------
-    def _target_matrix(self, y):
-        """``y`` as float columns (one, or one indicator per class), and class codes."""
-        kind, self.classes_, inverse = self._own_errors(_target_kind, y, self.target_type)
-        self.target_type_ = kind
-        if kind == "continuous":
-            return check_array(y, ensure_2d=False, dtype=np.float64, input_name="y")[:, None], None
-        if kind == "binary" and len(self.classes_) > 2:
-            raise EncoderInputError(
-                f"{type(self).__name__}(target_type='binary') got {len(self.classes_)} classes; "
-                "a binary target has at most 2. Use target_type='multiclass' or 'auto'."
-            )
-        if kind == "binary":
-            return (inverse == 1).astype(np.float64)[:, None], inverse
-        Y = np.zeros((len(y), len(self.classes_)))
-        Y[np.arange(len(y)), inverse] = 1.0
-        return Y, inverse
-
-    def _own_errors(self, helper, *args):
-        """Call a helper shared with ``TargetStatistics``; its errors name this class."""
-        try:
-            return helper(*args)
-        except EncoderInputError as err:
-            raise EncoderInputError(str(err).replace("TargetStatistics", type(self).__name__)) from None
-
-    def _level_codes(self, codes: np.ndarray, j: int) -> np.ndarray:
-        """Missing becomes an extra last level under ``missing="category"``, else -1."""
-        if self.missing == "category":
-            return np.where(codes == MISSING, len(self.levels_[j]), codes)
-        return np.where(codes == MISSING, -1, codes)
-
-    def _n_levels(self, j: int) -> int:
-        return len(self.levels_[j]) + (self.missing == "category")

@@ -34,12 +34,12 @@ class NgramSimilarity(CategoricalEncoder):
 
     Parameters
     ----------
-    n_prototypes : int, default=30
+    n_prototypes : int in [1, 10000], default=30
         Number of prototype levels per column: the most frequent training levels, ties
         broken by lexical order of the levels. A column with fewer levels has fewer
         prototypes. (No "all levels" setting: the output is dense, one column per
         prototype, and the level table is levels x prototypes.)
-    ngram : int, default=3
+    ngram : int in [1, 100], default=3
         Length ``n`` of the character n-grams (3 in the paper).
     pad : bool, default=False
         Compare ``" " + text + " "`` instead of ``text``: the first and last characters
@@ -96,8 +96,9 @@ class NgramSimilarity(CategoricalEncoder):
 
     references = ("cerda2018",)
     param_rules = {
-        "n_prototypes": (Interval("int", 1, None),),
-        "ngram": (Interval("int", 1, None),),
+        # the output is dense: 10,000 prototypes are already 80 kB per row
+        "n_prototypes": (Interval("int", 1, 10_000),),
+        "ngram": (Interval("int", 1, 100),),
         "pad": (Flag(),),
         "missing": (Options(*MISSING_RULES),),
     }

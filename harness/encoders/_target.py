@@ -12,25 +12,20 @@ full-data tables and every cross-fitting scheme.
 
 from __future__ import annotations
 
-from numbers import Integral
-
 import numpy as np
-import pandas as pd
 from scipy.special import expit, logit
-from sklearn.model_selection import KFold
 from sklearn.utils import check_random_state
-from sklearn.utils.multiclass import type_of_target
 from sklearn.utils.validation import (
     _check_feature_names_in,
-    check_array,
     check_consistent_length,
     check_is_fitted,
     column_or_1d,
 )
 
 from harness.encoders import _crossfit
-from harness.encoders._base import MISSING, CategoricalEncoder
+from harness.encoders._base import CategoricalEncoder
 from harness.encoders._rules import Interval, Nothing, Options, Seed, Splitter
+from harness.encoders._supervised import TARGET_TYPES, _SupervisedLevels
 from harness.errors import EncoderInputError
 
 __all__ = ["TargetStatistics", "smooth", "weight_of_evidence"]
@@ -39,7 +34,6 @@ SMOOTHINGS = ("none", "m-estimate", "sigmoid", "empirical-bayes")
 CROSSFITS = ("none", "kfold", "loo", "ordered", "holdout")
 STATISTICS = ("mean", "woe")
 MISSING_POLICIES = ("prior", "category")
-TARGET_TYPES = ("auto", "binary", "multiclass", "continuous")
 ZERO_CELL = 0.5  # Siddiqi (2006): a zero count of goods or bads is replaced by 0.5
 
 
@@ -128,81 +122,7 @@ def _half_count_bound(rate, n):
     return np.minimum(np.maximum(rate, low), high)
 
 
-def _target_kind(y, requested: str):
-    """Target type, and for a class target its sorted classes and each row's class code.
-
-    ``auto`` runs ``type_of_target`` on the distinct values found by one hash pass
-    (``pd.factorize``) instead of sorting ``y``: for a one-dimensional target the
-    answer depends only on the dtype and the set of distinct values.
-
-    Raises
-    ------
-    EncoderInputError
-        If the target is not binary, multiclass or continuous, or has missing labels.
-    """
-    if requested == "continuous" or (
-        requested == "auto"
-        and y.dtype.kind == "f"
-        and np.all(np.isfinite(y))
-        and np.any(y != np.trunc(y))
-    ):
-        return "continuous", None, None
-    codes, uniques = _factorize(y)
-    kind = requested
-    if kind == "auto":
-        # NaN makes type_of_target raise its own "Input y contains NaN" error
-        kind = type_of_target(y if len(codes) and codes.min() < 0 else uniques, input_name="y")
-    if kind not in TARGET_TYPES[1:]:
-        raise EncoderInputError(
-            f"TargetStatistics: Unknown label type: the target type was inferred as {kind!r}; "
-            "supported: binary, multiclass, continuous. Pass numeric or string labels, or "
-            "set target_type explicitly."
-        )
-    if kind == "continuous":
-        return kind, None, None
-    if len(codes) and codes.min() < 0:
-        raise EncoderInputError(
-            f"TargetStatistics: the target has {int(np.sum(codes < 0))} missing label(s); "
-            "drop those rows or impute the target first."
-        )
-    order = np.argsort(uniques, kind="stable")
-    rank = np.empty(len(order), dtype=np.int64)
-    rank[order] = np.arange(len(order))
-    return kind, uniques[order], rank[codes]
-
-
-def _factorize(y):
-    """Codes and distinct values of ``y``; small non-negative integers skip the hash table."""
-    if y.dtype.kind in "iub" and len(y) and y.min() >= 0 and y.max() < 2**16:
-        y64 = y.astype(np.int64, copy=False)
-        present = np.bincount(y64) > 0
-        uniques = np.flatnonzero(present).astype(y.dtype)
-        if present.all():  # labels 0..k-1 (the usual 0/1) are their own codes
-            return y64, uniques
-        return (np.cumsum(present) - 1)[y64], uniques
-    codes, uniques = pd.factorize(y, use_na_sentinel=True)
-    return codes, np.asarray(uniques)
-
-
-def _group_codes(groups, n_rows: int):
-    """Group labels as codes ``0..G-1`` (``None`` stays ``None``).
-
-    Raises
-    ------
-    EncoderInputError
-        If the labels do not match the rows or one is missing.
-    """
-    if groups is None:
-        return None
-    codes, _ = pd.factorize(np.asarray(groups, dtype=object).reshape(-1), use_na_sentinel=True)
-    if len(codes) != n_rows:
-        raise EncoderInputError(f"TargetStatistics: `groups` has {len(codes)} labels for {n_rows} rows; they must match.")
-    if len(codes) and codes.min() < 0:
-        raise EncoderInputError("TargetStatistics: `groups` has missing labels; every row needs a group.")
-    return codes.astype(np.int64)
-
-
-class TargetStatistics(CategoricalEncoder):
+class TargetStatistics(_SupervisedLevels, CategoricalEncoder):
     """Target encoding: each level becomes a smoothed statistic of the target.
 
     Parameters
@@ -311,6 +231,8 @@ class TargetStatistics(CategoricalEncoder):
         "target_type": (Options(*TARGET_TYPES),),
         "prior": (Nothing(), Interval("real", None, None)),
     }
+    # crossfit values that build no folds: in-sample, leave-one-out and ordered cells
+    _unfolded = ("none", "loo", "ordered")
 
     def __init__(
         self,
@@ -358,7 +280,7 @@ class TargetStatistics(CategoricalEncoder):
         """
         _, _, Y, _, codes = self._prepare(X, y)
         for j, c in enumerate(codes):
-            self._store_table(j, _crossfit.in_sample(c, Y, self._n_stat_levels(j), self._spread))
+            self._store_table(j, _crossfit.in_sample(c, Y, self._n_levels(j), self._spread))
         return self
 
     def fit_transform(self, X, y, groups=None):
@@ -400,7 +322,7 @@ class TargetStatistics(CategoricalEncoder):
         frame = self._frame(X, reset=False)
         out = []
         for j, codes in enumerate(self._codes(frame)):
-            codes = self._stat_codes(codes, j)
+            codes = self._level_codes(codes, j)
             table = np.concatenate([self.encodings_[j], self.default_[None, :]])
             out.append(np.take(table, np.where(codes >= 0, codes, len(table) - 1), axis=0))
         return np.concatenate(out, axis=1)
@@ -430,7 +352,7 @@ class TargetStatistics(CategoricalEncoder):
         y = column_or_1d(np.asarray(y), warn=True)
         check_consistent_length(frame, y)
         Y, classes = self._target_matrix(y)
-        codes = [self._stat_codes(c, j) for j, c in enumerate(self._fit_levels(frame))]
+        codes = [self._level_codes(c, j) for j, c in enumerate(self._fit_levels(frame))]
         self._n_fit = Y.shape[0]
         self.prior_ = Y.mean(axis=0)
         if self.prior is not None:
@@ -441,7 +363,7 @@ class TargetStatistics(CategoricalEncoder):
     def _store_table(self, j: int, full) -> None:
         """Encode column ``j``'s in-sample cells into its table for ``transform``."""
         table = self._encode(full)
-        n_levels = self._n_stat_levels(j)
+        n_levels = self._n_levels(j)
         self.encodings_[j] = table[:n_levels]
         # the empty last cell: what an unseen (or missing, under "prior") value gets
         self.default_ = table[n_levels]
@@ -450,14 +372,14 @@ class TargetStatistics(CategoricalEncoder):
         """``fit_transform``; ``permutation`` imposes the order of ``"ordered"`` (tests):
         of the rows, or of the groups when ``groups`` is given."""
         frame, y, Y, classes, codes = self._prepare(X, y)
-        groups = _group_codes(groups, len(y))
+        groups = self._groups(groups, len(y))
         rng = check_random_state(self.random_state)
         folds = self._folds(frame, y, classes, rng, groups)
         if self.crossfit == "ordered" and permutation is None:
             permutation = rng.permutation(Y.shape[0] if groups is None else int(groups.max()) + 1)
         out = []
         for j, c in enumerate(codes):
-            cells, full = self._cells(c, Y, self._n_stat_levels(j), folds, permutation, groups)
+            cells, full = self._cells(c, Y, self._n_levels(j), folds, permutation, groups)
             self._store_table(j, full)
             out.append(np.take(self._encode(cells), cells.index, axis=0))
         out = np.concatenate(out, axis=1)
@@ -484,22 +406,6 @@ class TargetStatistics(CategoricalEncoder):
             return _crossfit.ordered(codes, Y, n_levels, permutation, spread, groups), full
         return full, full
 
-    def _folds(self, frame, y, classes, rng, groups=None):
-        """Fold of each row and number of folds for ``kfold``/``holdout`` (all columns)."""
-        if self.crossfit == "holdout" and groups is not None:
-            return _crossfit.group_holdout(groups, self.holdout_fraction, rng), 2
-        if self.crossfit == "holdout":
-            return _crossfit.holdout_folds(len(y), self.holdout_fraction, rng), 2
-        if self.crossfit != "kfold":
-            return None
-        if isinstance(self.cv, Integral) and groups is not None:
-            return _crossfit.group_folds(groups, int(self.cv), rng)
-        if isinstance(self.cv, Integral):
-            return _crossfit.random_folds(len(y), int(self.cv), rng, classes), int(self.cv)
-        if type(self.cv) is KFold and groups is None:
-            return _crossfit.kfold_folds(len(y), self.cv), self.cv.n_splits
-        return _crossfit.folds_from_splits(self.cv.split(frame, y, groups), len(y))
-
     def _encode(self, cells):
         """Smooth each cell, then apply the statistic; returns (n_cells, n_targets)."""
         prior = cells.prior if self.prior is None else self.prior_[None, :]
@@ -518,39 +424,11 @@ class TargetStatistics(CategoricalEncoder):
             return weight_of_evidence(enc, prior, cells.n, self._n_fit)
         return enc
 
-    # --- target and codes -----------------------------------------------------------------
-    def _target_matrix(self, y):
-        """``y`` as float columns, and class codes (``None`` for a continuous target).
-
-        One column for a binary (positive class ``classes_[1]``) or continuous target,
-        one indicator column per sorted class for a multiclass target.
-        """
-        kind, self.classes_, inverse = _target_kind(y, self.target_type)
-        self.target_type_ = kind
+    # --- target ----------------------------------------------------------------------------
+    def _check_target_kind(self, kind: str) -> None:
+        """Weight of evidence is defined for a binary target only."""
         if self.statistic == "woe" and kind != "binary":
             raise EncoderInputError(
-                f"TargetStatistics(statistic='woe') needs a binary target; got a {kind} "
+                f"{type(self).__name__}(statistic='woe') needs a binary target; got a {kind} "
                 "target. Use statistic='mean' for it."
             )
-        if kind == "continuous":
-            y = check_array(y, ensure_2d=False, dtype=np.float64, input_name="y")
-            return y[:, None], None
-        if kind == "binary" and len(self.classes_) > 2:
-            raise EncoderInputError(
-                f"TargetStatistics(target_type='binary') got {len(self.classes_)} classes; "
-                "a binary target has at most 2. Use target_type='multiclass' or 'auto'."
-            )
-        if kind == "binary":
-            return (inverse == 1).astype(np.float64)[:, None], inverse
-        Y = np.zeros((len(y), len(self.classes_)))
-        Y[np.arange(len(y)), inverse] = 1.0
-        return Y, inverse
-
-    def _stat_codes(self, codes: np.ndarray, j: int) -> np.ndarray:
-        """Missing becomes an extra last level under ``missing="category"``, else -1."""
-        if self.missing == "category":
-            return np.where(codes == MISSING, len(self.levels_[j]), codes)
-        return np.where(codes == MISSING, -1, codes)
-
-    def _n_stat_levels(self, j: int) -> int:
-        return len(self.levels_[j]) + (self.missing == "category")

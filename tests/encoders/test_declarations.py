@@ -162,3 +162,6 @@ def test_harness_list_shows_the_declarations(capsys):
     out = capsys.readouterr().out
     assert "uses the target; leaky when crossfit in none, loo" in out
     assert out.count("target-free") == sum(not ENCODERS[k].uses_target for k in KINDS)
+    # each parameter with its default and the values its declared rules allow
+    assert "width = 256: an integer in [1, 16777216]" in out
+    assert "scheme = 'sum': one of 'sum', 'helmert'" in out

@@ -184,9 +184,10 @@ def test_several_columns_and_category_dtype(rng):
 
 
 @pytest.mark.parametrize(("name", "value", "wording"), [
-    ("n_prototypes", 0, "an integer >= 1; got 0"),
-    ("n_prototypes", None, "an integer >= 1; got None"),
-    ("ngram", 2.5, "an integer >= 1; got 2.5"),
+    ("n_prototypes", 0, "an integer in [1, 10000]; got 0"),
+    ("n_prototypes", None, "an integer in [1, 10000]; got None"),
+    ("n_prototypes", 10_001, "an integer in [1, 10000]; got 10001"),
+    ("ngram", 2.5, "an integer in [1, 100]; got 2.5"),
     ("pad", "yes", "true or false; got 'yes'"),
     ("missing", "drop", "one of 'category', 'zeros'; got 'drop'"),
 ])

@@ -1,0 +1,71 @@
+"""A results directory that ships its exported table but no store (the committed sample):
+``status``, ``export`` and ``report`` read the table, and a run starts its store from it,
+so only cells the table lacks are computed."""
+
+from __future__ import annotations
+
+import pandas as pd
+import pytest
+from _runtools import RESULT_COLUMNS, run
+
+TINY = (
+    '[experiment]\nname = "tiny"\n[protocol]\nfolds = 2\n'
+    '[datasets.toy]\nsource = "synthetic"\nn_rows = 120\ncardinalities = [4, 9]\ntask = "binary"\n'
+    '[encoders.codes]\nkind = "integer"\n[encoders.freq]\nkind = "frequency"\n'
+    '[models.lin]\nfamily = "linear"\n'
+)
+
+
+def _shipped(tmp_path):
+    """A finished run with its store removed: what a repository commits."""
+    config = tmp_path / "tiny.toml"
+    config.write_text(TINY)
+    out = tmp_path / "sample"
+    assert run("run", config, "--out", out, "--quiet").returncode == 0
+    for p in out.glob("results.sqlite*"):
+        p.unlink()
+    (out / "results.csv").unlink()
+    return config, out
+
+
+@pytest.mark.slow
+def test_status_export_and_report_read_the_committed_table(tmp_path):
+    _, out = _shipped(tmp_path)
+    status = run("status", out)
+    assert status.returncode == 0, status.stderr
+    assert "4 finished, 0 missing" in status.stdout
+    assert "no results store" in status.stderr and "results.parquet" in status.stderr
+    exported = run("export", out, "--to", tmp_path / "copy.csv")
+    assert exported.returncode == 0, exported.stderr
+    assert len(pd.read_csv(tmp_path / "copy.csv")) == 4
+    report = run("report", out, "--out", tmp_path / "rep")
+    assert report.returncode == 0, report.stderr
+    assert (tmp_path / "rep" / "report" / "report.md").is_file()
+    assert not list(out.glob("results.sqlite*"))  # readers create no store
+
+
+@pytest.mark.slow
+def test_a_run_starts_its_store_from_the_table_and_computes_only_new_cells(tmp_path):
+    config, out = _shipped(tmp_path)
+    before = pd.read_parquet(out / "results.parquet").set_index("cell_id").sort_index()
+    dry = run("run", config, "--out", out, "--dry-run")
+    assert dry.returncode == 0 and "0 to compute, 4 already" in dry.stdout, dry.stdout
+    config.write_text(TINY + '[encoders.hot]\nkind = "onehot"\n')
+    dry = run("run", config, "--out", out, "--dry-run")
+    assert "2 to compute, 4 already" in dry.stdout, dry.stdout
+    done = run("run", config, "--out", out, "--quiet")
+    assert done.returncode == 0, done.stderr
+    after = pd.read_parquet(out / "results.parquet").set_index("cell_id").sort_index()
+    assert len(after) == 6 and set(after["encoder"]) == {"codes", "freq", "hot"}
+    kept = after.loc[before.index, RESULT_COLUMNS]
+    pd.testing.assert_frame_equal(kept, before[RESULT_COLUMNS])  # the table's rows, unchanged
+
+
+def test_a_damaged_committed_table_is_a_store_problem_with_the_next_step(tmp_path):
+    out = tmp_path / "sample"
+    out.mkdir()
+    (out / "results.parquet").write_bytes(b"PAR1 not really")
+    status = run("status", out)
+    err = " ".join(status.stderr.split())
+    assert status.returncode == 3 and "Traceback" not in err
+    assert "results.parquet cannot be read" in err and "restore it" in err
