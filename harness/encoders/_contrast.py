@@ -21,6 +21,8 @@ SCHEMES = ("sum", "helmert")
 UNSEEN_RULES = ("zeros", "error")
 MISSING_RULES = ("category", "zeros")
 MISSING_NAME = "<missing>"
+#: a dense contrast matrix or dense output larger than this is refused with the next step
+MAX_DENSE_BYTES = 4 * 2**30
 
 
 def contrast_matrix(scheme: str, n_levels: int) -> np.ndarray:
@@ -164,8 +166,7 @@ class ContrastCodes(LevelCodeEncoder):
             n_levels = len(levels)
             has_missing = bool(n_missing) and self.missing == "category"
             k = n_levels + has_missing
-            matrix = contrast_matrix(self.scheme, k)
-            self.matrices_.append(np.vstack([matrix, np.zeros((1, matrix.shape[1]))]))
+            self.matrices_.append(self._matrix_with_zeros_row(k, len(self.matrices_)))
             # codes >= 0 index the levels; MISSING (-2) and UNSEEN (-1) read the two
             # trailing entries: the missing level's row (the last level) or the zeros row
             zeros_row = k
@@ -174,6 +175,32 @@ class ContrastCodes(LevelCodeEncoder):
         self.widths_ = np.asarray([m.shape[1] for m in self.matrices_], dtype=np.int64)
         return codes
 
+    def _matrix_with_zeros_row(self, k: int, j: int):
+        """The column's contrast matrix and a trailing zeros row (unseen values).
+
+        Sparse sum coding is built sparse (2k non-zeros), so a column of many levels
+        costs memory in proportion to its levels; a dense matrix beyond
+        ``MAX_DENSE_BYTES`` is refused with the next step instead of exhausting memory.
+        """
+        width = max(k - 1, 0)
+        if self.sparse and self.scheme == "sum" and k >= 2:
+            body = sp.vstack([sp.eye(width, format="csr"), sp.csr_matrix(-np.ones((1, width)))])
+            return sp.vstack([body, sp.csr_matrix((1, width))], format="csr")
+        self._refuse_dense(j, k, (k + 1) * width * 8, "its contrast matrix")
+        matrix = contrast_matrix(self.scheme, k)
+        return np.vstack([matrix, np.zeros((1, matrix.shape[1]))])
+
+    def _refuse_dense(self, j: int, k: int, n_bytes: float, what: str) -> None:
+        if n_bytes <= MAX_DENSE_BYTES:
+            return
+        name = self._input_names()[j] if hasattr(self, "n_features_in_") else f"#{j}"
+        raise EncoderInputError(
+            f"ContrastCodes(scheme={self.scheme!r}, sparse={self.sparse}): column '{name}' has "
+            f"{k} levels, so {what} would take {n_bytes / 2**30:.1f} GiB as dense float64 "
+            f"(limit {MAX_DENSE_BYTES / 2**30:g} GiB). Use scheme='sum' with sparse=true, "
+            "or onehot with max_levels, or target statistics for a column this wide."
+        )
+
     # --- transform helpers -----------------------------------------------------------------
     def _to_output(self, codes: list[np.ndarray]):
         rows = [lookup[col] for lookup, col in zip(self.lookups_, codes)]
@@ -181,6 +208,8 @@ class ContrastCodes(LevelCodeEncoder):
             # CSR row indexing gathers whole rows in compiled code: no per-row Python
             blocks = [sp.csr_matrix(m)[r] for m, r in zip(self.matrices_, rows)]
             return blocks[0] if len(blocks) == 1 else sp.hstack(blocks, format="csr")
+        for j, width in enumerate(self.widths_):  # a dense block beyond the limit: refuse
+            self._refuse_dense(j, int(width) + 1, len(rows[0]) * float(width) * 8, "the output")
         if len(rows) == 1:
             return np.take(self.matrices_[0], rows[0], axis=0)
         out = np.empty((len(rows[0]), int(self.widths_.sum())), dtype=np.float64)

@@ -157,3 +157,18 @@ def test_sparse_equals_dense(scheme, rng):
 def test_bad_parameter(param, value, match):
     with pytest.raises(ParameterError, match=match):
         build("contrast", **{param: value}).fit(pd.DataFrame({"x": ["a", "b"]}))
+
+
+def test_sparse_sum_coding_of_a_very_wide_column_is_built_sparse():
+    # 70,000 levels: a dense contrast matrix would take 36 GiB
+    X = pd.DataFrame({"id": np.arange(140_000) % 70_000})
+    out = build("contrast", scheme="sum", sparse=True).fit_transform(X)
+    assert out.shape == (140_000, 69_999) and out.nnz == 2 * 69_999 + 2 * 69_999
+    np.testing.assert_array_equal(out[:3].toarray()[:, :3], np.eye(3))
+
+
+def test_a_dense_contrast_too_large_for_memory_is_refused_with_the_next_step():
+    X = pd.DataFrame({"id": np.arange(40_000)})
+    with pytest.raises(EncoderInputError, match=r"column 'id' has 40000 levels, so its contrast "
+                       r"matrix would take 11\.9 GiB .*Use scheme='sum' with sparse=true"):
+        build("contrast", scheme="helmert").fit(X)
