@@ -64,3 +64,12 @@ def test_main_writes_csv(tmp_path, capsys):
 def test_main_rejects_bad_options(argv, match):
     with pytest.raises(ConfigError, match=match):
         bench.main(argv)
+
+
+def test_newer_kinds_are_held_to_their_target_at_one_column_of_1000_levels_only():
+    # within 3x of our k-fold target statistics at 1,000 levels; other shapes shown only
+    table = pd.DataFrame({"kind": ["glmm"] * 3, "dtype": ["str"] * 3, "columns": [1, 1, 10],
+                          "cardinality": [1_000, 100_000, 1_000], "ratio": [0.5, 0.1, 0.2],
+                          "over_floor": [np.nan] * 3})
+    checked = bench.check_targets(table)
+    assert len(checked) == 1 and checked.loc[0, "worst"] == 0.5 and checked.loc[0, "met"]
