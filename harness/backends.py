@@ -214,9 +214,10 @@ class _DaskWatchdog:
     - *overdue*: a unit started on a worker (its task's event) and has not returned for
       that long; the worker is stopped, or stuck in native code where no limit reaches.
       The unit is recorded ``timeout`` and its worker removed.
-    - *silent*: a worker holds a unit that has not started there, or a finished unit's
-      result, and has sent the scheduler no heartbeat for that long (stopped between two
-      units). The worker is removed; the scheduler runs the unit again elsewhere.
+    - *silent*: a worker holds a unit that has not started there, a finished unit's
+      result, or the data a waiting unit needs, and has sent the scheduler no heartbeat
+      for that long (stopped between two units). The worker is removed; the unit runs
+      again elsewhere and nothing is recorded for it.
 
     A worker is removed through the scheduler (``remove_worker``): it forgets the worker
     at once and reschedules the tasks queued there, without waiting for the worker to
@@ -238,25 +239,29 @@ class _DaskWatchdog:
         msg = event[1]
         self.started[msg["key"]] = (msg["worker"], self.clock())
 
-    def check(self, futures: dict, finished: set) -> tuple[list, set]:
+    def check(self, futures: dict, finished: set, data: dict | None = None) -> tuple[list, set]:
         """``(overdue futures, workers to remove)`` among ``futures`` (future -> (label, job)).
 
-        ``finished`` holds the futures whose results could not be fetched yet; they are
-        held by the workers that have their results.
+        ``finished`` holds the futures whose results could not be fetched yet, held by
+        the workers that have their results; ``data`` maps a dataset label to its
+        scattered future: a unit waiting for its data is held by the workers that have it.
         """
         now = self.clock()
         self._heartbeats(now)
         where = {key: [w] for w, keys in self.client.processing().items() for key in keys}
         if finished:
-            where.update(self.client.who_has(list(finished)))
+            where.update(self.who_has(finished))
         self.where = where
+        holders = self.who_has((data or {}).values())
+        copies = {label: holders.get(fut.key, []) for label, fut in (data or {}).items()}
         overdue, stuck, busy, silent = [], set(), set(), set()
-        for fut, (_, job) in futures.items():
+        for fut, (label, job) in futures.items():
             budget = unit_budget_s(job)
             if not budget:
                 continue
             limit = budget + WATCHDOG_MARGIN_S
-            for worker in where.get(fut.key, ()):
+            places = [*where.get(fut.key, ()), *(() if fut in finished else copies.get(label, ()))]
+            for worker in dict.fromkeys(places):
                 since = self.held.setdefault((fut.key, worker), now)
                 start = self.started.get(fut.key)
                 if fut not in finished and start and start[0] == worker:
@@ -269,7 +274,13 @@ class _DaskWatchdog:
         self._forget(futures)
         return overdue, stuck | (silent - busy)
 
-    def _heartbeats(self, now: float) -> None:
+    def who_has(self, futures) -> dict:
+        """Task key -> workers holding its result (``Client.who_has`` refuses cancelled futures)."""
+        keys = [fut.key for fut in futures]
+        return self.client.sync(self.client.scheduler.who_has, keys=keys) if keys else {}
+
+    def _heartbeats(self, now: float) -> dict:
+        """The scheduler's workers; notes when each one's last heartbeat time changed."""
         workers = self.client.scheduler_info(n_workers=-1)["workers"]
         for worker, info in workers.items():
             seen = info.get("last_seen")
@@ -277,11 +288,29 @@ class _DaskWatchdog:
                 self.beats[worker] = (seen, now)
         for worker in set(self.beats) - set(workers):
             del self.beats[worker]
+        return workers
+
+    def live_workers(self) -> list[str]:
+        """Workers that have sent a heartbeat within ``WATCHDOG_MARGIN_S``.
+
+        Two tests, as a worker seen for the first time has no history here: its last
+        heartbeat is close to the newest one of any worker (both on the scheduler's
+        clock), and, once seen before, its heartbeat has changed since, by driver time.
+        A worker stopped within the margin still passes.
+        """
+        now = self.clock()
+        workers = self._heartbeats(now)
+        newest = max((info.get("last_seen") or 0.0 for info in workers.values()), default=0.0)
+        return [w for w, info in workers.items()
+                if newest - (info.get("last_seen") or 0.0) < WATCHDOG_MARGIN_S
+                and now - self.beats[w][1] < WATCHDOG_MARGIN_S]
 
     def _forget(self, futures: dict) -> None:
         live = {fut.key for fut in futures}
-        for key in [k for k in self.started if k not in live]:
-            self.started.pop(key, None)
+        # list(): one C-level copy; the event-loop thread may add a key meanwhile
+        for key in list(self.started):
+            if key not in live:
+                self.started.pop(key, None)
         for pair in [p for p in self.held if p[0] not in live]:
             del self.held[pair]
 
@@ -309,6 +338,8 @@ class DaskCluster:
     POLL_S = 0.02  # how often the driver looks at its futures
     CHECK_S = 1.0  # how often it checks that the scheduler is there and runs the watchdog
     GATHER_S = 2.0  # first wait for a finished unit's result (doubled on each later try)
+    SCATTER_S = 20.0  # first wait for a dataset to reach the workers (doubled on each later try)
+    NO_WORKER_S = 120.0  # how long units may wait for a live worker to take their data
 
     def __init__(self, datasets: dict, jobs: int, scheduler: str | None, retries: int = 1):
         try:
@@ -351,28 +382,67 @@ class DaskCluster:
         self.remote: dict = {}
         self.watchdog = None
         self.spared: set[int] = set()  # units lost to a worker the watchdog removed: a free retry
+        self.scatters: dict[str, int] = {}  # dataset label -> sends that timed out
 
     def _data(self, label: str):
-        """The scattered dataset, sent again when every copy was lost with its workers."""
+        """The scattered dataset, sent again when every copy was lost with its workers.
+
+        Sent only to workers alive by their heartbeats: a stopped worker would block the
+        transfer, and the driver with it. None while there is no such worker.
+        """
         fut = self.remote.get(label)
         if fut is None or fut.status != "finished":
-            fut = self.client.scatter(self.datasets[label], broadcast=True, hash=False)
+            live = self.watchdog.live_workers()
+            if not live:
+                return None
+            tries = self.scatters.get(label, 0)
+            try:
+                # Client.scatter has no time limit on the transfer itself; a worker stopped
+                # within the margin is excluded by the next try. One copy, not a broadcast:
+                # the scheduler's memory manager drops extra replicas anyway, and a replicate
+                # stuck on a stopped worker holds the scheduler's replica lock, blocking every
+                # later one
+                fut = self.client.sync(
+                    lambda: self.client.scatter(self.datasets[label], workers=live, hash=False,
+                                                asynchronous=True),
+                    callback_timeout=self.SCATTER_S * 2**tries,
+                )
+            except TimeoutError:
+                self.scatters[label] = tries + 1
+                return None
             self.remote[label] = fut
         return fut
 
-    def _submit(self, label: str, job: UnitJob):
-        return self.client.submit(_dask_unit, self._data(label), job, self.watchdog.topic, pure=False)
+    def _submit(self, pending: list, futures: dict) -> list:
+        """Submit the pending units; returns those whose data found no live worker."""
+        left = []
+        for label, job in pending:
+            data = self._guard(self._data, label)
+            if data is None:
+                left.append((label, job))
+                continue
+            fut = self._guard(self.client.submit, _dask_unit, data, job, self.watchdog.topic, pure=False)
+            futures[fut] = (label, job)
+        return left
 
     def run(self, work):
-        futures = {}
-        tries: dict[int, int] = {}
         self.watchdog = self._guard(_DaskWatchdog, self.client)
-        for label, job in work:
-            futures[self._guard(self._submit, label, job)] = (label, job)
+        futures: dict = {}  # future -> (label, job)
+        pending = list(work)  # units to submit, or to submit again
+        tries: dict[int, int] = {}
         unclaimed: dict = {}  # finished future whose result its worker did not hand over -> (tries, retry at)
-        checked = time.monotonic()
-        while futures:
-            if time.monotonic() - checked > self.CHECK_S:
+        checked = waited = time.monotonic()
+        submit_at = 0.0
+        while futures or pending:
+            now = time.monotonic()
+            if pending and now >= submit_at:
+                pending = self._submit(pending, futures)
+                submit_at = now + self.CHECK_S
+            if not pending:
+                waited = now
+            elif now - waited > self.NO_WORKER_S:
+                raise self._no_live_worker()
+            if now - checked > self.CHECK_S:
                 # on a timer, not only while idle: a healthy worker finishing units must
                 # not hide a stopped one
                 self._check_scheduler()
@@ -380,7 +450,6 @@ class DaskCluster:
                 checked = time.monotonic()
             # poll the futures' local state: distributed.wait raises as soon as one future is
             # cancelled (its data lost), which is exactly the case handled here
-            now = time.monotonic()
             done = [f for f in futures if f.done() and unclaimed.get(f, (0, 0.0))[1] <= now]
             if not done:
                 time.sleep(self.POLL_S)
@@ -391,36 +460,48 @@ class DaskCluster:
                     continue
                 unclaimed.pop(fut, None)
                 label, job = futures.pop(fut)
-                if rows is not None:
+                if rows is None:
+                    rows = self._lost(fut, label, job, tries)
+                if rows is None:
+                    pending.append((label, job))
+                    submit_at = 0.0
+                else:
                     yield job, rows
-                    continue
-                self._check_scheduler()
-                if id(job) in self.spared:
-                    # lost because the watchdog removed a worker: not the cluster's failure
-                    self.spared.discard(id(job))
-                    futures[self._guard(self._submit, label, job)] = (label, job)
-                    continue
-                tries[id(job)] = tries.get(id(job), 0) + 1
-                if tries[id(job)] <= self.retries:
-                    # _submit sends the data again if its copies went with the worker
-                    futures[self._guard(self._submit, label, job)] = (label, job)
-                    continue
-                if _killed_workers(fut):
-                    # the unit's own doing (a crash in native code, memory): record it
-                    yield job, [base_row(c, self.datasets[label], job, "failed",
-                                         f"the unit's task killed Dask workers {tries[id(job)]} times (KilledWorker)")
-                                for c in job.cells]
-                    continue
-                raise ClusterError(
-                    f"a unit of dataset '{label}' was lost with its Dask worker or its data "
-                    f"{tries[id(job)]} times (execution.retries = {self.retries}); the run stopped and "
-                    "recorded nothing for it. Check the workers' logs, then rerun the same command "
-                    "to compute what is missing (raise execution.retries on an unstable cluster)."
-                )
+
+    def _lost(self, fut, label: str, job: UnitJob, tries: dict) -> list[dict] | None:
+        """A unit lost with its worker or its data: None to run it again, or its rows."""
+        self._check_scheduler()
+        if id(job) in self.spared:
+            # lost because the watchdog removed a worker: not the cluster's failure
+            self.spared.discard(id(job))
+            return None
+        tries[id(job)] = tries.get(id(job), 0) + 1
+        if tries[id(job)] <= self.retries:
+            return None  # _data sends the data again if its copies went with the worker
+        if _killed_workers(fut):
+            # the unit's own doing (a crash in native code, memory): record it
+            return [base_row(c, self.datasets[label], job, "failed",
+                             f"the unit's task killed Dask workers {tries[id(job)]} times (KilledWorker)")
+                    for c in job.cells]
+        raise ClusterError(
+            f"a unit of dataset '{label}' was lost with its Dask worker or its data "
+            f"{tries[id(job)]} times (execution.retries = {self.retries}); the run stopped and "
+            "recorded nothing for it. Check the workers' logs, then rerun the same command "
+            "to compute what is missing (raise execution.retries on an unstable cluster)."
+        )
+
+    def _no_live_worker(self) -> ClusterError:
+        where = self.scheduler or "the local cluster"
+        return ClusterError(
+            f"for {self.NO_WORKER_S:g} s no worker of the Dask cluster at {where} took a dataset: none "
+            "sent the scheduler a heartbeat, or none received the data in time (stopped, stuck or gone). "
+            "The run stopped; every unit finished before is kept. Start or resume workers, then rerun "
+            "the same command to compute the rest."
+        )
 
     def _watch(self, futures: dict, unclaimed: dict):
         """Record overdue units as ``timeout`` and take their workers, and silent ones, out."""
-        overdue, drop = self._guard(self.watchdog.check, futures, set(unclaimed))
+        overdue, drop = self._guard(self.watchdog.check, futures, set(unclaimed), self.remote)
         fate = "killed it" if self.cluster is not None else "removed it from the cluster"
         for fut in overdue:
             label, job = futures.pop(fut)
@@ -436,11 +517,12 @@ class DaskCluster:
     def _spare(self, futures: dict, drop: set) -> None:
         """Give a free retry to the units that removing ``drop`` may lose.
 
-        Those queued there are rescheduled, but the scheduler keeps one copy of a scattered
-        dataset (its memory manager drops the broadcast's extra replicas); when that copy
-        is on a removed worker, every pending unit of the dataset is lost and sent again.
+        Those queued there are rescheduled, but a scattered dataset often has one copy
+        (it is sent to one worker, and the scheduler's memory manager drops the replicas
+        others fetch); when that copy is on a removed worker, every pending unit of the
+        dataset is lost and sent again.
         """
-        holders = self._guard(self.client.who_has, list(self.remote.values()))
+        holders = self._guard(self.watchdog.who_has, self.remote.values())
         alone = {label for label, fut in self.remote.items() if set(holders.get(fut.key, ())) <= drop}
         for fut, (label, job) in futures.items():
             if label in alone or drop & set(self.watchdog.where.get(fut.key, ())):

@@ -7,7 +7,8 @@ that the test starts on 127.0.0.1 and stops itself (by pid), with bounded waits.
   a plain rerun completes.
 - One worker stopped (SIGSTOP) mid-run: the watchdog records the unit it was executing
   as `timeout`, removes the worker from the scheduler, and the units queued there run on
-  the other worker; the run ends, exit 0.
+  the other worker; the run ends, exit 0. Stopped before the run: it is sent no data,
+  the units queued on it run elsewhere once it is removed, all cells `ok`.
 """
 
 from __future__ import annotations
@@ -156,31 +157,42 @@ def test_a_lost_scheduler_stops_the_run_and_a_plain_rerun_completes(tmp_path, cl
     assert (results_by_cell(out)["status"] == "ok").all()
 
 
-def test_a_stopped_worker_is_timed_out_and_removed_and_the_run_ends(tmp_path, cluster):
+def _stopped_worker_run(tmp_path, cluster, stop_before_run: bool):
+    """Run with w1 stopped mid-run (or before the run): exit code, stderr, seconds from the stop."""
     cluster.scheduler()
     stopped = cluster.worker("w1")
     cluster.worker("w2")
     cluster.wait_workers(2)
-    config = tmp_path / "watched.toml"
     # no retries: a unit lost because the watchdog removed a worker is not the cluster's
     # failure and must not need one
+    config = tmp_path / "watched.toml"
     config.write_text(SMALL.read_text() + "\n[execution]\ncell_timeout_s = 2\nretries = 0\n")
     out = tmp_path / "run"
+    if stop_before_run:
+        os.kill(stopped.pid, signal.SIGSTOP)
     proc = start("run", config, "--out", out, "--quiet", "--backend", "dask", "--scheduler", cluster.address)
     try:
-        assert wait_for_rows(out, 1, proc) > 0
-        os.kill(stopped.pid, signal.SIGSTOP)
+        if not stop_before_run:
+            assert wait_for_rows(out, 1, proc) > 0
+            os.kill(stopped.pid, signal.SIGSTOP)
         sent = time.monotonic()
-        stdout, stderr = proc.communicate(timeout=120)
+        _, stderr = proc.communicate(timeout=150)
         took = time.monotonic() - sent
     finally:
         if proc.poll() is None:
             proc.kill()
         with contextlib.suppress(ProcessLookupError):
             os.kill(stopped.pid, signal.SIGCONT)  # cluster.stop() kills it by pid
-    assert proc.returncode == 0, stderr
-    print(f"\nstopped dask worker: run ended {took:.1f} s after SIGSTOP; {stdout.splitlines()[0]}")
+    return proc.returncode, stderr, took
+
+
+def test_a_stopped_worker_is_timed_out_and_removed_and_the_run_ends(tmp_path, cluster):
+    code, stderr, took = _stopped_worker_run(tmp_path, cluster, stop_before_run=False)
+    assert code == 0, stderr
+    out = tmp_path / "run"
     df = results_by_cell(out)
+    print(f"\nstopped dask worker: run ended {took:.1f} s after SIGSTOP; {df['status'].value_counts().to_dict()}")
+    assert took < 120
     assert len(df) == 72 and df.index.is_unique and integrity(out) == "ok"
     timed_out = df[df["status"] == "timeout"]
     # the unit it was executing (two models), unless the stop fell between two units:
@@ -189,3 +201,12 @@ def test_a_stopped_worker_is_timed_out_and_removed_and_the_run_ends(tmp_path, cl
     assert timed_out[["encoder", "repeat", "fold"]].drop_duplicates().shape[0] <= 1
     assert timed_out["error"].str.endswith("the watchdog removed it from the cluster").all()
     assert (df.loc[df["status"] != "timeout", "status"] == "ok").all(), df["error"].unique()
+
+
+def test_a_worker_stopped_before_the_run_does_not_hang_it(tmp_path, cluster):
+    code, stderr, took = _stopped_worker_run(tmp_path, cluster, stop_before_run=True)
+    assert code == 0, stderr
+    df = results_by_cell(tmp_path / "run")
+    print(f"\nworker stopped before the run: run took {took:.1f} s; {df['status'].value_counts().to_dict()}")
+    assert took < 120
+    assert len(df) == 72 and df.index.is_unique and (df["status"] == "ok").all(), df["error"].unique()

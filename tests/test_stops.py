@@ -146,8 +146,12 @@ class _FakeCluster:
     def scheduler_info(self, n_workers=-1):
         return {"workers": {w: {"last_seen": t} for w, t in self.beat.items()}}
 
-    def who_has(self, futures):
-        return {f.key: self.results.get(f.key, []) for f in futures}
+    @property
+    def scheduler(self):
+        return SimpleNamespace(who_has=lambda keys: {k: self.results.get(k, []) for k in keys})
+
+    def sync(self, fn, **kwargs):
+        return fn(**kwargs)
 
 
 class _Future:
@@ -203,6 +207,18 @@ def test_dask_watchdog_removes_a_silent_worker_holding_units_and_records_nothing
     _at(cluster, dog, 0.0, units, [finished[0]], beating=["stopped", "alive"])
     assert _at(cluster, dog, LIMIT - 0.5, units, [finished[0]], beating=["alive"]) == ([], set())
     assert _at(cluster, dog, LIMIT + 0.5, units, [finished[0]], beating=["alive"]) == ([], {"stopped"})
+
+
+def test_dask_watchdog_removes_a_silent_worker_holding_the_only_copy_of_a_units_data(fake):
+    cluster, dog = fake
+    waiting = _unit("waiting")  # queued on a live worker, which must fetch the data
+    data = {"data": _Future("dataset", True)}
+    cluster.processing_ = {"alive": ["waiting"]}
+    cluster.results = {"dataset": ["stopped"]}
+    _at(cluster, dog, 0.0, [waiting], beating=["stopped", "alive"])
+    assert dog.check({waiting[0]: waiting[1]}, set(), data) == ([], set())
+    cluster.now, cluster.beat["alive"] = LIMIT + 0.5, LIMIT + 0.5
+    assert dog.check({waiting[0]: waiting[1]}, set(), data) == ([], {"stopped"})
 
 
 def test_dask_watchdog_leaves_a_silent_worker_to_its_executing_units_clock(fake):
