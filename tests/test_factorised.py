@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 
 from harness.config import load_config
-from harness.encoders import KINDS, build, factorised
+from harness.encoders import KINDS, build, factorised, params_of
 from harness.metrics import METRICS
 from harness import runner
 from harness.runner import execute, load_datasets, outer_splits, plan
@@ -68,7 +68,8 @@ def test_encoders_give_the_same_output_on_factorised_columns(kind, params, rng):
         assert len(X) == 400
     outs = []
     for X in (frame, codes):
-        enc = build(kind, **params, **({"random_state": 0} if kind == "target" else {}))
+        seeded = {"random_state": 0} if "random_state" in params_of(kind) else {}
+        enc = build(kind, **params, **seeded)
         fitted = enc.fit_transform(X.iloc[train], y[train])
         outs.append((fitted, enc.transform(X.iloc[test]), enc.get_feature_names_out()))
     assert _same(outs[0][0], outs[1][0]) and _same(outs[0][1], outs[1][1])
@@ -89,7 +90,8 @@ def test_quickstart_folds_encode_identically_after_factorising():
                 outs = []
                 for X in (ds.X, codes):
                     target_type = "continuous" if ds.task == "regression" else ds.task
-                    extra = {"random_state": 3, "target_type": target_type} if kind == "target" else {}
+                    extra = {k: v for k, v in {"random_state": 3, "target_type": target_type}.items()
+                             if k in params_of(kind)}
                     enc = build(kind, **params, **extra)
                     outs.append((enc.fit_transform(X.iloc[tr][cat], y), enc.transform(X.iloc[te][cat])))
                 assert _same(outs[0][0], outs[1][0]) and _same(outs[0][1], outs[1][1]), (label, kind)

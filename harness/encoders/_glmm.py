@@ -440,7 +440,7 @@ class RandomInterceptCodes(_SupervisedLevels, CategoricalEncoder):
         y = column_or_1d(np.asarray(y), warn=True)
         check_consistent_length(frame, y)
         Y, classes = self._target_matrix(y)
-        codes = [self._level_codes(c, j) for j, c in enumerate(self._fit_levels(frame, order="any"))]
+        codes = [self._level_codes(c, j) for j, c in enumerate(self._fit_levels(frame))]
         shape = (len(codes), Y.shape[1])
         self.intercept_, self.tau2_, self.sigma2_ = np.zeros(shape), np.zeros(shape), np.full(shape, np.nan)
         self.encodings_ = [None] * len(codes)
