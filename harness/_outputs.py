@@ -72,11 +72,11 @@ def _exchange(a: Path, b: Path) -> bool:
 
 def _pid_alive(pid: int) -> bool:
     try:
-        os.kill(pid, 0)
+        os.kill(pid, 0)  # signal 0: an existence check; PermissionError means it exists
     except ProcessLookupError:
         return False
     except PermissionError:
-        return True
+        pass
     return True
 
 

@@ -259,10 +259,11 @@ def cmd_status(args) -> int:
     from harness.store import Store, read_results, table_only
 
     df = read_results(args.dir)
-    if table_only(args.dir) is not None:  # a committed sample: its table is the grid
+    table = table_only(args.dir)
+    if table is not None:  # a committed sample: its table is the grid
         grid, aside = {}, {}
         _say(f"note: {args.dir} has no results store; read its exported table "
-             f"{table_only(args.dir).name} (the rows of the grid it was made with).")
+             f"{table.name} (the rows of the grid it was made with).")
     else:
         with Store(args.dir, lock=False, create=False) as store:
             grid, aside = store.grid(), store.set_aside()

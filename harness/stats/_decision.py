@@ -179,21 +179,24 @@ def _over_folds(d: np.ndarray, ratio: float, n_folds: int, rule: DecisionRule,
             "needed_unit": "repeats"}
 
 
-def _cost_row(per, ref, enc) -> dict:
-    """Paired cost of ``enc`` against ``ref``: median per-dataset ratio and saving."""
-    a, b = per.xs(enc, level="encoder"), per.xs(ref, level="encoder")
-    j = a.join(b.add_suffix("_ref"), how="inner")
+def _paired(per, ref, enc) -> pd.DataFrame:
+    """Per-dataset rows of ``enc`` beside those of ``ref`` (suffix ``_ref``), both present."""
+    return per.xs(enc, level="encoder").join(per.xs(ref, level="encoder").add_suffix("_ref"),
+                                             how="inner")
+
+
+def _cost_row(j: pd.DataFrame) -> dict:
+    """Paired cost of a candidate against the reference: median per-dataset ratio, saving."""
     ratio_cost = (j["cost"] / j["cost_ref"]).replace([np.inf, -np.inf], np.nan)
     return {"n_datasets": len(j), "cost_ratio": float(ratio_cost.median()),
             "saving_s": float((j["cost_ref"] - j["cost"]).median()),
             "n_features": float(j["features"].median())}
 
 
-def _quality(cells, per, ref, enc, method, rule, m) -> dict:
-    """The one-sided tests, bounds and power of ``enc`` in a family of ``m`` candidates."""
+def _quality(cells, j, ref, enc, method, rule, m) -> dict:
+    """The one-sided tests, bounds and power of ``enc`` in a family of ``m`` candidates
+    (``j``: its per-dataset rows paired with the reference's, from :func:`_paired`)."""
     if method == "datasets":
-        a, b = per.xs(enc, level="encoder"), per.xs(ref, level="encoder")
-        j = a.join(b.add_suffix("_ref"), how="inner")
         d = unit_free_delta(j["value"], j["value_ref"], j["gib"])
         return {"n_folds": np.nan, **_over_datasets(d[np.isfinite(d)], rule, m)}
     keys = ["repeat", "fold"]
@@ -252,11 +255,12 @@ def _choose(t: pd.DataFrame, ref: str) -> tuple[tuple, list]:
 
 def _evidence(cells, ref, encoders, leaky, method, rule) -> pd.DataFrame:
     per = _per_dataset(cells)
-    costs = pd.DataFrame.from_dict({e: _cost_row(per, ref, e) for e in encoders}, orient="index")
+    pairs = {e: _paired(per, ref, e) for e in encoders}
+    costs = pd.DataFrame.from_dict({e: _cost_row(j) for e, j in pairs.items()}, orient="index")
     costs["family"] = _families(costs, leaky, rule)
     costs["eligible"] = costs["family"] != "leaky"
     size = costs["family"].value_counts()
-    rows = {e: _quality(cells, per, ref, e, method, rule, int(size[costs.at[e, "family"]]))
+    rows = {e: _quality(cells, pairs[e], ref, e, method, rule, int(size[costs.at[e, "family"]]))
             for e in encoders}
     t = costs.join(pd.DataFrame.from_dict(rows, orient="index"))
     # Holm within each family (loop over at most three families)
