@@ -26,8 +26,9 @@ from harness import metrics as _metrics
 from harness import models as _models
 from harness._resources import CellTimeout, memory_limit, peak_rss_mb, reset_peak_rss, time_limit
 from harness.grid import SCHEMA_VERSION, Cell
+from harness.tuning import Tuning
 
-__all__ = ["UnitJob", "run_unit", "base_row"]
+__all__ = ["UnitJob", "run_unit", "base_row", "classify_failure"]
 
 TARGET_TYPE = {"binary": "binary", "multiclass": "multiclass", "regression": "continuous"}
 
@@ -46,6 +47,14 @@ class UnitJob:
     config_hash: str
     timeout_s: float | None = None
     memory_mb: int = 0
+    stratify: bool = True  # inner folds of a search follow the protocol's stratification
+    tuning: Tuning | None = None  # the [tuning] settings (tuned units only)
+    score_train: bool = True  # False inside a search: only the validation score is read
+
+    @property
+    def fits_per_cell(self) -> int:
+        """Model fits of one cell of the unit at most (1, or a search's fits and the refit)."""
+        return self.tuning.fits_per_cell() if self.tuning is not None else 1
 
 
 def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") -> dict:
@@ -61,6 +70,7 @@ def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") ->
         "model": cell.model.label,
         "repeat": cell.repeat,
         "fold": cell.fold,
+        "regime": cell.regime,
         "status": status,
         "error": error,
         "task": task,
@@ -71,6 +81,8 @@ def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") ->
         "leaky": declared.leaky,
         "model_family": cell.model.family,
         "model_params": json.dumps(cell.model.params, sort_keys=True, default=str),
+        "tuned_params": "{}",  # a tuned cell's chosen settings (harness._search)
+        "tune_s": 0.0,
         "primary_metric": job.primary_regression if task == "regression" else job.primary,
         "n_features_in": len(dataset.categorical) + len(dataset.numeric),
         "n_train": len(job.train_idx),
@@ -81,7 +93,15 @@ def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") ->
 
 
 def run_unit(dataset, job: UnitJob) -> list[dict]:
-    """Encode one outer fold with one encoder and fit/score every model of the unit."""
+    """Encode one outer fold with one encoder and fit/score every model of the unit.
+
+    A tuned unit (``job.tuning`` set) first searches each cell's settings on inner folds of
+    the outer training fold (:func:`harness._search.run_tuned_unit`).
+    """
+    if job.tuning is not None:
+        from harness._search import run_tuned_unit
+
+        return run_tuned_unit(dataset, job)
     with threadpool_limits(1), warnings.catch_warnings():
         # convergence and deprecation chatter from estimators would drown the progress
         # bar; a cell's outcome is in its row (status, error), not in warnings
@@ -138,7 +158,7 @@ def _encode(dataset, job: UnitJob):
             t2 = time.perf_counter()
             train, test = _with_numeric(cat_train, cat_test, X_train[num], X_test[num])
     except Exception as exc:  # noqa: BLE001 - every failure becomes rows
-        status, message = _classify(exc, dataset.private)
+        status, message = classify_failure(exc, dataset.private)
         return [base_row(c, dataset, job, status, message) for c in job.cells]
     # targets and the class list once per unit, shared by every model of the unit
     classes = None if dataset.task == "regression" else np.unique(dataset.y.to_numpy())
@@ -188,7 +208,7 @@ def _megabytes(matrix) -> float:
     return matrix.nbytes / 2**20
 
 
-def _classify(exc: BaseException, private: bool = False) -> tuple[str, str]:
+def classify_failure(exc: BaseException, private: bool = False) -> tuple[str, str]:
     """Status and error text of a failed cell.
 
     For a private dataset only the exception type is kept: library messages may quote
@@ -231,7 +251,7 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
             row.update(_fit_and_score(cell, dataset, job, train, test, enc))
         row["peak_rss_mb"] = max(peak_rss_mb(), enc.peak_mb)
     except Exception as exc:  # noqa: BLE001
-        status, message = _classify(exc, dataset.private)
+        status, message = classify_failure(exc, dataset.private)
         row.update(status=status, error=message)
     if limit and row["status"] == "ok" and row.get("model_fit_s", 0) + row.get("predict_s", 0) > limit:
         # backends without SIGALRM (Dask threads) check the limit after the fact
@@ -256,17 +276,20 @@ def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test, enc: _Encoded
     t1 = time.perf_counter()
     pred_test = _predict(model, test, task)
     t2 = time.perf_counter()
-    pred_train = _predict(model, train, task)
     out = {"model_fit_s": t1 - t0, "predict_s": t2 - t1}
     classes = enc.classes
     if task != "regression":
         # a class missing from the training fold still counts in the test fold's metrics
-        pred_test, pred_train = (_align(p, model.classes_, classes) for p in (pred_test, pred_train))
+        pred_test = _align(pred_test, model.classes_, classes)
     for name in job.metrics:
         if name in _metrics.metrics_for(task):
             out[name] = _metrics.score(name, task, y_test, pred_test, classes)
-    primary = job.primary_regression if task == "regression" else job.primary
-    out[f"train_{primary}"] = _metrics.score(primary, task, y_train, pred_train, classes)
+    if job.score_train:  # the training-fold score of the overfitting figure
+        pred_train = _predict(model, train, task)
+        if task != "regression":
+            pred_train = _align(pred_train, model.classes_, classes)
+        primary = job.primary_regression if task == "regression" else job.primary
+        out[f"train_{primary}"] = _metrics.score(primary, task, y_train, pred_train, classes)
     out["score_s"] = time.perf_counter() - t2  # training-fold prediction and every metric
     return out
 

@@ -27,6 +27,8 @@ from harness import models as _models
 from harness.errors import ConfigError, HarnessError, closest
 from harness.metrics import CLASSIFICATION_METRICS, METRICS, REGRESSION_METRICS
 from harness.stats import DecisionRule
+from harness.tuning import DEFAULT_REGIME, MAX_BUDGET, MAX_INNER_FOLDS, METHODS, REGIMES, Tuning, check_budget, \
+    parse_space, space_size
 
 __all__ = [
     "Config",
@@ -69,6 +71,7 @@ class EncoderSpec:
     label: str
     kind: str
     params: dict
+    search: tuple = ()  # [encoders.<label>.search]: tuning.Dimension per searched parameter
 
 
 @dataclass(frozen=True)
@@ -78,6 +81,7 @@ class ModelSpec:
     params: dict
     max_rows: int | None = None
     cell_timeout_s: float | None = None
+    search: tuple = ()  # [models.<label>.search]: tuning.Dimension per searched parameter
 
 
 @dataclass(frozen=True)
@@ -117,6 +121,7 @@ class Config:
     execution: Execution
     raw: dict = field(repr=False)
     decision: DecisionRule = field(default_factory=DecisionRule)
+    tuning: Tuning = field(default_factory=Tuning)
 
     @property
     def hash(self) -> str:
@@ -193,7 +198,11 @@ _BANDS = (
     "two increasing integers [low_max, medium_max], e.g. [10, 100]",
 )
 
-SECTIONS = ("experiment", "protocol", "datasets", "encoders", "models", "execution", "decision")
+SECTIONS = ("experiment", "protocol", "datasets", "encoders", "models", "execution", "decision", "tuning")
+
+
+_regimes = (lambda v: isinstance(v, list) and 0 < len(v) == len(set(v)) and set(v) <= set(REGIMES),
+            f"a non-empty list of distinct regimes from {', '.join(REGIMES)}")
 
 
 def _number_between(lo, hi):
@@ -234,6 +243,14 @@ RULES = {
         "alpha": (_number_between(0, 0.5), 0.05),
         "min_saving": (_number_between(-1e-12, 1), 0.20),
         "min_saving_s": (_number_at_least(0), 0.01),
+    },
+    # nested tuning (harness.tuning): which regimes run, and the search of a tuned cell
+    "tuning": {
+        "regimes": (_regimes, [DEFAULT_REGIME]),
+        "budget": (_int_at_least(1, MAX_BUDGET), 10),
+        "inner_folds": (_int_at_least(2, MAX_INNER_FOLDS), 3),
+        "method": (_one_of(METHODS), "random"),
+        "seed": (_int_at_least(0, SEED_MAX), None),
     },
 }
 
@@ -296,6 +313,7 @@ def parse_config(raw: dict, path: str = "<config>") -> Config:
     _check_native(encoders, models, path)
     _check_reference(sections["decision"], encoders, path)
     _check_group_not_target(datasets, prot["group"], path)
+    tuning = _tuning_of(sections["tuning"], exp["seed"], encoders, models, path)
     normalized = {**raw, **sections}
     return Config(
         path=path,
@@ -319,6 +337,7 @@ def parse_config(raw: dict, path: str = "<config>") -> Config:
         execution=Execution(**sections["execution"]),
         raw=normalized,
         decision=DecisionRule.from_mapping(sections["decision"]),
+        tuning=tuning,
     )
 
 
@@ -385,7 +404,7 @@ def check_jobs(jobs: int, where: str) -> None:
 def _n_variants(body) -> int:
     if not isinstance(body, dict):
         return 1
-    return math.prod(len(v) for k, v in body.items() if isinstance(v, list) and k != "kind")
+    return math.prod(len(v) for k, v in body.items() if isinstance(v, list) and k not in ("kind", "search"))
 
 
 def _check_grid_size(raw: dict, sections: dict, path: str) -> None:
@@ -471,10 +490,11 @@ def _parse_encoders(table: dict, path: str) -> tuple[EncoderSpec, ...]:
                 f"unknown encoder kind '{kind}' at {where}.kind in {path}; allowed: "
                 f"{', '.join(_encoders.KINDS)}.{closest(kind, _encoders.KINDS)}"
             )
-        params = {k: v for k, v in body.items() if k != "kind"}
+        params = {k: v for k, v in body.items() if k not in ("kind", "search")}
         for suffix, variant in _expand(params, path, where):
             _validate_encoder(kind, variant, path, where)
-            specs.append(EncoderSpec(label + suffix, kind, variant))
+            search = _encoder_space(kind, variant, body["search"], f"{where}.search", path) if "search" in body else ()
+            specs.append(EncoderSpec(label + suffix, kind, variant, search))
     _check_unique([s.label for s in specs], "encoder", path)
     return tuple(specs)
 
@@ -522,9 +542,50 @@ def _parse_models(table: dict, path: str) -> tuple[ModelSpec, ...]:
                     f"allowed: {shown}.{closest(key, allowed)}"
                 )
         _probe_model(family, tuple(sorted(params.items(), key=lambda kv: kv[0])), path, where)
-        specs.append(ModelSpec(label, family, params, max_rows, timeout))
+        search = _model_space(family, params, body["search"], f"{where}.search", path) if "search" in body else ()
+        specs.append(ModelSpec(label, family, params, max_rows, timeout, search))
     _check_unique([s.label for s in specs], "model", path)
     return tuple(specs)
+
+
+def _encoder_space(kind: str, params: dict, table, where: str, path: str) -> tuple:
+    def check(name, value):
+        _validate_encoder(kind, {**params, name: value}, path, f"{where}.{name}")
+
+    return parse_space(table, where, path, _encoders.params_of(kind), check)
+
+
+def _model_space(family: str, params: dict, table, where: str, path: str) -> tuple:
+    def check(name, value):
+        _probe_model(family, tuple(sorted({**params, name: value}.items())), path, f"{where}.{name}")
+
+    return parse_space(table, where, path, _models.family_params(family), check)
+
+
+def _tuning_of(sec: dict, seed: int, encoders, models, path: str) -> Tuning:
+    """The [tuning] table, checked against the search tables of the models and encoders."""
+    t = Tuning(tuple(sec["regimes"]), sec["budget"], sec["inner_folds"], sec["method"],
+               seed if sec["seed"] is None else sec["seed"])
+    if not t.tuned:
+        return t
+    if not any(m.search for m in models):
+        raise ConfigError(
+            f"`tuning.regimes` in {path} lists {', '.join(repr(r) for r in t.tuned)}, but no model has a "
+            f"[models.<label>.search] table, so there is nothing to tune. Add one (e.g. "
+            f"[models.{models[0].label}.search] mapping a parameter to a list or to {{low, high, scale}}), "
+            "or set regimes = [\"defaults\"].")
+    if "tuned-both" in t.regimes and not any(e.search for e in encoders):
+        raise ConfigError(
+            f"`tuning.regimes` in {path} lists 'tuned-both', but no encoder has an [encoders.<label>.search] "
+            "table, so it would repeat 'tuned-model'. Add an encoder search table, or drop 'tuned-both'.")
+    for m in models:
+        if not m.search and DEFAULT_REGIME not in t.regimes:
+            raise ConfigError(
+                f"model '{m.label}' has no [models.{m.label}.search] table and `tuning.regimes` in {path} does "
+                "not list 'defaults', so it would run no cell. Add a search table, or add 'defaults'.")
+        if m.search:
+            check_budget(t, space_size(m.search), f"[models.{m.label}.search]", path)
+    return t
 
 
 @functools.lru_cache(maxsize=256)

@@ -21,10 +21,15 @@ from dataclasses import dataclass, field
 from harness import encoders as _encoders
 from harness import models as _models
 from harness.config import Config, DatasetSpec, EncoderSpec, ModelSpec, digest
+from harness.tuning import DEFAULT_REGIME
 
-__all__ = ["SCHEMA_VERSION", "CODE_VERSION", "Cell", "build_grid", "select", "units", "changed_parts"]
+__all__ = ["SCHEMA_VERSION", "CODE_VERSION", "Cell", "build_grid", "select", "units", "changed_parts", "regimes_of"]
 
-SCHEMA_VERSION = 3  # 2: grid and superseded tables; 3: uses_target and leaky columns
+SCHEMA_VERSION = 4  # 2: grid and superseded tables; 3: uses_target and leaky columns; 4: regime, tuned_params, tune_s
+# The schema version cell identities were computed under. A layout change that a store
+# upgrade fills in without changing any number (4: the tuning columns, ``defaults`` for
+# every older row) keeps it, so finished cells are not recomputed.
+IDENTITY_SCHEMA = 3
 # Bump when a change to the code alters the numbers a cell records (an encoder's
 # arithmetic, a model default, the scaling policy, the metrics): every cell then gets a
 # new identity and is recomputed, and rows of the old code are set aside.
@@ -40,21 +45,23 @@ class Cell:
     fold: int
     cell_id: str
     identity: dict = field(default_factory=dict, compare=False, hash=False)
+    regime: str = DEFAULT_REGIME  # tuning regime (harness.tuning.REGIMES)
 
     @property
     def unit(self) -> tuple:
-        return (self.dataset, self.repeat, self.fold, self.encoder.label)
+        return (self.dataset, self.repeat, self.fold, self.encoder.label, self.regime)
 
     @property
     def path(self) -> str:
-        return f"{self.dataset}/{self.encoder.label}/{self.model.label}/r{self.repeat}f{self.fold}"
+        tuned = "" if self.regime == DEFAULT_REGIME else f"{self.regime}/"
+        return f"{self.dataset}/{self.encoder.label}/{self.model.label}/{tuned}r{self.repeat}f{self.fold}"
 
 
 def _shared_parts(config: Config) -> dict:
     """Identity parts common to every cell of a config (protocol, seed, code)."""
     p = config.protocol
     return {
-        "code": digest([harness_version(), CODE_VERSION, SCHEMA_VERSION], 12),
+        "code": digest([harness_version(), CODE_VERSION, IDENTITY_SCHEMA], 12),
         "seed": digest(config.seed, 12),
         "protocol": digest([p.folds, p.repeats, p.stratify, p.group, sorted(p.metrics), p.primary, p.primary_regression], 12),
     }
@@ -70,6 +77,17 @@ def _encoder_part(encoder: EncoderSpec) -> str:
 
 def _model_part(model: ModelSpec) -> str:
     return digest([model.label, model.family, _models.resolved_params(model.family, model.params), model.max_rows], 12)
+
+
+def _regime_part(config: Config, regime: str, encoder: EncoderSpec, model: ModelSpec) -> str:
+    """Identity of a tuned regime: the search settings and the spaces searched."""
+    spaces = [model.search, encoder.search if regime == "tuned-both" else ()]
+    return digest([regime, config.tuning.identity(), repr(spaces)], 12)
+
+
+def regimes_of(config: Config, model: ModelSpec) -> list[str]:
+    """The regimes a model runs under: ``defaults`` if listed, tuned ones if it has a search space."""
+    return [r for r in config.tuning.regimes if r == DEFAULT_REGIME or model.search]
 
 
 def cell_hash(identity: dict, repeat: int, fold: int) -> str:
@@ -117,15 +135,23 @@ def build_grid(config: Config, layout: dict[str, tuple[int, int]] | None = None,
     for ds in config.datasets:
         repeats, folds = layout.get(ds.label, (config.protocol.repeats, config.protocol.folds))
         data_part = _dataset_part(ds, checksums.get(ds.label))
-        parts = {(e, m): {**shared, "dataset": data_part, "encoder": enc_parts[e], "model": model_parts[m]}
-                 for e in enc_parts for m in model_parts}
+        parts = {}
+        for e in config.encoders:
+            for m in config.models:
+                base = {**shared, "dataset": data_part, "encoder": enc_parts[e.label], "model": model_parts[m.label]}
+                for regime in regimes_of(config, m):  # a defaults cell's identity is as before tuning existed
+                    tuned = {} if regime == DEFAULT_REGIME else {"regime": _regime_part(config, regime, e, m)}
+                    parts[(e.label, m.label, regime)] = {**base, **tuned}
         for repeat in range(repeats):
             for fold in range(folds):
                 for enc in config.encoders:
-                    for model in config.models:
-                        identity = parts[(enc.label, model.label)]
-                        cid = cell_hash(identity, repeat, fold)
-                        cells.append(Cell(ds.label, enc, model, repeat, fold, cid, identity))
+                    for regime in config.tuning.regimes:
+                        for model in config.models:
+                            identity = parts.get((enc.label, model.label, regime))
+                            if identity is None:
+                                continue
+                            cid = cell_hash(identity, repeat, fold)
+                            cells.append(Cell(ds.label, enc, model, repeat, fold, cid, identity, regime))
     return cells
 
 
@@ -136,7 +162,7 @@ def select(cells: list[Cell], pattern: str | None) -> list[Cell]:
     return [
         c
         for c in cells
-        if any(fnmatch.fnmatchcase(s, pattern) for s in (c.dataset, c.encoder.label, c.model.label, c.path))
+        if any(fnmatch.fnmatchcase(s, pattern) for s in (c.dataset, c.encoder.label, c.model.label, c.regime, c.path))
     ]
 
 

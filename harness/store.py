@@ -68,6 +68,7 @@ COLUMNS = [
     ("model", "TEXT"),
     ("repeat", "INTEGER"),
     ("fold", "INTEGER"),
+    ("regime", "TEXT"),
     ("status", "TEXT"),
     ("error", "TEXT"),
     ("task", "TEXT"),
@@ -77,6 +78,7 @@ COLUMNS = [
     ("leaky", "INTEGER"),
     ("model_family", "TEXT"),
     ("model_params", "TEXT"),
+    ("tuned_params", "TEXT"),
     ("primary_metric", "TEXT"),
     *[(m, "REAL") for m in METRICS],
     *[(f"train_{m}", "REAL") for m in METRICS],
@@ -85,6 +87,7 @@ COLUMNS = [
     ("model_fit_s", "REAL"),
     ("predict_s", "REAL"),
     ("score_s", "REAL"),
+    ("tune_s", "REAL"),
     ("n_features_in", "INTEGER"),
     ("n_features_out", "INTEGER"),
     ("encoded_mb", "REAL"),
@@ -97,7 +100,10 @@ COLUMNS = [
 NAMES = [c for c, _ in COLUMNS]
 # schema versions this harness opens; older ones are upgraded in place by a writer
 # (1: no grid or superseded table; 2: no uses_target/leaky columns)
-READABLE_VERSIONS = (1, 2, SCHEMA_VERSION)
+READABLE_VERSIONS = (1, 2, 3, SCHEMA_VERSION)
+# (4: regime, tuned_params, tune_s) what a row written before a column existed holds in it:
+# every older cell ran with fixed hyperparameters
+FILLED_ON_UPGRADE = {"regime": "defaults", "tuned_params": "{}", "tune_s": 0.0}
 # grid: the cells of the config last run into the store (path, identity parts as JSON)
 GRID_TABLE = "CREATE TABLE IF NOT EXISTS grid (cell_id TEXT PRIMARY KEY, path TEXT, identity TEXT)"
 SET_ASIDE_EXTRA = [("superseded_at", "TEXT"), ("reason", "TEXT")]
@@ -109,6 +115,7 @@ PART_REASONS = {
     "dataset": "other dataset content or source settings",
     "encoder": "other encoder parameters",
     "model": "other model parameters",
+    "regime": "other tuning settings or search space",
 }
 #: INTEGER columns that hold a boolean (SQLite has no boolean type); read back as bool
 BOOL_COLUMNS = ("uses_target", "leaky")
@@ -177,7 +184,7 @@ class Store:
 
     # --- opening -------------------------------------------------------------------------
     def _missing(self) -> StoreError:
-        return StoreError(f"no results store at {self.path}; run `harness run CONFIG --out {self.out}` first.")
+        return StoreError(f"no results store at {self.path}; run `levelfold run CONFIG --out {self.out}` first.")
 
     def _take_lock(self) -> None:
         """flock the output directory itself: no file a user could delete holds the lock."""
@@ -190,7 +197,7 @@ class Store:
         except BlockingIOError:
             os.close(fd)
             raise StoreError(
-                f"another `harness run` is writing to {self.out} (it holds the lock on that directory). "
+                f"another `levelfold run` is writing to {self.out} (it holds the lock on that directory). "
                 "Wait for it to finish, or pass a different --out."
             ) from None
         self._lock_fd = fd
@@ -298,7 +305,7 @@ class Store:
             )
 
     def frame(self) -> pd.DataFrame:
-        return pd.read_sql_query("SELECT * FROM cells ORDER BY dataset, repeat, fold, encoder, model", self.db)
+        return pd.read_sql_query("SELECT * FROM cells ORDER BY dataset, repeat, fold, encoder, model, regime", self.db)
 
     # --- one experiment per store ----------------------------------------------------------
     def _has(self, table: str) -> bool:
@@ -401,8 +408,14 @@ def _create_tables(db) -> None:
         have = {r[1] for r in db.execute(f"PRAGMA table_info({table})")}
         for col, typ in columns:  # additive upgrade of an older store: new columns hold NULL
             if col not in have:
-                db.execute(f'ALTER TABLE {table} ADD COLUMN "{col}" {typ}')
+                fill = FILLED_ON_UPGRADE.get(col)
+                default = "" if fill is None else f" DEFAULT {_sql_literal(fill)}"
+                db.execute(f'ALTER TABLE {table} ADD COLUMN "{col}" {typ}{default}')
     db.execute("INSERT OR REPLACE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
+
+
+def _sql_literal(value) -> str:
+    return f"'{value}'" if isinstance(value, str) else repr(value)
 
 
 def _reason(row: dict, old, at_path: dict, labels: dict) -> str:
@@ -410,9 +423,13 @@ def _reason(row: dict, old, at_path: dict, labels: dict) -> str:
     for part in ("dataset", "encoder", "model"):
         if row[part] not in labels[part]:
             return f"{part} '{row[part]}' is no longer in the config"
-    path = f"{row['dataset']}/{row['encoder']}/{row['model']}/r{row['repeat']}f{row['fold']}"
+    regime = row.get("regime") or "defaults"
+    tuned = "" if regime == "defaults" else f"{regime}/"
+    path = f"{row['dataset']}/{row['encoder']}/{row['model']}/{tuned}r{row['repeat']}f{row['fold']}"
     if path not in at_path:
-        return "repeat or fold no longer in the protocol"
+        if not any(p.endswith(f"/{tuned}r{row['repeat']}f{row['fold']}") for p in at_path):
+            return "repeat or fold no longer in the protocol"
+        return f"tuning regime '{regime}' no longer run for this model (tuning.regimes, search tables)"
     if old is None:
         return "recorded under a cell identity this harness cannot compare (older store)"
     parts = changed_parts(old[1], at_path[path].identity)
@@ -606,14 +623,16 @@ def read_results(out) -> pd.DataFrame:
         except Exception as exc:  # pyarrow raises several types for a damaged file
             raise StoreError(f"the results table {table} cannot be read ({exc}); restore it "
                              "from version control or rerun the config that made it.") from None
+        df = df.assign(**{k: v for k, v in FILLED_ON_UPGRADE.items() if k not in df})
         missing = [col for col, _ in COLUMNS if col not in df and col not in BOOL_COLUMNS]
         if missing:
             raise StoreError(f"the results table {table} lacks the column(s) "
-                             f"{', '.join(missing)}; it was not written by `harness export`. "
+                             f"{', '.join(missing)}; it was not written by `levelfold export`. "
                              "Rerun the config that made it.")
     else:
         with Store(out, lock=False, create=False) as store:
             df = store.frame()
+        df = df.assign(**{k: v for k, v in FILLED_ON_UPGRADE.items() if k not in df})  # read-only, older
     for col, typ in COLUMNS:
         if typ == "REAL":
             df[col] = pd.to_numeric(df[col], errors="coerce").astype(float)
