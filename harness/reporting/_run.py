@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import pandas as pd
@@ -12,8 +12,9 @@ from harness import stats
 from harness.errors import ConfigError, StoreError
 from harness.reporting import tables
 from harness.store import read_results, read_set_aside
+from harness.tuning import DEFAULT_REGIME, REGIMES
 
-__all__ = ["Run", "load_run"]
+__all__ = ["Run", "load_run", "main_regime", "split_run"]
 
 
 # ------------------------------------------------------------------------------- loading
@@ -26,6 +27,9 @@ class Run:
     manifest: dict = field(repr=False)
     private: tuple = ()
     set_aside: dict = field(default_factory=dict)  # reason -> superseded rows not used
+    # rows of every tuning regime; ``results`` holds the main regime's only (see split_run)
+    all_results: pd.DataFrame | None = field(default=None, repr=False)
+    regime: str = DEFAULT_REGIME
 
 
 def _aliases(manifest: dict) -> dict:
@@ -49,13 +53,13 @@ def load_run(directory) -> Run:
     if not path.exists():
         raise ConfigError(
             f"{directory} has a results store but no manifest.json, which the report needs (datasets, "
-            f"protocol, models). Rerun `harness run CONFIG --out {directory}` with the config that made it: "
+            f"protocol, models). Rerun `levelfold run CONFIG --out {directory}` with the config that made it: "
             "it computes nothing already stored and writes the manifest."
         )
     try:
         manifest = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, json.JSONDecodeError) as exc:
-        raise StoreError(f"the manifest {path} cannot be read ({exc}); rerun `harness run` "
+        raise StoreError(f"the manifest {path} cannot be read ({exc}); rerun `levelfold run` "
                          "with the same config to rewrite it.") from None
     names = _aliases(manifest)
     private = tuple(names[d] for d, v in manifest.get("datasets", {}).items() if v.get("private"))
@@ -65,6 +69,26 @@ def load_run(directory) -> Run:
                                                    results.loc[bad, "status"], bad[bad])
     manifest = {**manifest, "datasets": {names[d]: v for d, v in
                                          manifest.get("datasets", {}).items()}}
-    return Run(directory, stats.pool_primary(results), manifest, private, read_set_aside(directory))
+    return split_run(Run(directory, stats.pool_primary(results), manifest, private, read_set_aside(directory)))
+
+
+def main_regime(results: pd.DataFrame, manifest: dict) -> str:
+    """The regime the rest of the report reads: ``defaults`` when run, else the first listed."""
+    present = set(results["regime"].dropna()) if "regime" in results else set()
+    listed = list(((manifest.get("config") or {}).get("tuning") or {}).get("regimes") or [DEFAULT_REGIME])
+    for r in [DEFAULT_REGIME, *listed, *REGIMES]:
+        if r in present:
+            return r
+    return DEFAULT_REGIME
+
+
+def split_run(run):
+    """``run`` with ``results`` cut to its main regime (``all_results`` keeps every row)."""
+    if "regime" not in run.results:
+        return replace(run, all_results=run.results)
+    regime = main_regime(run.results, run.manifest)
+    return replace(run, results=run.results[run.results["regime"] == regime], all_results=run.results,
+                   regime=regime)
+
 
 
