@@ -246,22 +246,29 @@ def run_encoder_bench(
     rows = []
     for dtype in dtypes:
         for n_columns, cardinality in shapes:
-            rng = np.random.default_rng(seed)
-            frame = zipf_frame(n_rows, cardinality, n_columns, dtype, rng)
-            y = binary_target(frame.iloc[:, 0], rng)
-            floor_s, _ = best_time(lambda: floor(frame), repeats)
-            for case in _cases(frame, y, seed):
-                ours_s, ours = best_time(case.ours, repeats)
-                reference_s, reference = best_time(case.reference, repeats)
-                rows.append({
-                    "kind": case.kind, "dtype": dtype, "columns": n_columns,
-                    "cardinality": cardinality, "ours_s": ours_s,
-                    "reference": case.reference_name, "reference_s": reference_s,
-                    "ratio": reference_s / ours_s, "floor_s": floor_s,
-                    "over_floor": ours_s / floor_s, "floor_ratio": reference_s / floor_s,
-                    "identical": case.same(ours, reference),
-                })
+            rows += _time_frame(n_rows, cardinality, n_columns, dtype, repeats, seed)
     return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+
+
+def _time_frame(n_rows: int, cardinality: int, n_columns: int, dtype: str, repeats: int, seed: int) -> list[dict]:
+    """One result row per encoder kind on one synthetic frame (see ``run_encoder_bench``)."""
+    rng = np.random.default_rng(seed)
+    frame = zipf_frame(n_rows, cardinality, n_columns, dtype, rng)
+    y = binary_target(frame.iloc[:, 0], rng)
+    floor_s, _ = best_time(lambda: floor(frame), repeats)
+    rows = []
+    for case in _cases(frame, y, seed):
+        ours_s, ours = best_time(case.ours, repeats)
+        reference_s, reference = best_time(case.reference, repeats)
+        rows.append({
+            "kind": case.kind, "dtype": dtype, "columns": n_columns,
+            "cardinality": cardinality, "ours_s": ours_s,
+            "reference": case.reference_name, "reference_s": reference_s,
+            "ratio": reference_s / ours_s, "floor_s": floor_s,
+            "over_floor": ours_s / floor_s, "floor_ratio": reference_s / floor_s,
+            "identical": case.same(ours, reference),
+        })
+    return rows
 
 
 def target_of(kind: str, dtype: str, measure: str) -> tuple[float, int | None] | None:
@@ -337,7 +344,7 @@ def _positive_ints(text: str) -> tuple[int, ...]:
 def main(argv=None) -> int:
     """Command line: ``python -m harness.bench [--rows N] [--cardinalities 10,1000] ...``."""
     parser = argparse.ArgumentParser(
-        prog="harness bench encoders", description=__doc__.split("\n")[0]
+        prog="levelfold bench encoders", description=__doc__.split("\n")[0]
     )
     parser.add_argument("--rows", type=int, default=1_000_000, help="rows per column")
     parser.add_argument("--cardinalities", default="10,1000,100000", help="comma-separated")

@@ -7,9 +7,12 @@
 - ``hand_loop``: wall time of what a user would write by hand (one scikit-learn
   ``Pipeline`` of ``ColumnTransformer(encoder, median imputer)`` and the model per
   dataset x encoder x model x fold, on the same folds, seeds and metrics) against
-  ``harness run --jobs 1``; the two tables' metrics are compared too.
+  ``levelfold run --jobs 1``; the two tables' metrics are compared too.
 
-Usage: ``harness bench runner [--config FILE]`` and ``harness bench scaling [--config FILE]``.
+- ``tuning``: the same grid run once per tuning regime; each regime's wall time against
+  the untuned run, beside the bound ``budget x inner_folds + 1`` fits per cell.
+
+Usage: ``levelfold bench runner|scaling|tuning [--config FILE]``.
 """
 
 from __future__ import annotations
@@ -27,7 +30,7 @@ from harness.config import load_config, parse_config
 from harness.runner import execute, plan
 from harness.store import read_results
 
-__all__ = ["overhead", "speedup", "scaling", "hand_loop", "main"]
+__all__ = ["overhead", "speedup", "scaling", "hand_loop", "tuning_cost", "main"]
 
 WORK_COLUMNS = ("model_fit_s", "predict_s", "score_s")
 
@@ -178,6 +181,23 @@ def _hand_written(config) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def tuning_cost(config_path: str) -> pd.DataFrame:
+    """Wall time of the config's grid under each of its regimes alone (``--jobs 1``), and the
+    ratio to the ``defaults`` regime (the cost multiplier of tuning)."""
+    base = load_config(config_path)
+    rows = []
+    for regime in base.tuning.regimes:
+        config = dataclasses.replace(base, tuning=dataclasses.replace(base.tuning, regimes=(regime,)))
+        wall, df = _timed_run(config, jobs=1)
+        rows.append({"regime": regime, "cells": len(df), "ok": int((df["status"] == "ok").sum()), "wall_s": wall,
+                     "tune_s": float(df["tune_s"].fillna(0).sum()),
+                     "fits_per_cell_bound": 1 if regime == "defaults" else base.tuning.fits_per_cell()})
+    table = pd.DataFrame(rows)
+    ref = table.loc[table["regime"] == "defaults", "wall_s"]
+    table["multiplier"] = table["wall_s"] / float(ref.iloc[0]) if len(ref) else float("nan")
+    return table
+
+
 def _rows(config, label: str) -> int:
     from harness.runner import load_datasets
 
@@ -185,8 +205,8 @@ def _rows(config, label: str) -> int:
 
 
 def main(argv=None) -> int:
-    p = argparse.ArgumentParser(prog="harness bench")
-    p.add_argument("what", choices=["runner", "scaling"])
+    p = argparse.ArgumentParser(prog="levelfold bench")
+    p.add_argument("what", choices=["runner", "scaling", "tuning"])
     p.add_argument("--config", default=None, help="config to time (default: quickstart / bench-speedup)")
     p.add_argument("--out", default="results/bench", help="directory for the CSV")
     args = p.parse_args(argv)
@@ -205,6 +225,10 @@ def main(argv=None) -> int:
               f"--jobs 1 {hand['harness_s']:.1f} s, ratio {hand['ratio']:.2f}x (loop / harness)")
         pd.DataFrame([{**over, **{f"speedup_{k}": v for k, v in sp.items()},
                        **{f"hand_{k}": v for k, v in hand.items()}}]).to_csv(out / "runner.csv", index=False)
+    elif args.what == "tuning":
+        table = tuning_cost(args.config or "configs/bench-tuning.toml")
+        print(table.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
+        table.to_csv(out / "tuning.csv", index=False)
     else:
         table = scaling(args.config or "configs/bench-scaling.toml")
         print(table.to_string(index=False, float_format=lambda v: f"{v:.2f}"))

@@ -20,49 +20,57 @@ from harness.errors import ConfigError, DiskFullError, HarnessError
 __all__ = ["main"]
 
 DEFAULT_PRIVATE_CONFIG = "configs/team-default.toml"
+#: the console script (pyproject's [project.scripts]); ``python -m harness`` runs the same
+PROG = "levelfold"
 
 
 def _parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
-        prog="harness",
+        prog=PROG,
         description="Benchmark categorical encodings: datasets x encoders x models x folds -> evidence.",
     )
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     run = sub.add_parser("run", help="run a config (resumes: only missing cells are computed)")
-    run.add_argument("config", nargs="?", help="TOML config file")
-    run.add_argument("--data", help="a private CSV/Parquet file to use as the only dataset")
-    run.add_argument("--target", help="target column of --data")
-    run.add_argument("--config", dest="config_opt", help="config whose encoders, models and protocol --data uses")
-    run.add_argument("--alias", help="name of the --data dataset in every output (hides the file name)")
-    run.add_argument("--description", help="one-line description of the --data experiment for the report")
-    run.add_argument("--out", help="output directory (default results/<experiment name>; with --data, "
+    run.add_argument("config", nargs="?", metavar="CONFIG", help="TOML config file")
+    run.add_argument("--data", metavar="FILE", help="a private CSV/Parquet file to use as the only dataset")
+    run.add_argument("--target", metavar="COLUMN", help="target column of --data")
+    run.add_argument("--config", dest="config_opt", metavar="BASE_CONFIG",
+                     help="config whose encoders, models and protocol --data uses "
+                     f"(default {DEFAULT_PRIVATE_CONFIG})")
+    run.add_argument("--alias", metavar="NAME", help="name of the --data dataset in every output (hides the file name)")
+    run.add_argument("--description", metavar="TEXT",
+                     help="one-line description of the --data experiment for the report")
+    run.add_argument("--out", metavar="DIR", help="output directory (default results/<experiment name>; with --data, "
                      "results/private-<name>-<config hash>)")
-    run.add_argument("--jobs", type=int, help="parallel worker processes")
+    run.add_argument("--jobs", type=int, metavar="N", help="parallel worker processes")
     run.add_argument("--backend", choices=["local", "dask"], help="execution backend")
-    run.add_argument("--scheduler", help="Dask scheduler address (tcp://host:8786); none = local cluster")
+    run.add_argument("--scheduler", metavar="ADDRESS",
+                     help="Dask scheduler address (tcp://host:8786); none = local cluster")
     run.add_argument("--fresh", action="store_true", help="start over (the old store is kept as kept-N/, numbered)")
     run.add_argument("--retry-failed", action="store_true", help="also rerun cells recorded as failed, timeout or out-of-memory")
     run.add_argument("--only", metavar="PATTERN", help="only cells whose dataset/encoder/model label matches")
     run.add_argument("--dry-run", action="store_true", help="print the grid size and the cells, run nothing")
     run.add_argument("--quiet", action="store_true", help="no progress bar")
 
-    st = sub.add_parser("status", help="counts per status of a results directory")
-    st.add_argument("dir")
+    st = sub.add_parser("status", help="cells finished, missing and superseded, and counts per status, "
+                        "of a results directory")
+    st.add_argument("dir", metavar="DIR", help="a results directory (what `run --out` wrote)")
 
     ex = sub.add_parser("export", help="write the results table to CSV or Parquet")
-    ex.add_argument("dir")
+    ex.add_argument("dir", metavar="DIR", help="a results directory")
     ex.add_argument("--to", required=True, metavar="FILE", help="FILE.csv or FILE.parquet")
 
     sub.add_parser("list", help="encoder kinds, model families and bundled datasets")
 
     rep = sub.add_parser("report", help="write DIR/report/: report.md, report.html, figures, tables")
-    rep.add_argument("dir")
-    rep.add_argument("--compare", metavar="OTHER_DIR", help="show what changed against another run")
+    rep.add_argument("dir", metavar="DIR", help="the results directory to report on (with --compare: the run 'now')")
+    rep.add_argument("--compare", metavar="OTHER_DIR",
+                     help="an earlier run, the 'before': the report adds what changed from OTHER_DIR to DIR")
     rep.add_argument("--out", metavar="OUT_DIR", help="write OUT_DIR/report/ instead of DIR/report/ (e.g. DIR is read-only)")
 
     bench = sub.add_parser("bench", help="speed benchmarks that print ratios against a reference")
-    bench.add_argument("what", choices=["encoders", "runner", "scaling"])
+    bench.add_argument("what", choices=["encoders", "runner", "scaling", "tuning"])
     bench.add_argument("rest", nargs=argparse.REMAINDER, help="options passed to the benchmark")
     return p
 
@@ -121,7 +129,7 @@ def main(argv=None) -> int:
 def _internal_error(exc: BaseException) -> int:
     log = _write_traceback()
     _say(
-        f"internal error: {type(exc).__name__}: {exc}. This is a bug in harness, not in your input; "
+        f"internal error: {type(exc).__name__}: {exc}. This is a bug in {PROG}, not in your input; "
         f"finished cells are kept. The traceback is in {log}; please attach it to a bug report."
     )
     return 1
@@ -131,7 +139,7 @@ def _write_traceback() -> str:
     import tempfile
     import traceback
 
-    with tempfile.NamedTemporaryFile("w", prefix="harness-traceback-", suffix=".txt", delete=False) as fh:
+    with tempfile.NamedTemporaryFile("w", prefix=f"{PROG}-traceback-", suffix=".txt", delete=False) as fh:
         traceback.print_exc(file=fh)
         return fh.name
 
@@ -156,7 +164,8 @@ def _load_for_run(args):
         raise ConfigError("--alias and --description name a --data dataset; with a CONFIG, set `alias` in its "
                           "[datasets.<label>] table and `description` in [experiment].")
     if not args.config:
-        raise ConfigError("`harness run` needs a CONFIG file (e.g. configs/quickstart.toml) or --data FILE --target COLUMN.")
+        raise ConfigError(f"`{PROG} run` needs a CONFIG file (e.g. configs/quickstart.toml) "
+                          "or --data FILE --target COLUMN.")
     return load_config(args.config)
 
 

@@ -58,6 +58,11 @@ class EncoderInputError(HarnessError, ValueError):
 
 
 def closest(word: str, choices) -> str:
-    """Return ``" Did you mean 'x'?"`` for the closest of ``choices``, or ``""``."""
+    """Return ``" Closest match: 'x'."`` for the closest of ``choices``, or ``""``.
+
+    A whole sentence ending in a period, placed after the sentence that lists the allowed
+    values. A caller that wraps a message (``f"{str(exc).rstrip('.')}. Fix ..."``) then reads
+    "Closest match: 'x'. Fix ...", where a trailing question mark read "'x'?. Fix".
+    """
     match = difflib.get_close_matches(str(word), [str(c) for c in choices], n=1, cutoff=0.6)
-    return f" Did you mean '{match[0]}'?" if match else ""
+    return f" Closest match: '{match[0]}'." if match else ""

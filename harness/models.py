@@ -9,8 +9,8 @@ from __future__ import annotations
 
 import inspect
 import json
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Callable
 
 import numpy as np
 import scipy.sparse as sp
@@ -119,7 +119,7 @@ FAMILIES: dict[str, Family] = {
     "linear": Family(
         "linear",
         _seeded(LogisticRegression),
-        _seeded(Ridge, None),
+        _seeded(Ridge),  # the seed reaches the sag/saga solvers; others ignore it
         sparse=True,
         scaled=True,
         defaults={"classifier": {"max_iter": 2000, "C": 1.0}, "regressor": {"alpha": 1.0}},

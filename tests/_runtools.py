@@ -55,6 +55,27 @@ def write_config(path: Path, raw: dict) -> Path:
     return path
 
 
+def tiny_config(path: Path, *, name: str = "tiny", folds: int = 2, repeats: int | None = None,
+                n_rows: int = 60, cardinalities=(4,), encoders=None, models=None) -> Path:
+    """Write the tiny config the CLI, store and fault tests run, and return its path.
+
+    One invented synthetic binary dataset ``toy`` (``n_rows`` rows, one categorical column
+    per entry of ``cardinalities``), ``folds``-fold cross-validation, ``encoders`` as
+    ``{label: kind}`` (default ``codes`` = integer) and ``models`` as ``{label: {family,
+    params...}}`` (default ``lin`` = linear). ``repeats`` is written only when given.
+    """
+    protocol = {"folds": folds} if repeats is None else {"folds": folds, "repeats": repeats}
+    raw = {
+        "experiment": {"name": name},
+        "protocol": protocol,
+        "datasets": {"toy": {"source": "synthetic", "n_rows": n_rows,
+                             "cardinalities": list(cardinalities), "task": "binary"}},
+        "encoders": {label: {"kind": kind} for label, kind in (encoders or {"codes": "integer"}).items()},
+        "models": models or {"lin": {"family": "linear"}},
+    }
+    return write_config(Path(path), raw)
+
+
 def harness_cmd(*args) -> list[str]:
     return [sys.executable, "-m", "harness", *map(str, args)]
 

@@ -3,21 +3,14 @@
 from __future__ import annotations
 
 import pytest
+from _runtools import tiny_config
 
 from harness.cli import main
-
-TINY = (
-    '[experiment]\nname = "tiny"\n[protocol]\nfolds = 2\n'
-    '[datasets.toy]\nsource = "synthetic"\nn_rows = 60\ncardinalities = [4]\ntask = "binary"\n'
-    '[encoders.codes]\nkind = "integer"\n[models.lin]\nfamily = "linear"\n'
-)
 
 
 @pytest.fixture
 def tiny(tmp_path):
-    path = tmp_path / "tiny.toml"
-    path.write_text(TINY)
-    return str(path)
+    return str(tiny_config(tmp_path / "tiny.toml"))
 
 
 @pytest.mark.parametrize("args, pattern", [
@@ -68,16 +61,46 @@ def test_one_dataset_with_few_folds_warns_with_the_repeats_needed(tmp_path, caps
 
 
 def test_dry_run_lists_only_cells_to_compute_and_counts_the_rest(tmp_path, capsys):
-    config = tmp_path / "many.toml"
-    config.write_text(
-        '[experiment]\nname = "many"\n[protocol]\nfolds = 10\n'
-        '[datasets.toy]\nsource = "synthetic"\nn_rows = 200\ncardinalities = [4]\ntask = "binary"\n'
-        '[encoders.a]\nkind = "integer"\n[encoders.b]\nkind = "frequency"\n'
-        '[encoders.c]\nkind = "onehot"\n[models.lin]\nfamily = "linear"\n'
-        '[models.knn]\nfamily = "knn"\n')
+    config = tiny_config(tmp_path / "many.toml", name="many", folds=10, n_rows=200,
+                         encoders={"a": "integer", "b": "frequency", "c": "onehot"},
+                         models={"lin": {"family": "linear"}, "knn": {"family": "knn"}})
     assert main(["run", str(config), "--dry-run", "--out", str(tmp_path / "o")]) == 0
     out = capsys.readouterr().out.splitlines()
     todo = [line for line in out if line.startswith("  todo ")]
     assert "60 cells; 60 to compute" in out[0]
     assert len(todo) == 40 and out[-1] == "  ... and 20 more to compute (finished cells are not listed)"
     assert not any(line.startswith("  done ") for line in out)
+
+
+def _help(capsys, *args) -> str:
+    with pytest.raises(SystemExit) as info:
+        main([*args, "--help"])
+    assert info.value.code == 0
+    return " ".join(capsys.readouterr().out.split())
+
+
+def test_run_help_shows_readable_metavars(capsys):
+    text = _help(capsys, "run")
+    assert "usage: levelfold run" in text
+    assert "CONFIG_OPT" not in text and "--config BASE_CONFIG" in text
+    assert "--data FILE" in text and "--target COLUMN" in text and "--out DIR" in text
+
+
+def test_report_help_says_which_run_is_before(capsys):
+    text = _help(capsys, "report")
+    assert "--compare OTHER_DIR" in text
+    assert "an earlier run, the 'before': the report adds what changed from OTHER_DIR to DIR" in text
+    assert "(with --compare: the run 'now')" in text
+
+
+def test_console_script_is_levelfold_and_the_version_has_one_source():
+    # the installed distribution (pyproject.toml): PyPI's `harness` is another project
+    from importlib import metadata
+
+    import harness
+    from harness.cli import PROG
+
+    scripts = {e.name: e.value for e in metadata.entry_points(group="console_scripts")}
+    assert PROG == "levelfold" and scripts.get("levelfold") == "harness.cli:main"
+    assert "harness" not in scripts, "stale metadata of the old name: rerun `make` (it removes it)"
+    assert metadata.version("levelfold") == harness.__version__

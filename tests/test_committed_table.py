@@ -6,20 +6,18 @@ from __future__ import annotations
 
 import pandas as pd
 import pytest
-from _runtools import RESULT_COLUMNS, run
+from _runtools import RESULT_COLUMNS, run, tiny_config
 
-TINY = (
-    '[experiment]\nname = "tiny"\n[protocol]\nfolds = 2\n'
-    '[datasets.toy]\nsource = "synthetic"\nn_rows = 120\ncardinalities = [4, 9]\ntask = "binary"\n'
-    '[encoders.codes]\nkind = "integer"\n[encoders.freq]\nkind = "frequency"\n'
-    '[models.lin]\nfamily = "linear"\n'
-)
+ENCODERS = {"codes": "integer", "freq": "frequency"}
+
+
+def _config(path, encoders=ENCODERS):
+    return tiny_config(path, n_rows=120, cardinalities=(4, 9), encoders=encoders)
 
 
 def _shipped(tmp_path):
     """A finished run with its store removed: what a repository commits."""
-    config = tmp_path / "tiny.toml"
-    config.write_text(TINY)
+    config = _config(tmp_path / "tiny.toml")
     out = tmp_path / "sample"
     assert run("run", config, "--out", out, "--quiet").returncode == 0
     for p in out.glob("results.sqlite*"):
@@ -50,7 +48,7 @@ def test_a_run_starts_its_store_from_the_table_and_computes_only_new_cells(tmp_p
     before = pd.read_parquet(out / "results.parquet").set_index("cell_id").sort_index()
     dry = run("run", config, "--out", out, "--dry-run")
     assert dry.returncode == 0 and "0 to compute, 4 already" in dry.stdout, dry.stdout
-    config.write_text(TINY + '[encoders.hot]\nkind = "onehot"\n')
+    _config(config, {**ENCODERS, "hot": "onehot"})
     dry = run("run", config, "--out", out, "--dry-run")
     assert "2 to compute, 4 already" in dry.stdout, dry.stdout
     done = run("run", config, "--out", out, "--quiet")

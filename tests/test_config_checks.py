@@ -30,8 +30,21 @@ def test_lightgbm_documented_names_and_aliases_pass(params):
 
 
 def test_lightgbm_typo_is_refused_with_the_closest_name():
-    with pytest.raises(ConfigError, match="no parameter 'n_estimator'.*Did you mean 'n_estimators'"):
+    with pytest.raises(ConfigError, match="no parameter 'n_estimator'.*Closest match: 'n_estimators'"):
         parse_config(_raw({"family": "lightgbm", "n_estimator": 50}))
+
+
+@pytest.mark.parametrize("encoder, hint", [
+    ({"kind": "target", "crossfit": "kfolds"}, "'kfold'"),  # a value outside the rules
+    ({"kind": "target", "smoothin": "m-estimate"}, "'smoothing'"),  # an unknown parameter
+])
+def test_encoder_typo_hint_reads_as_sentences(encoder, hint):
+    # the hint is wrapped by "... Fix the value of that key."; it once read "'kfold'?. Fix"
+    with pytest.raises(ConfigError) as info:
+        parse_config(_raw(encoder=encoder))
+    text = str(info.value)
+    assert f"Closest match: {hint}. Fix the value of that key." in text
+    assert "?." not in text and ".." not in text
 
 
 @pytest.mark.parametrize("family, key, value", [("mlp", "alpha", -1.0), ("knn", "n_neighbors", 0), ("svm", "C", "x"), ("boosting", "max_iter", "many")])

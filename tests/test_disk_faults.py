@@ -20,7 +20,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from _runtools import CONFIGS, assert_clean_refusal, integrity, run
+from _runtools import CONFIGS, assert_clean_refusal, integrity, run, tiny_config
 from harness.grid import SCHEMA_VERSION
 from harness.store import Store, read_results
 
@@ -85,18 +85,9 @@ def _mounted(target, *how):
 
 needs_root = pytest.mark.skipif(os.geteuid() != 0 or shutil.which("mount") is None, reason="needs root to mount")
 
-TINY_RUN = (
-    '[experiment]\nname = "tiny"\n[protocol]\nfolds = 2\n'
-    '[datasets.toy]\nsource = "synthetic"\nn_rows = 120\ncardinalities = [4, 9]\ntask = "binary"\n'
-    '[encoders.codes]\nkind = "integer"\n[encoders.freq]\nkind = "frequency"\n'
-    '[models.lin]\nfamily = "linear"\n'
-)
-
-
 def _tiny_config(tmp_path, repeats: int = 1):
-    path = tmp_path / f"tiny{repeats}.toml"
-    path.write_text(TINY_RUN.replace("folds = 2\n", f"folds = 2\nrepeats = {repeats}\n"))
-    return path
+    return tiny_config(tmp_path / f"tiny{repeats}.toml", repeats=repeats, n_rows=120,
+                       cardinalities=(4, 9), encoders={"codes": "integer", "freq": "frequency"})
 
 
 def _snapshot(directory) -> dict:

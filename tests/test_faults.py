@@ -29,6 +29,7 @@ from _runtools import (
     results_by_cell,
     run,
     start,
+    tiny_config,
     wait_for_rows,
 )
 from harness.cli import main
@@ -139,7 +140,7 @@ def test_forked_child_does_not_keep_the_run_lock(tmp_path):
     child = psutil.Process(int(done.stdout.split()[0]))
     try:
         assert child.is_running()
-        Store(tmp_path).close()  # would raise "another `harness run` is writing" before the fix
+        Store(tmp_path).close()  # would raise "another `levelfold run` is writing" before the fix
     finally:
         child.kill()
 
@@ -184,7 +185,7 @@ def test_second_run_on_same_directory_is_refused(tmp_path):
     status = run("status", out)  # a reader needs no lock, even mid-run
     assert first.poll() is None, "the first run ended too early to test the lock"
     flat = assert_clean_refusal(second, code=3)
-    assert f"another `harness run` is writing to {out}" in flat and "pass a different --out" in flat
+    assert f"another `levelfold run` is writing to {out}" in flat and "pass a different --out" in flat
     assert status.returncode == 0 and "rows" in status.stdout, status.stderr
     stdout, stderr = first.communicate(timeout=600)
     assert first.returncode == 0, stderr
@@ -333,13 +334,7 @@ DAMAGE = {
 
 
 def _tiny_config(tmp_path):
-    path = tmp_path / "tiny.toml"
-    path.write_text(
-        '[experiment]\nname = "tiny"\n[protocol]\nfolds = 2\n'
-        '[datasets.toy]\nsource = "synthetic"\nn_rows = 80\ncardinalities = [4]\ntask = "binary"\n'
-        '[encoders.codes]\nkind = "integer"\n[models.lin]\nfamily = "linear"\n'
-    )
-    return path
+    return tiny_config(tmp_path / "tiny.toml", n_rows=80)
 
 
 @pytest.mark.parametrize("damage", list(DAMAGE))

@@ -1,4 +1,4 @@
-"""`harness run --data FILE`: alias and description, no absolute path in any output, and a
+"""`levelfold run --data FILE`: alias and description, no absolute path in any output, and a
 default output directory of its own per config hash."""
 
 from __future__ import annotations

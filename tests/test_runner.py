@@ -7,6 +7,7 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
+from _runtools import tiny_config
 
 from harness.cli import main
 from harness.config import parse_config
@@ -116,14 +117,7 @@ def test_encode_once_per_unit(monkeypatch, tmp_path):
 
 
 def test_cli_run_dry_run_status_export(tmp_path, capsys):
-    import tomllib  # noqa: F401 - the config below is written as TOML text
-
-    cfg = tmp_path / "tiny.toml"
-    cfg.write_text(
-        '[experiment]\nname = "tiny"\n[protocol]\nfolds = 2\n'
-        '[datasets.toy]\nsource = "synthetic"\nn_rows = 120\ncardinalities = [5]\ntask = "binary"\n'
-        '[encoders.codes]\nkind = "integer"\n[models.lin]\nfamily = "linear"\n'
-    )
+    cfg = tiny_config(tmp_path / "tiny.toml", n_rows=120, cardinalities=(5,))
     out = tmp_path / "out"
     assert main(["run", str(cfg), "--out", str(out), "--dry-run"]) == 0
     assert "1 datasets x 1 encoders x 1 models x 1 repeats x 2 folds = 2 cells; 2 to compute" in capsys.readouterr().out

@@ -165,7 +165,7 @@ class _Future:
 def _unit(key, limit_s=2.0, done=False):
     """A future and its job: encoding and two model cells under ``limit_s`` each (3 x limit_s)."""
     cell = SimpleNamespace(model=SimpleNamespace(cell_timeout_s=None))
-    return _Future(key, done), ("data", SimpleNamespace(timeout_s=limit_s, cells=(cell, cell)))
+    return _Future(key, done), ("data", SimpleNamespace(timeout_s=limit_s, cells=(cell, cell), fits_per_cell=1))
 
 
 @pytest.fixture

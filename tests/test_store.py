@@ -33,7 +33,7 @@ def test_write_resume_and_read(tmp_path):
 
 def test_second_writer_is_refused(tmp_path):
     with Store(tmp_path):
-        with pytest.raises(StoreError, match="another `harness run` is writing"):
+        with pytest.raises(StoreError, match="another `levelfold run` is writing"):
             Store(tmp_path)
     Store(tmp_path).close()  # released on close
 
@@ -129,8 +129,21 @@ def test_the_lock_is_on_the_directory_not_on_a_deletable_file(tmp_path):
     with Store(tmp_path):
         for p in tmp_path.glob(".*"):
             p.unlink()  # whatever a user might take for a stale lock file
-        with pytest.raises(StoreError, match="another `harness run` is writing"):
+        with pytest.raises(StoreError, match="another `levelfold run` is writing"):
             Store(tmp_path)
+
+
+def test_a_finished_run_leaves_no_lock_file(tmp_path):
+    # the lock is the OS lock on the directory: nothing like `.run.lock` stays behind
+    before = set()
+    with Store(tmp_path) as store:
+        store.write(_rows(2))
+        before = {p.name for p in tmp_path.iterdir()}
+    after = {p.name for p in tmp_path.iterdir()}
+    assert not [n for n in before | after if "lock" in n]
+    assert after <= {"results.sqlite", "results.sqlite-wal", "results.sqlite-shm"}
+    with Store(tmp_path):  # and the next writer takes it at once
+        pass
 
 
 def test_a_store_missing_a_column_is_refused(tmp_path):

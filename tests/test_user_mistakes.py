@@ -11,16 +11,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from _runtools import tiny_config
 
 from harness.cli import main
 from harness.grid import SCHEMA_VERSION
 from harness.store import Store
-
-TINY = (
-    '[experiment]\nname = "tiny"\n[protocol]\nfolds = 2\n'
-    '[datasets.toy]\nsource = "synthetic"\nn_rows = 60\ncardinalities = [4]\ntask = "binary"\n'
-    '[encoders.codes]\nkind = "integer"\n[models.lin]\nfamily = "linear"\n'
-)
 
 
 def _refused(capsys, argv, pattern, code=2) -> str:
@@ -34,9 +29,7 @@ def _refused(capsys, argv, pattern, code=2) -> str:
 
 @pytest.fixture
 def tiny(tmp_path):
-    path = tmp_path / "tiny.toml"
-    path.write_text(TINY)
-    return path
+    return tiny_config(tmp_path / "tiny.toml")
 
 
 @pytest.fixture
@@ -73,7 +66,7 @@ def test_export_to_an_unwritable_path(finished, tmp_path, capsys):
 
 def test_report_without_a_manifest(finished, capsys):
     (finished / "manifest.json").unlink()
-    _refused(capsys, ["report", finished], r"has a results store but no manifest.json.*Rerun `harness run CONFIG --out")
+    _refused(capsys, ["report", finished], r"has a results store but no manifest.json.*Rerun `levelfold run CONFIG --out")
 
 
 def test_store_missing_a_column_is_a_store_problem(tmp_path, capsys):

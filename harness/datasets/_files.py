@@ -31,7 +31,9 @@ def _read(path: str, delimiter: str) -> pd.DataFrame:
             "it or give it its own suffix; if it is a CSV in another encoding, save it as UTF-8."
         ) from None
     except pd.errors.EmptyDataError:
-        raise DataError(f"the file at `path` = '{path}' is empty: no header, no rows. Point `path` at the data file.") from None
+        raise DataError(
+            f"the file at `path` = '{path}' is empty: no header, no rows. Point `path` at the data file."
+        ) from None
     except (OSError, ValueError, ImportError) as e:
         raise DataError(
             f"cannot read the file at `path` = '{path}': {type(e).__name__}: {e}. "

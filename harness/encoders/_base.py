@@ -32,7 +32,6 @@ __all__ = [
     "as_frame",
     "factorised",
     "looked_up",
-    "normalize_column",
     "raw_codes",
 ]
 
@@ -58,34 +57,6 @@ def as_frame(X) -> pd.DataFrame:
             f"{arr.ndim} dimension(s). Reshape your data with X.reshape(-1, 1) for a single feature."
         )
     return pd.DataFrame(arr, columns=[f"x{j}" for j in range(arr.shape[1])], copy=False)
-
-
-def is_mixed(s: pd.Series) -> bool:
-    """True for an object column whose non-missing values are of more than one type."""
-    if s.dtype != object:
-        return False
-    present = s[s.notna()].array[:100_000]
-    kinds = {type(v) for v in present}
-    return len(kinds) > 1 or bool(kinds and not kinds <= {str, bool, int, float})
-
-
-def normalize_column(s: pd.Series, force_str: bool = False) -> pd.Series:
-    """Make one column hashable and consistently typed.
-
-    Object columns mixing types (``1`` and ``"1"``, ints and strings) become strings so
-    that one level is one value; homogeneous columns (strings, numbers, bools) are left
-    as they are so that numeric levels keep numeric order. Category dtype is unwrapped
-    to its values (levels are learnt from data, not from the declared categories).
-    ``force_str`` stringifies any non-string column (used at transform when the column
-    was stringified at fit, so a fold that happens to hold only ints still matches).
-    """
-    if isinstance(s.dtype, pd.CategoricalDtype):
-        s = s.astype(s.dtype.categories.dtype if len(s.dtype.categories) else object)
-    if (force_str or is_mixed(s)) and not pd.api.types.is_string_dtype(s.dtype):
-        s = s.astype(object).where(s.isna(), s.astype(str))
-    elif (force_str or is_mixed(s)) and s.dtype == object:
-        s = s.where(s.isna(), s.astype(str))
-    return s
 
 
 class CategoricalEncoder(TransformerMixin, BaseEstimator):
@@ -195,12 +166,12 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
                     f"X has {frame.shape[1]} features, but {type(self).__name__} is expecting "
                     f"{self.n_features_in_} features as input."
                 )
-            if isinstance(X, pd.DataFrame) and hasattr(self, "feature_names_in_"):
-                if not np.array_equal(names, self.feature_names_in_):
-                    raise ValueError(
-                        "The feature names should match those that were passed during fit; "
-                        f"got {list(names)}, expected {list(self.feature_names_in_)}."
-                    )
+            named = isinstance(X, pd.DataFrame) and hasattr(self, "feature_names_in_")
+            if named and not np.array_equal(names, self.feature_names_in_):
+                raise ValueError(
+                    "The feature names should match those that were passed during fit; "
+                    f"got {list(names)}, expected {list(self.feature_names_in_)}."
+                )
         return frame
 
     def _input_names(self) -> np.ndarray:

@@ -30,7 +30,7 @@ from sklearn.utils.validation import (
     column_or_1d,
 )
 
-from harness.encoders import _crossfit
+import harness.encoders._crossfit as _crossfit
 from harness.encoders._base import CategoricalEncoder
 from harness.encoders._rules import Interval, Nothing, Options, Seed, Splitter
 from harness.encoders._supervised import TARGET_TYPES, _SupervisedLevels

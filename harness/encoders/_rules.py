@@ -9,7 +9,7 @@ An invalid value raises :class:`ParameterError`, which is both the project's
 
 Message wording (the only one)::
 
-    <Class>: parameter '<name>' must be <rule> or <rule>; got <value!r>.[ Did you mean 'x'?]
+    <Class>: parameter '<name>' must be <rule> or <rule>; got <value!r>.[ Closest match: 'x'.]
 """
 
 from __future__ import annotations

@@ -3,7 +3,7 @@
 ``TargetStatistics`` (``_target.py``) and ``RandomInterceptCodes`` (``_glmm.py``) read
 the target the same way (type, classes, indicator columns), treat a missing value the
 same way (an extra last level, or none) and cross-fit with the same fold builders of
-``_crossfit.py``; ``_SupervisedLevels`` holds that once. Error messages name the class
+``_folds.py``; ``_SupervisedLevels`` holds that once. Error messages name the class
 of the encoder that raised them.
 """
 
@@ -17,8 +17,15 @@ from sklearn.model_selection import KFold
 from sklearn.utils.multiclass import type_of_target
 from sklearn.utils.validation import check_array
 
-from harness.encoders import _crossfit
 from harness.encoders._base import MISSING
+from harness.encoders._folds import (
+    folds_from_splits,
+    group_folds,
+    group_holdout,
+    holdout_folds,
+    kfold_folds,
+    random_folds,
+)
 from harness.errors import EncoderInputError
 
 TARGET_TYPES = ("auto", "binary", "multiclass", "continuous")
@@ -38,10 +45,7 @@ def _target_kind(y, requested: str, name: str):
         If the target is not binary, multiclass or continuous, or has missing labels.
     """
     if requested == "continuous" or (
-        requested == "auto"
-        and y.dtype.kind == "f"
-        and np.all(np.isfinite(y))
-        and np.any(y != np.trunc(y))
+        requested == "auto" and y.dtype.kind == "f" and np.all(np.isfinite(y)) and np.any(y != np.trunc(y))
     ):
         return "continuous", None, None
     codes, uniques = _factorize(y)
@@ -112,18 +116,18 @@ class _SupervisedLevels:
     def _folds(self, frame, y, classes, rng, groups=None):
         """Fold of each row and number of folds (``None`` when ``crossfit`` builds none)."""
         if self.crossfit == "holdout" and groups is not None:
-            return _crossfit.group_holdout(groups, self.holdout_fraction, rng), 2
+            return group_holdout(groups, self.holdout_fraction, rng), 2
         if self.crossfit == "holdout":
-            return _crossfit.holdout_folds(len(y), self.holdout_fraction, rng), 2
+            return holdout_folds(len(y), self.holdout_fraction, rng), 2
         if self.crossfit in self._unfolded:
             return None
         if isinstance(self.cv, Integral) and groups is not None:
-            return _crossfit.group_folds(groups, int(self.cv), rng)
+            return group_folds(groups, int(self.cv), rng)
         if isinstance(self.cv, Integral):
-            return _crossfit.random_folds(len(y), int(self.cv), rng, classes), int(self.cv)
+            return random_folds(len(y), int(self.cv), rng, classes), int(self.cv)
         if type(self.cv) is KFold and groups is None:
-            return _crossfit.kfold_folds(len(y), self.cv), self.cv.n_splits
-        return _crossfit.folds_from_splits(self.cv.split(frame, y, groups), len(y))
+            return kfold_folds(len(y), self.cv), self.cv.n_splits
+        return folds_from_splits(self.cv.split(frame, y, groups), len(y))
 
     def _groups(self, groups, n_rows: int):
         """``groups`` as codes ``0..G-1``, or ``None``; see ``_group_codes``."""

@@ -22,7 +22,7 @@ from sklearn.utils.validation import (
     column_or_1d,
 )
 
-from harness.encoders import _crossfit
+import harness.encoders._crossfit as _crossfit
 from harness.encoders._base import CategoricalEncoder
 from harness.encoders._rules import Interval, Nothing, Options, Seed, Splitter
 from harness.encoders._supervised import TARGET_TYPES, _SupervisedLevels
@@ -157,7 +157,7 @@ class TargetStatistics(_SupervisedLevels, CategoricalEncoder):
         by ``fit_transform`` (never to ``transform``).
     holdout_fraction : float in (0, 1), default=0.5
         Under ``crossfit="holdout"``, the share of rows in the first of the two random
-        parts; each part is encoded from the other (``_crossfit.holdout_folds``).
+        parts; each part is encoded from the other (``_folds.holdout_folds``).
     missing : {"category", "prior"}, default="category"
         A missing value is a level of its own with its own smoothed statistic (as
         scikit-learn, and as every other encoder here by default), or gets the prior.

@@ -51,7 +51,8 @@ def decision_sentence(d: stats.Decision, a) -> str:
     head = (f"**{d.model}** ({family(a.run, d.model)}), judged on {metric_name(d.metric)} "
             f"over {d.n_datasets} dataset(s) against the reference **{d.reference}**")
     if not d.choice:
-        return f"{head}: **no choice** — no encoder has a score for this model."
+        return (f"**{d.model}** ({family(a.run, d.model)}), judged on {metric_name(d.metric)}: "
+                "**no choice** — no encoder has a score for this model.")
     t = d.table
     if d.switch:
         names = " or ".join(f"**{c}**" for c in d.choice)
@@ -182,7 +183,8 @@ def _decision_tables(a, root: Path) -> list:
     out += figure(lambda: figures.delta_plot(a.headline), root, "decision_effects",
                   f"Effect of each candidate against its reference with simultaneous one-sided "
                   f"bounds (α = {a.rule.alpha:g} shared over the candidates of each Holm "
-                  f"family); the dashed line is the margin −{pct(a.rule.margin, False)}; marker shapes give the verdict.",
+                  f"family); the dashed line is the margin −{pct(a.rule.margin, False)}; "
+                  "marker shapes give the verdict.",
                   "decision effects")
     return out
 

@@ -1,4 +1,4 @@
-"""The section on what changed against another run (``harness report --compare``)."""
+"""The section on what changed against another run (``levelfold report --compare``)."""
 
 from __future__ import annotations
 

@@ -27,7 +27,8 @@ def _heatmaps(a, root: Path) -> list:
             f"Per-dataset shortfall of each encoder from the best eligible one for {model}, "
             "in percent of that score on the dataset's primary metric (excluded settings "
             "are measured against it too; a negative value means an excluded setting scores "
-            "above every eligible one); datasets ordered by largest cardinality.",
+            "above every eligible one). "
+            + figures.heatmap_note(*a.bands, lines=a.regimes.nunique() > 1).replace("\n", " "),
             f"heatmap {model}")
     return out
 
@@ -62,11 +63,25 @@ def _main_tables(a, root: Path) -> list:
                      "exploratory."))
     out += _means_tables(a, root)
     out.append(Heading("Cost", 3))
-    cost = a.cost[["encoder", "model", "encoder_s", "model_fit_s", "total_s",
-                   "n_features_out", "encoded_mb", "n_rows"]]
-    out.append(table(cost, root, "cost", "Median cost per fold: seconds to encode, to fit "
-                     "the model, both; output features; encoded megabytes; cells counted."))
+    cost = a.cost[["encoder", "model", *stats.COST_PARTS, "total_s", "n_features_out",
+                   "encoded_mb", "n_cells"]]
+    out.append(table(cost, root, "cost", cost_caption()))
     return out
+
+
+#: what each part of ``stats.COST_PARTS`` measures, for the cost table's caption
+COST_PART_TEXT = {"encoder_s": "seconds to encode (fit and transform)",
+                  "model_fit_s": "seconds to fit the model"}
+
+
+def cost_caption() -> str:
+    """The cost table's caption: what every column holds and how total_s is made."""
+    parts = [f"{p} {COST_PART_TEXT.get(p, 'seconds')}" for p in stats.COST_PARTS]
+    return ("Cost per fold of each encoder and model, medians over its scored cells: "
+            + "; ".join(parts) + f"; total_s = {' + '.join(stats.COST_PARTS)}. "
+            "n_features_out: columns the encoder outputs (the middle fold, or the lower of "
+            "the two middle ones); encoded_mb: megabytes of the encoded training fold; "
+            "n_cells: scored cells the medians are over.")
 
 
 def friedman_sentence(comps) -> str:
@@ -107,7 +122,8 @@ def results_section(a, root: Path) -> list:
                   "that is not evidence that they are equivalent (the decision above tests "
                   "that).", "critical difference groups")
     out += figure(lambda: figures.cost_plot(comps, a.cost), root, "score_vs_cost",
-                  "Average rank against median encoder + model-fit seconds per fold (log "
-                  "scale); filled triangles form the Pareto front.", "score versus cost")
+                  "Average rank against seconds per fold (total_s of the cost table: the "
+                  "median times to encode and to fit the model, added; log scale); filled "
+                  "triangles form the Pareto front.", "score versus cost")
     out += _heatmaps(a, root)
     return out + _main_tables(a, root)

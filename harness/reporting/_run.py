@@ -84,11 +84,11 @@ def main_regime(results: pd.DataFrame, manifest: dict) -> str:
 
 def split_run(run):
     """``run`` with ``results`` cut to its main regime (``all_results`` keeps every row)."""
-    if "regime" not in run.results:
-        return replace(run, all_results=run.results)
-    regime = main_regime(run.results, run.manifest)
-    return replace(run, results=run.results[run.results["regime"] == regime], all_results=run.results,
-                   regime=regime)
+    # a row without a regime (a table written before tuning existed) ran untuned
+    rows = run.results.assign(regime=run.results["regime"].fillna(DEFAULT_REGIME)
+                              if "regime" in run.results else DEFAULT_REGIME)
+    regime = main_regime(rows, run.manifest)
+    return replace(run, results=rows[rows["regime"] == regime], all_results=rows, regime=regime)
 
 
 

@@ -78,13 +78,18 @@ def _change_sentence(model: str, decs: dict, regimes: list) -> str:
     per = {r: decs[(model, r)] for r in regimes if (model, r) in decs}
     choices = {r: " or ".join(d.choice) or "none" for r, d in per.items()}
     listed = "; ".join(f"{r}: **{c}**" for r, c in choices.items())
+    moved = [e for e in _encoders(per) if len({_verdict(d, e) for d in per.values()}) > 1]
+    tail = "" if not moved else " Verdicts that differ between regimes: " + "; ".join(
+        f"{e} " + ", ".join(f"{_verdict(d, e)} ({_effect(d, e)}) under {r}" for r, d in per.items())
+        for e in moved) + "."
     if len(set(choices.values())) == 1:
-        verdict_change = [e for e in _encoders(per) if len({_verdict(d, e) for d in per.values()}) > 1]
-        tail = ("" if not verdict_change else
-                f" The verdicts of {', '.join(verdict_change)} differ between regimes (table above).")
         return f"**{model}**: the choice is the same under every regime ({listed}).{tail}"
     return (f"**{model}**: the choice **changes** with tuning ({listed}). A default chosen without "
-            "tuning does not carry over to a tuned model; cite the regime the team will deploy.")
+            f"tuning does not carry over to a tuned model; cite the regime the team will deploy.{tail}")
+
+
+def _effect(d: stats.Decision, encoder: str) -> str:
+    return pct(d.table.loc[encoder, "effect"]) if encoder in d.table.index else "n/a"
 
 
 def _encoders(per: dict) -> list:

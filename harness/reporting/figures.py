@@ -11,7 +11,7 @@ Figures
 rank_plot         average rank per encoder with bootstrap whiskers, a panel per model
 cd_diagram        Nemenyi groups of the average ranks (Demšar 2006), a panel per model
 delta_plot        each candidate's effect against the reference, margin and verdicts
-cost_plot         average rank against median seconds (log), Pareto front marked
+cost_plot         average rank against seconds per fold (log), Pareto front marked
 relative_heatmap  per-dataset shortfall from the best encoder, datasets by cardinality
 leakage_plot      optimism gap (train minus test) per encoder setting, flags marked
 """
@@ -37,7 +37,7 @@ from harness.reporting._figbase import (ACCENT, INK, LIGHT, MID, STYLE, NothingT
 from harness.reporting._figdecision import cd_diagram, cliques, delta_plot, rank_plot
 
 __all__ = ["NothingToPlot", "rank_plot", "cd_diagram", "delta_plot", "cost_plot",
-           "relative_heatmap",
+           "relative_heatmap", "heatmap_note",
            "leakage_plot", "shortfall_matrix", "pareto_front", "cliques", "place_labels",
            "save"]
 
@@ -155,7 +155,7 @@ def _cost_panel(ax, comp, cost: pd.DataFrame, model_column: str):
     ax.yaxis.set_major_locator(matplotlib.ticker.MaxNLocator(integer=True))
     ax.grid(color=LIGHT, lw=0.6)
     ax.set_axisbelow(True)
-    ax.set_xlabel("median seconds per fold, encoder + model fit (log scale; left is cheaper)")
+    ax.set_xlabel("seconds per fold: median encoding + median model fit (log scale; left is cheaper)")
     ax.set_ylabel("average rank (up is better)")
     ax.set_title(f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · "
                  f"{comp.matrix.n_datasets} dataset(s)", loc="left")
@@ -164,7 +164,7 @@ def _cost_panel(ax, comp, cost: pd.DataFrame, model_column: str):
 
 def cost_plot(comparisons, cost: pd.DataFrame, *, model_column: str = "model",
               ncols: int = 2):
-    """Average rank against median encoder+model seconds, with the Pareto front.
+    """Average rank against seconds per fold (``total_s``), with the Pareto front.
 
     Parameters
     ----------
@@ -191,7 +191,7 @@ def cost_plot(comparisons, cost: pd.DataFrame, *, model_column: str = "model",
                           label="dominated"),
                    Line2D([], [], color=MID, lw=0.9, label="95% bootstrap interval of the rank")]
         fig.legend(handles=handles, loc="outside lower center", ncols=3, frameon=False)
-        fig.suptitle("Quality against cost: average rank versus median seconds per fold "
+        fig.suptitle("Quality against cost: average rank versus seconds per fold "
                      "(best corner: top left)", fontweight="bold", fontsize=10.5)
         fig.canvas.draw()  # settle the layout, then freeze it so labels can be measured
         fig.set_layout_engine("none")
@@ -292,9 +292,19 @@ def relative_heatmap(results: pd.DataFrame, model: str, *, low: int = 10, high: 
         bar = fig.colorbar(img, ax=ax, shrink=0.8, pad=0.02)
         bar.set_label("% worse than the best eligible encoder")
         fig.suptitle(f"{model}: % shortfall from the best eligible encoder on each dataset\n"
-                     "(lighter is better; rows by largest cardinality; lines split regimes; "
-                     "— = no score)", fontweight="bold", fontsize=9.5)
+                     "(lighter is better; — = no score)", fontweight="bold", fontsize=9.5)
+        fig.supxlabel(heatmap_note(low, high, lines=len(changes) > 0), fontsize=8, color=MID)
     return fig
+
+
+def heatmap_note(low: int, high: int, *, lines: bool = True) -> str:
+    """The heatmap's footnote: how rows are ordered and what a horizontal line means."""
+    text = ("Rows are ordered by each dataset's largest number of levels in one categorical "
+            "column, fewest at the top.")
+    if lines:
+        text += (f"\nA horizontal line separates datasets with fewer than {low}, {low} to {high}, "
+                 f"and more than {high} levels.")
+    return text
 
 
 # ------------------------------------------------------------------------------ leakage

@@ -1,4 +1,4 @@
-"""The report writer: ``harness report DIR [--compare OTHER]`` -> ``DIR/report/``.
+"""The report writer: ``levelfold report DIR [--compare OTHER]`` -> ``DIR/report/``.
 
 Order of the report: the answer (a decision per model with its evidence and caveats), a
 methods paragraph generated from the manifest (this module), figures and tables, the
@@ -24,13 +24,14 @@ from harness.reporting import _bib
 from harness.reporting._analysis import Analysis, analyse
 from harness.reporting._answer import answer_section
 from harness.reporting._compare import compare_section
-from harness.reporting._html import Bullets, Heading, Para, Table, to_html, to_markdown
+from harness.reporting._html import Bullets, Heading, Note, Para, Table, to_html, to_markdown
 from harness.reporting._leakage import leakage_section
 from harness.reporting._references import references_section
 from harness.reporting._results import results_section
 from harness.reporting._robustness import robustness_section
 from harness.reporting._run import Run, load_run
 from harness.reporting._status import status_section
+from harness.reporting._tuning import tuning_section
 from harness.reporting.tables import metric_name
 from harness._outputs import swap_in_dir
 from harness.store import describe_set_aside
@@ -110,6 +111,31 @@ def _policy_text(man: dict) -> str:
     return text
 
 
+#: how the Software sentence names a manifest's package keys (the import package `harness`
+#: is installed as the distribution levelfold)
+SOFTWARE_NAMES = {"harness": "levelfold"}
+
+
+def _primary_metric_text(results: pd.DataFrame) -> str:
+    """The primary-metric sentence, from the scored rows: one metric, or one per task kind."""
+    ok = stats.ok_rows(results)
+    kind = ok["task"].where(ok["task"] == "regression", "classification")
+    by_kind = {k: " or ".join(metric_name(m) for m in sorted(g.dropna().unique()))
+               for k, g in ok["primary_metric"].groupby(kind, sort=True)}  # at most two kinds
+    by_kind = {k: v for k, v in by_kind.items() if v}
+    if not by_kind:
+        return "No cell produced a score, so no primary metric was computed."
+    names = set(by_kind.values())
+    if len(names) == 1:
+        text = f"The primary metric was {names.pop()}"
+    else:
+        text = ("Each dataset was scored on the primary metric of its task: "
+                + " and ".join(f"{m} for {k}" for k, m in by_kind.items()))
+    if "roc_auc" in set(ok["primary_metric"]) and (ok["task"] == "multiclass").any():
+        text += " (ROC AUC: macro one-vs-rest average for multiclass targets)"
+    return text + "."
+
+
 def _methods_text(a: Analysis) -> str:
     man = a.run.manifest
     ds = man.get("datasets", {})
@@ -123,14 +149,8 @@ def _methods_text(a: Analysis) -> str:
     mod = "; ".join(f"{lab} ({s.get('family')}: {_params(s, 'family')})"
                     for lab, s in (man.get("models") or {}).items())
     pk = man.get("packages") or {}
-    soft = ", ".join(f"{k} {v}" for k, v in pk.items() if v and k in
+    soft = ", ".join(f"{SOFTWARE_NAMES.get(k, k)} {v}" for k, v in pk.items() if v and k in
                      ("python", "harness", "numpy", "pandas", "scipy", "scikit-learn", "lightgbm"))
-    own = [metric_name(m) for m in a.metrics if m != stats.POOLED]
-    if stats.POOLED in a.metrics:  # mixed tasks: each dataset is judged on its own metric
-        mets = "each dataset's own: " + " for classification, ".join(own[:2]) + (
-            " for regression" if len(own) >= 2 else "") + (f" (also {', '.join(own[2:])})" if own[2:] else "")
-    else:
-        mets = " and ".join(own) or "the primary metric"
     low, high = a.bands
     return (
         f"We compared {len(man.get('encoders') or {})} categorical encodings ({enc}) with "
@@ -138,8 +158,8 @@ def _methods_text(a: Analysis) -> str:
         f"Each dataset × encoder × model was evaluated by {_protocol_text(man)}. "
         f"{_grouping_text(man)}"
         f"{_policy_text(man)}"
-        f"{describe_set_aside(a.run.set_aside) + ' ' if a.run.set_aside else ''}The primary "
-        f"metric was {mets} (ROC AUC: macro one-vs-rest average for multiclass targets). "
+        f"{describe_set_aside(a.run.set_aside) + ' ' if a.run.set_aside else ''}"
+        f"{_primary_metric_text(a.run.results)} "
         f"Per-dataset means carry corrected resampled t intervals ({_bib.cite('nadeau2003')}; "
         f"J = repeats × folds resamples, {_bib.cite('bouckaert2004')}). Across datasets, "
         f"encoders were ranked per dataset (1 = best, ties averaged) and compared by average "
@@ -221,7 +241,19 @@ def _header(a: Analysis) -> list:
             f"{a.run.results['model'].nunique()} models; config hash "
             f"{man.get('config_hash', '?')}.")
     aside = describe_set_aside(a.run.set_aside)
-    return [Heading(title, 1), *([Para(desc)] if desc else []), Para(line), *([Note(aside)] if aside else [])]
+    return [Heading(title, 1), *([Para(desc)] if desc else []), Para(line + _regime_text(a)),
+            *([Note(aside)] if aside else [])]
+
+
+def _regime_text(a: Analysis) -> str:
+    """Which tuning regime the sections read, when the run has more than one."""
+    rows = a.run.all_results
+    if rows is None or "regime" not in rows or rows["regime"].nunique() < 2:
+        return ""
+    others = ", ".join(f"{r} ({n} cells)" for r, n in rows["regime"].value_counts(sort=False).items()
+                       if r != a.run.regime)
+    return (f" These are the cells of the **{a.run.regime}** regime, which every section reads except "
+            f"'Does the choice survive tuning?', which also reads {others}.")
 
 
 def _numbered(blocks: list) -> list:
@@ -270,7 +302,8 @@ def write_report(directory, compare=None, out=None) -> Path:
 def _write_into(run: Run, root: Path, compare) -> None:
     a = analyse(run)
     blocks = _header(a) + answer_section(a, root) + methods_section(a)
-    blocks += results_section(a, root) + robustness_section(a, root) + leakage_section(a, root)
+    blocks += results_section(a, root) + robustness_section(a, root) + tuning_section(a, root)
+    blocks += leakage_section(a, root)
     blocks += status_section(a, root)
     if compare is not None:
         blocks += compare_section(a, analyse(load_run(compare)), root)

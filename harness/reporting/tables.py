@@ -192,6 +192,8 @@ def _tex(value) -> str:
 
 
 def _fmt(value, digits: int) -> str:
+    if value is pd.NA:  # a nullable integer column's missing count
+        return ""
     if isinstance(value, (bool, np.bool_)):
         return "yes" if value else "no"
     if isinstance(value, (float, np.floating)):

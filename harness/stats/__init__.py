@@ -29,7 +29,7 @@ from harness.stats._compare import (RANK_CI_MIN_DATASETS, Comparison, aggregate_
                                     average_ranks, compare_encoders, control_z_test,
                                     expanded_alpha, friedman_test, top_encoders,
                                     wilcoxon_vs_control, win_tie_loss)
-from harness.stats._cost import cost_table
+from harness.stats._cost import COST_PARTS, cost_table
 from harness.stats._decision import DECISION_COLUMNS, Decision, decide, decision_table
 from harness.stats._leakage import (AUDIT_COLUMNS, audit_summary, eligible_rows,
                                     leakage_audit, leaky_settings, twins)
@@ -52,7 +52,7 @@ __all__ = [
     "RANK_CI_MIN_DATASETS", "expanded_alpha", "Comparison", "aggregate_scores", "average_ranks",
     "compare_encoders", "control_z_test",
     "friedman_test", "top_encoders", "wilcoxon_vs_control", "win_tie_loss",
-    "cost_table",
+    "COST_PARTS", "cost_table",
     "DECISION_COLUMNS", "Decision", "decide", "decision_table",
     "AUDIT_COLUMNS", "audit_summary", "eligible_rows", "leakage_audit", "leaky_settings",
     "twins",

@@ -2,17 +2,23 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass, replace
+
 import numpy as np
 import pandas as pd
 from scipy import stats as sps
 
-from dataclasses import dataclass, replace
-
 from harness.errors import ConfigError
 from harness.stats._common import AGGREGATIONS, _check_choice
 from harness.stats._matrix import ScoreMatrix
-from harness.stats._tests import (FriedmanResult, bayesian_signed_rank, critical_difference,
-                                  friedman_from_ranks, friedman_permutation_p, holm)
+from harness.stats._tests import (
+    FriedmanResult,
+    bayesian_signed_rank,
+    critical_difference,
+    friedman_from_ranks,
+    friedman_permutation_p,
+    holm,
+)
 
 # ------------------------------------------------------------------ ranks across datasets
 #: fewest datasets at which the rank intervals reach their nominal coverage by simulation

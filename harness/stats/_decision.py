@@ -13,14 +13,22 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from harness.stats._common import (POOLED, _row_test_train_ratio, metric_values, ok_rows,
-                                   pool_primary, unit_free_delta)
+from harness.stats._common import POOLED, _row_test_train_ratio, metric_values, ok_rows, pool_primary, unit_free_delta
 from harness.stats._leakage import leaky_settings
 from harness.stats._matrix import score_matrix
 from harness.stats._rule import SHOWN_NOT_WORSE, DecisionRule
-from harness.stats._tests import (bayesian_signed_rank, corrected_t, corrected_t_greater,
-                                  correlated_t, datasets_needed, hodges_lehmann, holm,
-                                  repeats_needed, signed_rank_greater, signed_rank_less)
+from harness.stats._tests import (
+    bayesian_signed_rank,
+    corrected_t,
+    corrected_t_greater,
+    correlated_t,
+    datasets_needed,
+    hodges_lehmann,
+    holm,
+    repeats_needed,
+    signed_rank_greater,
+    signed_rank_less,
+)
 
 __all__ = ["Decision", "DECISION_COLUMNS", "decide", "decision_table"]
 
@@ -103,8 +111,11 @@ def _cells(results: pd.DataFrame, model: str, metric: str) -> pd.DataFrame:
     df = ok_rows(results)
     df = df.loc[df["model"] == model]
     values, gib = metric_values(df, metric)
+    # a tuned cell's search is part of what the encoding costs to use (0 untuned)
     cost = sum(df[c].astype(float) if c in df else 0.0
                for c in ("encoder_fit_s", "encoder_transform_s", "model_fit_s"))
+    if "tune_s" in df:
+        cost = cost + df["tune_s"].astype(float).fillna(0.0)
     feats = df["n_features_out"].astype(float) if "n_features_out" in df else np.nan
     out = pd.DataFrame({"dataset": df["dataset"], "encoder": df["encoder"],
                         "repeat": df["repeat"], "fold": df["fold"], "value": values,

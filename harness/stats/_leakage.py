@@ -7,9 +7,9 @@ import json
 import numpy as np
 import pandas as pd
 
-from harness.stats._common import (_row_test_train_ratio, ok_rows, orientation,
-                                   unit_free_delta, metric_values)
+from harness.stats._common import _row_test_train_ratio, metric_values, ok_rows, orientation, unit_free_delta
 from harness.stats._tests import corrected_t
+
 
 # ------------------------------------------------------------------------- leakage audit
 def _crossfit_scheme(params: pd.Series, key: str, default: str) -> pd.Series:

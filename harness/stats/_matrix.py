@@ -2,15 +2,22 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass, field
+
 import numpy as np
 import pandas as pd
 from scipy import stats as sps
 
-from dataclasses import dataclass, field
+from harness.stats._common import (
+    MISSING_POLICIES,
+    _check_choice,
+    _metric_columns,
+    _row_test_train_ratio,
+    ok_rows,
+    orientation,
+)
+from harness.stats._tests import CorrectedT, _corrected_se, corrected_t
 
-from harness.stats._common import (MISSING_POLICIES, _check_choice, _metric_columns,
-                                   _row_test_train_ratio, ok_rows, orientation)
-from harness.stats._tests import _corrected_se, corrected_t, CorrectedT
 
 def _interval_columns(g: pd.DataFrame, alpha: float) -> pd.DataFrame:
     """Add ``ci_low``/``ci_high`` to a frame with ``mean, std, n, ratio`` columns."""

@@ -11,6 +11,7 @@ from harness.errors import ConfigError
 from harness.stats._common import ok_rows
 from harness.stats._decision import decide
 
+
 # -------------------------------------------------------------------- cardinality regimes
 def cardinality_regime(max_cardinality, *, low: int = 10, high: int = 100) -> np.ndarray:
     """Map a dataset's largest categorical cardinality to ``low``/``medium``/``high``.

@@ -45,7 +45,7 @@ class DecisionRule:
     power: float = 0.8
 
     @classmethod
-    def from_mapping(cls, values) -> "DecisionRule":
+    def from_mapping(cls, values) -> DecisionRule:
         """Build from the validated ``[decision]`` table (unknown keys ignored)."""
         names = {f.name for f in fields(cls)}
         return cls(**{k: v for k, v in dict(values or {}).items() if k in names})

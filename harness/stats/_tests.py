@@ -9,6 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats as sps
 
+
 # ------------------------------------------------------- corrected resampled t (1 data set)
 @dataclass(frozen=True)
 class CorrectedT:
@@ -38,7 +39,7 @@ def cv_test_train_ratio(n_folds: int) -> float:
 
 def _corrected_se(std, n, ratio):
     # Nadeau & Bengio: the resamples overlap, so the naive 1/J variance is too small.
-    return np.sqrt((1.0 / n + ratio)) * std
+    return np.sqrt(1.0 / n + ratio) * std
 
 
 def corrected_t(diffs, test_train_ratio: float, *, alpha: float = 0.05) -> CorrectedT:

@@ -148,7 +148,7 @@ def test_sparse_equals_dense(scheme, rng):
     [
         ("scheme", "deviation", r"ContrastCodes: parameter 'scheme' must be one of 'sum', 'helmert'; got 'deviation'"),
         ("scheme", "Sum",
-         r"'scheme' must be one of 'sum', 'helmert'; got 'Sum'\. Did you mean 'sum'\?"),
+         r"'scheme' must be one of 'sum', 'helmert'; got 'Sum'\. Closest match: 'sum'\."),
         ("unseen", "ignore", r"'unseen' must be one of 'zeros', 'error'; got 'ignore'"),
         ("missing", "nan", r"'missing' must be one of 'category', 'zeros'; got 'nan'"),
         ("sparse", 1, r"'sparse' must be true or false; got 1"),

@@ -348,7 +348,7 @@ def test_set_output_pandas(rng):
     "params, match",
     [
         ({"smoothing": "laplace"}, "'smoothing' must be one of .*got 'laplace'"),
-        ({"crossfit": "kfolds"}, "Did you mean 'kfold'"),
+        ({"crossfit": "kfolds"}, "Closest match: 'kfold'"),
         ({"statistic": "median"}, "'statistic' must be one of"),
         ({"missing": "drop"}, "'missing' must be one of"),
         ({"target_type": "ordinal"}, "'target_type' must be one of"),

@@ -100,10 +100,79 @@ def test_methods_paragraph_from_manifest(report, sweep_dir):
     assert f"scikit-learn {man['packages']['scikit-learn']}" in methods
     assert "many (binary, 300 rows" in methods
     assert "primary metric was primary metric" not in methods
-    if "regression" in methods and "binary" in methods:  # mixed tasks: each judged on its own
-        assert "The primary metric was each dataset's own: ROC AUC for classification" in methods
+    # the sweep mixes tasks: each dataset is judged on its own task's metric
+    assert ("Each dataset was scored on the primary metric of its task: ROC AUC for "
+            "classification and RMSE for regression.") in methods
+    assert "multiclass" not in methods  # no multiclass dataset: no note on its ROC AUC
+    assert f"levelfold {man['packages']['harness']}" in methods  # the distribution's name
     for cite in ("Demšar (2006)", "Nadeau & Bengio (2003)", "Bouckaert & Frank (2004)"):
         assert cite in methods
+
+
+def _rows(pairs):
+    import pandas as pd
+
+    return pd.DataFrame([{"dataset": f"d{i}", "encoder": "e", "model": "m", "status": "ok",
+                          "task": task, "primary_metric": metric}
+                         for i, (task, metric) in enumerate(pairs)])
+
+
+@pytest.mark.parametrize("pairs, sentence", [
+    ([("binary", "roc_auc")], "The primary metric was ROC AUC."),
+    ([("regression", "rmse")], "The primary metric was RMSE."),
+    ([("binary", "roc_auc"), ("regression", "rmse")],
+     "Each dataset was scored on the primary metric of its task: ROC AUC for classification "
+     "and RMSE for regression."),
+    ([("multiclass", "roc_auc"), ("regression", "mae")],
+     "Each dataset was scored on the primary metric of its task: ROC AUC for classification "
+     "and MAE for regression (ROC AUC: macro one-vs-rest average for multiclass targets)."),
+    ([("binary", "log_loss"), ("multiclass", "log_loss")], "The primary metric was log loss."),
+])
+def test_primary_metric_sentence_reads_for_every_task_mix(pairs, sentence):
+    from harness.reporting.report import _primary_metric_text
+
+    assert _primary_metric_text(_rows(pairs)) == sentence
+
+
+def test_sections_are_numbered_consecutively(report):
+    md = (report[0] / "report.md").read_text()
+    numbers = [int(n) for n in re.findall(r"^## (\d+)\. ", md, flags=re.M)]
+    assert numbers == list(range(1, len(numbers) + 1)) and len(numbers) >= len(SECTIONS)
+
+
+def test_cost_table_columns_add_up_and_count_what_they_say(report):
+    import pandas as pd
+
+    md = (report[0] / "report.md").read_text()
+    cost = pd.read_csv(report[0] / "tables" / "cost.csv")
+    assert list(cost.columns) == ["encoder", "model", "encoder_s", "model_fit_s", "tune_s", "total_s",
+                                  "n_features_out", "encoded_mb", "n_cells"]
+    assert (cost["tune_s"] == 0).all()  # an untuned run: no search time
+    assert (cost["total_s"] - cost["encoder_s"] - cost["model_fit_s"] - cost["tune_s"]).abs().max() < 1e-12
+    assert pd.api.types.is_integer_dtype(cost["n_features_out"])  # a count some fold had
+    assert cost["n_cells"].eq(4 * 3).all()  # 4 datasets x 3 folds, every cell scored
+    assert "total_s = encoder_s + model_fit_s + tune_s" in md and "n_rows" not in md
+
+
+def test_heatmap_note_is_a_plain_sentence(report):
+    md = (report[0] / "report.md").read_text()
+    assert "lines split regimes" not in md
+    assert ("A horizontal line separates datasets with fewer than 10, 10 to 100, and more "
+            "than 100 levels.") in md
+
+
+def test_report_of_a_run_with_rows_set_aside(run_dir):
+    import json
+
+    from reporting_fakes import SWEEP, run_sweep
+
+    raw = json.loads(json.dumps(SWEEP))
+    del raw["encoders"]["freq"]
+    run_sweep(raw, run_dir)  # nothing to compute; freq's rows are set aside
+    write_report(run_dir)
+    md = (run_dir / "report" / "report.md").read_text()
+    head = md[:md.index("## 1.")]
+    assert "encoder 'freq' is no longer in the config" in head
 
 
 def test_html_is_self_contained(report):

@@ -104,3 +104,19 @@ def test_write_table_writes_both(tmp_path, results):
 def test_cost_summary_sorted_by_total(results):
     c = tables.cost_summary(results)
     assert c["total_s"].is_monotonic_increasing
+
+
+def test_cost_columns_add_up_and_feature_counts_are_whole(rng):
+    df = fake_results(rng, n_datasets=1, encoders=("a", "b"), folds=4)
+    # skewed timings: the median of each fold's sum is not the sum of the medians
+    df["encoder_fit_s"], df["encoder_transform_s"] = [1, 2, 3, 100] * 2, 0.0
+    df["model_fit_s"] = [100, 3, 2, 1] * 2
+    df["n_features_out"] = [10, 11, 12, 13] * 2  # median 11.5: not a count any fold had
+    df.loc[df.index[-1], "status"] = "failed"  # b: three scored cells
+    c = tables.cost_summary(df).set_index("encoder")
+    assert c.loc["a", "total_s"] == pytest.approx(c.loc["a", "encoder_s"] + c.loc["a", "model_fit_s"])
+    assert c.loc["a", ["encoder_s", "model_fit_s", "total_s"]].tolist() == [2.5, 2.5, 5.0]
+    assert c.loc["a", "n_features_out"] == 11 and pd.api.types.is_integer_dtype(c["n_features_out"])
+    assert c["n_cells"].to_dict() == {"a": 4, "b": 3} and "n_rows" not in c
+    shown = tables.display(c.reset_index())
+    assert shown["n_features_out"].tolist() == ["11", "11"]
