@@ -248,3 +248,17 @@ def test_the_report_says_per_model_whether_tuning_changes_the_choice(tuned_run, 
     assert (copy / "report" / "figures" / "tuning_effects.png").stat().st_size > 10_000
     # the answer reads the untuned cells only: its header counts them
     assert "36 cells;" in text.split("## 1.")[0]
+
+
+def test_a_run_of_one_tuned_regime_says_so_and_lists_only_the_model_spaces(tmp_path):
+    raw = _raw(regimes=("tuned-model",), budget=2)
+    raw["datasets"] = {"resume": RESUME}
+    execute(plan(parse_config(raw)), tmp_path, progress=False)
+    write_report(tmp_path)
+    text = (tmp_path / "report" / "report.md").read_text(encoding="utf-8")
+    assert "Every cell ran under the **tuned-model** regime" in text.split("## 1.")[0]
+    section = text.split("Does the choice survive tuning?")[-1]
+    assert "model lin: C from 0.01 to 10.0 (log scale)" in section
+    assert "encoder target" not in section.split("##")[0]  # tuned-model keeps the encoder fixed
+    assert "paired cell by cell" not in section.split("##")[0]  # no untuned cells to pair with
+    assert "This run has only the tuned-model regime" in section

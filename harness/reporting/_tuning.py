@@ -125,17 +125,20 @@ def regime_cost(all_results: pd.DataFrame) -> pd.DataFrame:
 def _space_text(run) -> str:
     cfg = run.manifest.get("config") or {}
     t = cfg.get("tuning") or {}
+    regimes = _regimes(run.all_results)
+    kinds = ("models", "encoders") if "tuned-both" in regimes else ("models",)  # tuned-model keeps encoders fixed
     spaces = [f"{kind[:-1]} {label}: " + ", ".join(f"{k} {_fmt_dim(v)}" for k, v in body["search"].items())
-              for kind in ("models", "encoders") for label, body in (cfg.get(kind) or {}).items()
+              for kind in kinds for label, body in (cfg.get(kind) or {}).items()
               if isinstance(body, dict) and isinstance(body.get("search"), dict)]
+    paired = (" The outer folds are those of the untuned cells, so the regimes are paired cell by cell."
+              if DEFAULT_REGIME in regimes else "")
     method = {"random": "random search", "halving": "successive halving (a third kept per round)"}.get(
         t.get("method", "random"), t.get("method"))
     return (f"Each tuned cell searched {t.get('budget', '?')} candidates by {method}, scored by "
             f"{t.get('inner_folds', 3)}-fold cross-validation inside the outer training fold; encoder and "
             "model were refitted on every inner training split, so no target statistic saw the targets "
             "of its validation rows, and the winner was refitted on the whole outer training fold and "
-            "scored on the outer test fold. The outer folds are those of the untuned cells. Search "
-            "spaces: " + ("; ".join(spaces) or "none recorded") + ".")
+            f"scored on the outer test fold.{paired} Search spaces: " + ("; ".join(spaces) or "none recorded") + ".")
 
 
 def _fmt_dim(spec) -> str:
@@ -147,11 +150,14 @@ def _fmt_dim(spec) -> str:
 def tuning_section(a, root: Path) -> list:
     """The section, or nothing when the run has a single regime."""
     run = a.run
-    if len(_regimes(run.all_results)) < 2:
-        return []
-    decs = regime_decisions(run, a)
     regimes = _regimes(run.all_results)
+    if regimes in ([], [DEFAULT_REGIME]):
+        return []
     out = [Heading("Does the choice survive tuning?", 2, "tuning"), Para(_space_text(run))]
+    if len(regimes) < 2:
+        out.append(Para(f"This run has only the {regimes[0]} regime, so there is nothing to compare the "
+                        "choice with; add \"defaults\" to tuning.regimes to see whether tuning changes it."))
+    decs = regime_decisions(run, a)
     frame = _decision_frame(decs)
     if len(frame):
         out.append(table(frame, root, "tuning_decisions",
