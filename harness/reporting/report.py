@@ -248,8 +248,12 @@ def _header(a: Analysis) -> list:
 def _regime_text(a: Analysis) -> str:
     """Which tuning regime the sections read, when the run has more than one."""
     rows = a.run.all_results
-    if rows is None or "regime" not in rows or rows["regime"].nunique() < 2:
+    if rows is None or "regime" not in rows:
         return ""
+    if rows["regime"].nunique() < 2:
+        return "" if a.run.regime == "defaults" else (
+            f" Every cell ran under the **{a.run.regime}** regime: hyperparameters were searched inside each "
+            "outer training fold (see 'Does the choice survive tuning?').")
     others = ", ".join(f"{r} ({n} cells)" for r, n in rows["regime"].value_counts(sort=False).items()
                        if r != a.run.regime)
     return (f" These are the cells of the **{a.run.regime}** regime, which every section reads except "
