@@ -262,3 +262,26 @@ def test_a_run_of_one_tuned_regime_says_so_and_lists_only_the_model_spaces(tmp_p
     assert "encoder target" not in section.split("##")[0]  # tuned-model keeps the encoder fixed
     assert "paired cell by cell" not in section.split("##")[0]  # no untuned cells to pair with
     assert "This run has only the tuned-model regime" in section
+
+
+@pytest.mark.parametrize("budget", [2, 4, 5, 9, 10, 20, 27])
+def test_halving_keeps_as_many_candidates_per_round_as_scikit_learn(budget):
+    """Reference: scikit-learn's HalvingRandomSearchCV (factor 3) on iris. Its schedule ends
+    with one candidate when the budget is a power of 3; ours stops one round earlier, since
+    the winner is refitted on the outer training fold anyway."""
+    from sklearn.datasets import load_iris
+    from sklearn.dummy import DummyClassifier
+    from sklearn.experimental import enable_halving_search_cv  # noqa: F401
+    from sklearn.model_selection import HalvingRandomSearchCV
+
+    X, y = load_iris(return_X_y=True)
+    search = HalvingRandomSearchCV(DummyClassifier(), {"constant": list(range(budget))}, n_candidates=budget,
+                                   factor=3, min_resources=5, random_state=0, cv=2, refit=False)
+    search.fit(X, y)
+    theirs = list(search.n_candidates_)
+    t = _tuning.Tuning(("tuned-model",), budget, 3, "halving", 0)
+    ours = [budget]
+    for _ in range(n_rounds_of(t) - 1):
+        ours.append(math.ceil(ours[-1] / _tuning.HALVING_FACTOR))
+    assert ours == theirs[:len(ours)]
+    assert theirs[len(ours):] in ([], [1])
