@@ -19,6 +19,7 @@ import time
 from harness._watchdog import WATCHDOG_MARGIN_S, overdue_rows, unit_budget_s
 from harness.cellwork import UnitJob, base_row, run_unit
 from harness.errors import ClusterError, ConfigError
+from harness.schema import FAILED
 
 __all__ = ["DaskCluster"]
 
@@ -344,7 +345,7 @@ class DaskCluster:
                     c,
                     self.datasets[label],
                     job,
-                    "failed",
+                    FAILED,
                     f"the unit's task killed Dask workers {tries[id(job)]} times (KilledWorker)",
                 )
                 for c in job.cells

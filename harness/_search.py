@@ -21,6 +21,7 @@ from harness import models as _models
 from harness import tuning as _tuning
 from harness._splits import kfold_indices
 from harness.config import digest
+from harness.schema import FAILED, OK
 
 __all__ = ["run_tuned_unit", "inner_splits", "search_points", "n_rounds_of"]
 
@@ -67,7 +68,7 @@ def run_tuned_unit(dataset, job) -> list[dict]:
         _, message = classify_failure(exc, dataset.private)
         why = (f"the inner folds of the search cannot be built ({message}); lower tuning.inner_folds "
                f"(now {job.tuning.inner_folds}) or leave this dataset out of the tuned regimes")
-        return [base_row(c, dataset, job, "failed", why) for c in job.cells]
+        return [base_row(c, dataset, job, FAILED, why) for c in job.cells]
     points = {c.cell_id: search_points(c, job.tuning) for c in job.cells}
     scores, spent = _search(dataset, job, splits, points)
     finals, rows = [], []
@@ -75,7 +76,7 @@ def run_tuned_unit(dataset, job) -> list[dict]:
         best = _best(scores[cell.cell_id])
         if best is None:
             why = "every candidate of the search failed on the inner folds; see the model's own failures in the defaults regime"
-            rows.append(dict(base_row(cell, dataset, job, "failed", why), tune_s=spent.get(cell.cell_id, 0.0)))
+            rows.append(dict(base_row(cell, dataset, job, FAILED, why), tune_s=spent.get(cell.cell_id, 0.0)))
             continue
         finals.append((cell, points[cell.cell_id][best]))
     for cell, row in _refit(dataset, job, finals):
@@ -112,13 +113,10 @@ def _run(dataset, job, cells: list, train_idx, test_idx, inner: bool) -> list[di
     rows = []
     for group in _by_encoding(cells):
         sub = dataclasses.replace(job, cells=tuple(group), train_idx=train_idx, test_idx=test_idx, tuning=None,
-                                  metrics=(_primary(job, dataset),) if inner else job.metrics, score_train=not inner)
+                                  metrics=(job.task_metric(dataset.task),) if inner else job.metrics,
+                                  score_train=not inner)
         rows += run_unit(dataset, sub)
     return rows
-
-
-def _primary(job, dataset) -> str:
-    return job.primary_regression if dataset.task == "regression" else job.primary
 
 
 def _search(dataset, job, splits: list, points: dict) -> tuple[dict, dict]:
@@ -140,7 +138,7 @@ def _search(dataset, job, splits: list, points: dict) -> tuple[dict, dict]:
         for s, (tr, va) in enumerate(splits):
             cand = [_candidate_cell(cells[cid], points[cid][i], tag) for tag, (cid, i) in tags.items()]
             for row in _run(dataset, job, cand, _subsample(tr, share, s, job), va, inner=True):
-                sums[row["cell_id"]].append(_oriented(row, _primary(job, dataset)))
+                sums[row["cell_id"]].append(_oriented(row, job.task_metric(dataset.task)))
                 spent[tags[row["cell_id"]][0]] = spent.get(tags[row["cell_id"]][0], 0.0) + _time_of(row, cand)
         for tag, (cid, i) in tags.items():
             vals = sums[tag]
@@ -178,9 +176,9 @@ def _subsample(tr: np.ndarray, share: float, split: int, job) -> np.ndarray:
 
 
 def _oriented(row: dict, metric: str) -> float:
-    """The row's primary score, greater is better; a failed candidate scores -inf."""
+    """The row's score on ``metric``, greater is better; a failed candidate scores -inf."""
     value = row.get(metric)
-    if row.get("status") != "ok" or value is None or not np.isfinite(value):
+    if row.get("status") != OK or value is None or not np.isfinite(value):
         return -math.inf
     return float(value) if _metrics.GREATER_IS_BETTER[metric] else -float(value)
 

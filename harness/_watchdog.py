@@ -6,6 +6,7 @@ Shared by the worker backends, ``backends.ProcessPool`` and ``_dask_backend.Dask
 from __future__ import annotations
 
 from harness.cellwork import UnitJob, base_row
+from harness.schema import TIMEOUT
 
 __all__ = ["WATCHDOG_MARGIN_S", "overdue_rows", "unit_budget_s"]
 
@@ -31,4 +32,4 @@ def overdue_rows(datasets, label: str, job: UnitJob, budget: float, fate: str = 
         "(execution.cell_timeout_s, models.<label>.cell_timeout_s), without returning (stopped or stuck "
         f"in native code); the watchdog {fate}"
     )
-    return [base_row(c, datasets[label], job, "timeout", why) for c in job.cells]
+    return [base_row(c, datasets[label], job, TIMEOUT, why) for c in job.cells]

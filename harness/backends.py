@@ -32,6 +32,7 @@ from concurrent.futures.process import BrokenProcessPool
 from harness._dask_backend import DaskCluster, _DaskWatchdog  # noqa: F401
 from harness._watchdog import WATCHDOG_MARGIN_S, overdue_rows, unit_budget_s
 from harness.cellwork import UnitJob, base_row, run_unit
+from harness.schema import FAILED
 
 __all__ = ["InProcess", "ProcessPool", "DaskCluster", "make_backend", "unit_budget_s", "WATCHDOG_MARGIN_S"]
 
@@ -130,7 +131,7 @@ class ProcessPool:
                                     c,
                                     self.datasets[label],
                                     job,
-                                    "failed",
+                                    FAILED,
                                     "worker process died while running this unit",
                                 )
                                 for c in job.cells

@@ -28,6 +28,7 @@ import pandas as pd
 from harness import datasets as _datasets
 from harness.config import load_config, parse_config
 from harness.runner import execute, plan
+from harness.schema import FAILED, OK, TIMEOUT
 from harness.store import read_results
 
 __all__ = ["overhead", "speedup", "scaling", "hand_loop", "tuning_cost", "main"]
@@ -45,7 +46,7 @@ def _timed_run(config, jobs: int, backend: str = "local") -> tuple[float, pd.Dat
 
 def work_seconds(df: pd.DataFrame) -> float:
     """Seconds of real work in a results table: encoding counted once per unit."""
-    ok = df[df["status"].isin(["ok", "timeout", "failed"])]
+    ok = df[df["status"].isin([OK, TIMEOUT, FAILED])]
     units = ok.drop_duplicates(["dataset", "repeat", "fold", "encoder"])
     encode = (units["encoder_fit_s"].fillna(0) + units["encoder_transform_s"].fillna(0)).sum()
     return float(encode + sum(ok[c].fillna(0).sum() for c in WORK_COLUMNS))
@@ -68,7 +69,7 @@ def speedup(config_path: str) -> dict:
 
 
 def scaling(config_path: str, fractions=(0.25, 0.5, 1.0)) -> pd.DataFrame:
-    """The same grid at fractions of each dataset's rows (via ``max_rows``)."""
+    """The same grid at fractions of each dataset's rows (via ``sample_rows``)."""
     base = load_config(config_path)
     sizes = {d.label: _rows(base, d.label) for d in base.datasets}
     import tomllib
@@ -79,13 +80,13 @@ def scaling(config_path: str, fractions=(0.25, 0.5, 1.0)) -> pd.DataFrame:
         datasets = {}
         for spec in base.datasets:
             params = dict(spec.params)
-            # real sources subsample with max_rows; the synthetic source is sized by n_rows
-            key = "max_rows" if "max_rows" in _datasets.params_of(spec.source) else "n_rows"
+            # real sources subsample with sample_rows; the synthetic source is sized by n_rows
+            key = "sample_rows" if "sample_rows" in _datasets.params_of(spec.source) else "n_rows"
             params[key] = max(50, int(sizes[spec.label] * frac))
             datasets[spec.label] = {"source": spec.source, **params}
         config = parse_config({**raw, "datasets": datasets}, base.path)
         wall, df = _timed_run(config, jobs=1)
-        used = sum(min(sizes[k], datasets[k].get("max_rows", datasets[k].get("n_rows"))) for k in sizes)
+        used = sum(min(sizes[k], datasets[k].get("sample_rows", datasets[k].get("n_rows"))) for k in sizes)
         rows.append({"fraction": frac, "rows": used, "wall_s": wall, "cells": len(df)})
     table = pd.DataFrame(rows)
     table["time_ratio_vs_first"] = table["wall_s"] / table["wall_s"].iloc[0]
@@ -142,7 +143,7 @@ def _hand_written(config) -> pd.DataFrame:
     with threadpool_limits(1):
         for label, ds in load_datasets(config).items():
             cat, num = list(ds.categorical), list(ds.numeric)
-            primary = p.primary_regression if ds.task == "regression" else p.primary
+            own = p.regression_metric if ds.task == "regression" else p.classification_metric
             classes = None if ds.task == "regression" else np.unique(ds.y.to_numpy())
             splits = outer_splits(ds, p.folds, p.repeats, p.stratify, config.seed)
             for (repeat, fold), (tr, te) in splits.items():
@@ -176,7 +177,7 @@ def _hand_written(config) -> pd.DataFrame:
                         for name in p.metrics:
                             if name in _metrics.metrics_for(ds.task):
                                 row[name] = _metrics.score(name, ds.task, y_te, pred_te, classes)
-                        row[f"train_{primary}"] = _metrics.score(primary, ds.task, y_tr, pred_tr, classes)
+                        row[f"train_{own}"] = _metrics.score(own, ds.task, y_tr, pred_tr, classes)
                         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -189,7 +190,7 @@ def tuning_cost(config_path: str) -> pd.DataFrame:
     for regime in base.tuning.regimes:
         config = dataclasses.replace(base, tuning=dataclasses.replace(base.tuning, regimes=(regime,)))
         wall, df = _timed_run(config, jobs=1)
-        rows.append({"regime": regime, "cells": len(df), "ok": int((df["status"] == "ok").sum()), "wall_s": wall,
+        rows.append({"regime": regime, "cells": len(df), "ok": int((df["status"] == OK).sum()), "wall_s": wall,
                      "tune_s": float(df["tune_s"].fillna(0).sum()),
                      "fits_per_cell_bound": 1 if regime == "defaults" else base.tuning.fits_per_cell()})
     table = pd.DataFrame(rows)

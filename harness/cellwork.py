@@ -25,7 +25,8 @@ from harness import encoders as _encoders
 from harness import metrics as _metrics
 from harness import models as _models
 from harness._resources import CellTimeout, memory_limit, peak_rss_mb, reset_peak_rss, time_limit
-from harness.grid import SCHEMA_VERSION, Cell
+from harness.grid import Cell
+from harness.schema import FAILED, NOT_APPLICABLE, OK, OUT_OF_MEMORY, SCHEMA_VERSION, SKIPPED, TIMEOUT
 from harness.tuning import Tuning
 
 __all__ = ["UnitJob", "run_unit", "base_row", "classify_failure"]
@@ -41,8 +42,8 @@ class UnitJob:
     train_idx: np.ndarray
     test_idx: np.ndarray
     seed: int
-    primary: str
-    primary_regression: str
+    classification_metric: str  # protocol.classification_metric
+    regression_metric: str  # protocol.regression_metric
     metrics: tuple[str, ...]
     config_hash: str
     timeout_s: float | None = None
@@ -50,6 +51,10 @@ class UnitJob:
     stratify: bool = True  # inner folds of a search follow the protocol's stratification
     tuning: Tuning | None = None  # the [tuning] settings (tuned units only)
     score_train: bool = True  # False inside a search: only the validation score is read
+
+    def task_metric(self, task: str) -> str:
+        """The metric a dataset of ``task`` is scored on (the row's ``primary_metric``)."""
+        return self.regression_metric if task == "regression" else self.classification_metric
 
     @property
     def fits_per_cell(self) -> int:
@@ -83,7 +88,7 @@ def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") ->
         "model_params": json.dumps(cell.model.params, sort_keys=True, default=str),
         "tuned_params": "{}",  # a tuned cell's chosen settings (harness._search)
         "tune_s": 0.0,
-        "primary_metric": job.primary_regression if task == "regression" else job.primary,
+        "primary_metric": job.task_metric(task),
         "n_features_in": len(dataset.categorical) + len(dataset.numeric),
         "n_train": len(job.train_idx),
         "n_test": len(job.test_idx),
@@ -215,28 +220,29 @@ def classify_failure(exc: BaseException, private: bool = False) -> tuple[str, st
     raw values (an unseen category, a column's contents), which must not leave the run.
     """
     if isinstance(exc, CellTimeout):
-        return "timeout", str(exc)
+        return TIMEOUT, str(exc)
     if isinstance(exc, MemoryError):
-        return "out-of-memory", "MemoryError: the cell exceeded its memory limit (execution.cell_memory_mb)"
+        return OUT_OF_MEMORY, "MemoryError: the cell exceeded its memory limit (execution.cell_memory_mb)"
     if private:
-        return "failed", f"{type(exc).__name__} (message withheld: private dataset)"
+        return FAILED, f"{type(exc).__name__} (message withheld: private dataset)"
     last = traceback.format_exception_only(type(exc), exc)[-1].strip()
-    return "failed", last[:2000]
+    return FAILED, last[:2000]
 
 
 # --------------------------------------------------------------------------- models
 def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
     family = _models.FAMILIES[cell.model.family]
-    row = base_row(cell, dataset, job, "ok")
+    row = base_row(cell, dataset, job, OK)
     row.update(encoder_fit_s=enc.fit_s, encoder_transform_s=enc.transform_s, n_features_out=enc.n_out, encoded_mb=enc.mb)
     native = isinstance(enc.train, pd.DataFrame)
     if native and not family.native_categorical:
-        row.update(status="not-applicable", error=f"model family '{family.name}' cannot take native categorical columns")
+        row.update(status=NOT_APPLICABLE, error=f"model family '{family.name}' cannot take native categorical columns")
         return row
-    if cell.model.max_rows is not None and len(job.train_idx) > cell.model.max_rows:
+    limit_rows = cell.model.skip_above_rows
+    if limit_rows is not None and len(job.train_idx) > limit_rows:
         row.update(
-            status="skipped",
-            error=f"{len(job.train_idx)} training rows exceed models.{cell.model.label}.max_rows = {cell.model.max_rows}",
+            status=SKIPPED,
+            error=f"{len(job.train_idx)} training rows exceed models.{cell.model.label}.skip_above_rows = {limit_rows}",
         )
         return row
     limit = cell.model.cell_timeout_s or job.timeout_s
@@ -253,9 +259,9 @@ def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
     except Exception as exc:  # noqa: BLE001
         status, message = classify_failure(exc, dataset.private)
         row.update(status=status, error=message)
-    if limit and row["status"] == "ok" and row.get("model_fit_s", 0) + row.get("predict_s", 0) > limit:
+    if limit and row["status"] == OK and row.get("model_fit_s", 0) + row.get("predict_s", 0) > limit:
         # backends without SIGALRM (Dask threads) check the limit after the fact
-        row.update(status="timeout", error=f"cell exceeded the time limit of {limit:g} s ({key})")
+        row.update(status=TIMEOUT, error=f"cell exceeded the time limit of {limit:g} s ({key})")
     return row
 
 
@@ -288,8 +294,8 @@ def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test, enc: _Encoded
         pred_train = _predict(model, train, task)
         if task != "regression":
             pred_train = _align(pred_train, model.classes_, classes)
-        primary = job.primary_regression if task == "regression" else job.primary
-        out[f"train_{primary}"] = _metrics.score(primary, task, y_train, pred_train, classes)
+        own = job.task_metric(task)
+        out[f"train_{own}"] = _metrics.score(own, task, y_train, pred_train, classes)
     out["score_s"] = time.perf_counter() - t2  # training-fold prediction and every metric
     return out
 

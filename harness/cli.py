@@ -264,7 +264,9 @@ def _dry_run(the_plan, out: Path) -> int:
 
 
 def cmd_status(args) -> int:
-    from harness.runner import RETRY_STATUSES
+    import pandas as pd
+
+    from harness.schema import RETRY_STATUSES
     from harness.store import Store, read_results, table_only
 
     df = read_results(args.dir)
@@ -281,11 +283,14 @@ def cmd_status(args) -> int:
     print(f"{args.dir}: {len(grid) or len(df)} cells in the current grid: {finished} finished, {missing} missing; "
           f"{sum(aside.values())} superseded rows set aside")
     if len(df):
-        table = df.pivot_table(index="dataset", columns="status", values="cell_id", aggfunc="count", fill_value=0)
+        index = ["dataset", "regime"] if df.get("regime", pd.Series(dtype=str)).nunique() > 1 else "dataset"
+        table = df.pivot_table(index=index, columns="status", values="cell_id", aggfunc="count", fill_value=0)
         print(table.to_string())
         failed = df[df["status"].isin(RETRY_STATUSES)]
         for _, row in failed.head(10).iterrows():
-            print(f"  {row['status']}: {row['dataset']}/{row['encoder']}/{row['model']} r{row['repeat']}f{row['fold']}: {row['error'][:150]}")
+            tuned = "" if row.get("regime", "defaults") == "defaults" else f"{row['regime']}/"
+            print(f"  {row['status']}: {row['dataset']}/{row['encoder']}/{row['model']}/{tuned}r{row['repeat']}f{row['fold']}: "
+                  f"{row['error'][:150]}")
     for reason, n in aside.items():
         print(f"  superseded ({n} rows): {reason}")
     return 0

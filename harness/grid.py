@@ -21,15 +21,11 @@ from dataclasses import dataclass, field
 from harness import encoders as _encoders
 from harness import models as _models
 from harness.config import Config, DatasetSpec, EncoderSpec, ModelSpec, digest
+from harness.schema import IDENTITY_SCHEMA, SCHEMA_VERSION  # SCHEMA_VERSION stays importable from here
 from harness.tuning import DEFAULT_REGIME
 
 __all__ = ["SCHEMA_VERSION", "CODE_VERSION", "Cell", "build_grid", "select", "units", "changed_parts", "regimes_of"]
 
-SCHEMA_VERSION = 4  # 2: grid and superseded tables; 3: uses_target and leaky columns; 4: regime, tuned_params, tune_s
-# The schema version cell identities were computed under. A layout change that a store
-# upgrade fills in without changing any number (4: the tuning columns, ``defaults`` for
-# every older row) keeps it, so finished cells are not recomputed.
-IDENTITY_SCHEMA = 3
 # Bump when a change to the code alters the numbers a cell records (an encoder's
 # arithmetic, a model default, the scaling policy, the metrics): every cell then gets a
 # new identity and is recomputed, and rows of the old code are set aside.
@@ -63,12 +59,21 @@ def _shared_parts(config: Config) -> dict:
     return {
         "code": digest([harness_version(), CODE_VERSION, IDENTITY_SCHEMA], 12),
         "seed": digest(config.seed, 12),
-        "protocol": digest([p.folds, p.repeats, p.stratify, p.group, sorted(p.metrics), p.primary, p.primary_regression], 12),
+        # values only, in this order: renaming a protocol key keeps every cell id
+        "protocol": digest([p.folds, p.repeats, p.stratify, p.group, sorted(p.metrics),
+                            p.classification_metric, p.regression_metric], 12),
     }
 
 
+#: dataset keys renamed since cell identities were first computed: new name -> the name the
+#: identity digests, so that a renamed key keeps every finished cell (``sample_rows`` was
+#: ``max_rows``)
+IDENTITY_KEYS = {"sample_rows": "max_rows"}
+
+
 def _dataset_part(dataset: DatasetSpec, checksum) -> str:
-    return digest([dataset.label, dataset.source, dataset.params, checksum], 12)
+    params = {IDENTITY_KEYS.get(k, k): v for k, v in dataset.params.items()}
+    return digest([dataset.label, dataset.source, params, checksum], 12)
 
 
 def _encoder_part(encoder: EncoderSpec) -> str:
@@ -76,7 +81,8 @@ def _encoder_part(encoder: EncoderSpec) -> str:
 
 
 def _model_part(model: ModelSpec) -> str:
-    return digest([model.label, model.family, _models.resolved_params(model.family, model.params), model.max_rows], 12)
+    resolved = _models.resolved_params(model.family, model.params)
+    return digest([model.label, model.family, resolved, model.skip_above_rows], 12)
 
 
 def _regime_part(config: Config, regime: str, encoder: EncoderSpec, model: ModelSpec) -> str:

@@ -26,10 +26,11 @@ GREATER_IS_BETTER = {
     "rmse": False,
     "mae": False,
     "r2": True,
-    # every row's own primary metric, oriented so that greater is better (see
-    # harness.stats.pool_primary): lets one ranking span classification and regression
-    # datasets, since ranks are computed within each dataset
-    "primary": True,
+    # the pooled score (harness.stats.POOLED): every row's own metric (its `primary_metric`),
+    # oriented so that greater is better (see harness.stats.pool_task_score): lets one
+    # ranking span classification and regression datasets, since ranks are computed within
+    # each dataset
+    "task_score": True,
 }
 
 CLASSIFICATION_METRICS = ("roc_auc", "log_loss", "accuracy", "balanced_accuracy")

@@ -3,6 +3,8 @@
 ``FAMILIES`` is the registry the config names. Each family says whether it takes sparse
 input and whether it takes pandas categorical columns natively; the runner pairs the
 ``native`` encoder kind only with the latter and densifies sparse matrices for the others.
+``register_family(family)`` adds a family at run time (tests, code outside the package); an
+entry in ``FAMILIES`` is the normal route.
 """
 
 from __future__ import annotations
@@ -30,8 +32,8 @@ from sklearn.svm import SVC, SVR
 
 from harness.errors import ConfigError, closest
 
-__all__ = ["Family", "FAMILIES", "SCALING_POLICY", "BlockScaler", "build_model", "family_params",
-           "role_params"]
+__all__ = ["Family", "FAMILIES", "BUILTIN_FAMILIES", "SCALING_POLICY", "BlockScaler", "build_model",
+           "family_params", "register_family", "role_params", "unregister_family"]
 
 
 @dataclass(frozen=True)
@@ -50,8 +52,9 @@ class Family:
         Inputs are standardised first (distance- or gradient-based models).
     defaults : dict
         Parameters applied unless the config overrides them.
-    max_rows : int or None
+    skip_above_rows : int or None
         Training-fold size above which the family is skipped (with the reason recorded).
+        Default of the config key ``models.<label>.skip_above_rows``.
     """
 
     name: str
@@ -61,7 +64,7 @@ class Family:
     native_categorical: bool = False
     scaled: bool = False
     defaults: dict = field(default_factory=dict)
-    max_rows: int | None = None
+    skip_above_rows: int | None = None
     summary: str = ""
 
 
@@ -140,8 +143,8 @@ FAMILIES: dict[str, Family] = {
         _seeded(SVR, None),
         sparse=True,
         scaled=True,
-        max_rows=20_000,
-        summary="RBF support vector machine; skipped above max_rows training rows",
+        skip_above_rows=20_000,
+        summary="RBF support vector machine; skipped above skip_above_rows training rows",
     ),
     "forest": Family(
         "forest",
@@ -184,9 +187,12 @@ FAMILIES: dict[str, Family] = {
         summary="multi-layer perceptron (one hidden layer) on standardised inputs",
     ),
 }
+#: the families this package ships (the entries above): the shipped configs cover these;
+#: ``register_family`` adds to ``FAMILIES`` only, never to this tuple
+BUILTIN_FAMILIES = tuple(sorted(FAMILIES))
 
 # keys of [models.<label>] that steer the harness rather than the estimator
-HARNESS_KEYS = ("family", "max_rows", "cell_timeout_s", "search")
+HARNESS_KEYS = ("family", "skip_above_rows", "cell_timeout_s", "search")
 
 
 def family_params(family: str) -> tuple[str, ...]:
@@ -312,6 +318,53 @@ def role_params(family: str, task: str, params: dict) -> dict:
         return dict(params)
     own = set(inspect.signature(est).parameters)
     return {k: v for k, v in params.items() if k in own}
+
+
+def register_family(family: Family) -> None:
+    """Add ``family`` to ``FAMILIES`` under ``family.name`` at run time, as an entry there does.
+
+    The normal route is the entry in ``FAMILIES`` (DEVELOPERS.md, "How to add a model
+    family"); this hook serves tests and code outside the package. Forked workers
+    (``--jobs N``) inherit it; Dask workers import the package afresh and do not.
+
+    Raises
+    ------
+    ConfigError
+        If the name is taken or not an identifier, or a builder lacks ``.estimator`` (the
+        class whose signature lists the config keys, see :func:`family_params`; ``_seeded``
+        sets it).
+    """
+    name = family.name
+    if not (isinstance(name, str) and name.isidentifier()):
+        raise ConfigError(f"model family name {name!r} must be a Python identifier; pick another name.")
+    if name in FAMILIES:
+        raise ConfigError(f"model family '{name}' is already registered; pick another name, or unregister it first.")
+    for role in ("classifier", "regressor"):
+        if not isinstance(getattr(getattr(family, role), "estimator", None), type):
+            raise ConfigError(
+                f"model family '{name}': its {role} builder needs an `estimator` attribute, the "
+                "estimator class whose parameters are the config keys; wrap the class with "
+                "harness.models._seeded(cls)."
+            )
+    FAMILIES[name] = family
+
+
+def unregister_family(name: str) -> None:
+    """Remove a family that :func:`register_family` added.
+
+    Raises
+    ------
+    ConfigError
+        If ``name`` ships with the package (``BUILTIN_FAMILIES``) or is not registered.
+    """
+    added = sorted(set(FAMILIES) - set(BUILTIN_FAMILIES))
+    if name not in added:
+        shipped = " ships with the package" if name in BUILTIN_FAMILIES else " is not registered"
+        raise ConfigError(
+            f"model family '{name}'{shipped}; only families added by register_family() can be "
+            f"removed: {', '.join(added) or '(none)'}."
+        )
+    del FAMILIES[name]
 
 
 def _family(name: str) -> Family:

@@ -33,6 +33,7 @@ from harness.encoders import factorised
 from harness.errors import DataError
 from harness.grid import Cell, build_grid, harness_version, select, units
 from harness.models import SCALING_POLICY
+from harness.schema import MANIFEST_VERSION, RETRY_STATUSES
 from harness.tuning import DEFAULT_REGIME
 from harness.store import TABLE_NAME, Store, export, read_results, table_only
 
@@ -195,8 +196,8 @@ def _jobs_for(plan_: Plan, todo: list[Cell]) -> list[tuple[str, UnitJob]]:
             train_idx=tr,
             test_idx=te,
             seed=cfg.seed,
-            primary=p.primary,
-            primary_regression=p.primary_regression,
+            classification_metric=p.classification_metric,
+            regression_metric=p.regression_metric,
             metrics=p.metrics,
             config_hash=cfg.hash,
             timeout_s=cfg.execution.cell_timeout_s,
@@ -206,9 +207,6 @@ def _jobs_for(plan_: Plan, todo: list[Cell]) -> list[tuple[str, UnitJob]]:
         )
         work.append((first.dataset, job))
     return work
-
-
-RETRY_STATUSES = ("failed", "timeout", "out-of-memory")
 
 
 def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=False, progress=True,
@@ -312,6 +310,7 @@ def public_raw(raw: dict) -> dict:
 def _write_manifest(out: Path, plan_: Plan, start: str, end: str | None, summary: RunSummary) -> None:
     cfg = plan_.config
     manifest = {
+        "manifest_version": MANIFEST_VERSION,  # the format harness.schema.Manifest reads
         "experiment": cfg.name,
         "description": cfg.description,
         "config_path": cfg.path,

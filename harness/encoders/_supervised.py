@@ -67,6 +67,8 @@ def _target_kind(y, requested: str, name: str):
             "drop those rows or impute the target first."
         )
     order = np.argsort(uniques, kind="stable")
+    if np.array_equal(order, np.arange(len(order))):  # labels met in sorted order: codes are ranks
+        return kind, uniques, codes.astype(np.int64, copy=False)
     rank = np.empty(len(order), dtype=np.int64)
     rank[order] = np.arange(len(order))
     return kind, uniques[order], rank[codes]

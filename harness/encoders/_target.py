@@ -352,7 +352,9 @@ class TargetStatistics(_SupervisedLevels, CategoricalEncoder):
         y = column_or_1d(np.asarray(y), warn=True)
         check_consistent_length(frame, y)
         Y, classes = self._target_matrix(y)
-        codes = [self._level_codes(c, j) for j, c in enumerate(self._fit_levels(frame))]
+        # training codes hold MISSING only where missing rows were seen: else no remap pass
+        codes = [self._level_codes(c, j) if self.n_missing_[j] else c
+                 for j, c in enumerate(self._fit_levels(frame))]
         self._n_fit = Y.shape[0]
         self.prior_ = Y.mean(axis=0)
         if self.prior is not None:

@@ -9,6 +9,7 @@ import pandas as pd
 from harness import stats
 from harness.reporting import tables
 from harness.reporting._run import Run
+from harness.schema import Manifest
 
 __all__ = ["Analysis", "analyse", "rule_of"]
 
@@ -26,7 +27,7 @@ class Analysis:
     rule: stats.DecisionRule
     metrics: tuple
     models: tuple
-    bands: tuple
+    medium_levels: tuple  # (first, last) level count of the medium regime, inclusive
     comparisons: dict
     decisions: dict
     robustness: pd.DataFrame
@@ -40,22 +41,21 @@ class Analysis:
         return [d for (_, metric), d in self.decisions.items() if metric == self.metrics[0]]
 
 
-def rule_of(manifest: dict) -> stats.DecisionRule:
+def rule_of(manifest) -> stats.DecisionRule:
     """The decision rule of a run: its config's ``[decision]`` table, defaults otherwise."""
-    return stats.DecisionRule.from_mapping((manifest.get("config") or {}).get("decision"))
+    return stats.DecisionRule.from_mapping(Manifest.coerce(manifest).decision)
 
 
-def _primary_metrics(results: pd.DataFrame, manifest: dict) -> tuple:
+def _task_metrics(results: pd.DataFrame, manifest: Manifest) -> tuple:
     """The headline metric first: pooled over all datasets when tasks are mixed."""
-    prot = manifest.get("protocol") or {}
     seen = set(stats.ok_rows(results)["primary_metric"].dropna())
-    wanted = [prot.get("primary", "roc_auc"), prot.get("primary_regression", "rmse")]
+    wanted = [manifest.protocol.classification_metric, manifest.protocol.regression_metric]
     own = [m for m in wanted if m in seen] + sorted(seen - set(wanted))
     return tuple(([stats.POOLED] if len(own) > 1 else []) + own)
 
 
-def _models(results: pd.DataFrame, manifest: dict) -> tuple:
-    order = list(manifest.get("models") or {})
+def _models(results: pd.DataFrame, manifest: Manifest) -> tuple:
+    order = list(manifest.models)
     present = list(pd.unique(results["model"]))
     return tuple([m for m in order if m in present] + [m for m in present if m not in order])
 
@@ -71,9 +71,8 @@ def _comparison(eligible, decision, n_boot, seed):
 def analyse(run: Run, *, n_boot: int = 2000, seed: int = 0) -> Analysis:
     """Decide and compare the encoders for every model and primary metric of a run."""
     res, man = run.results, run.manifest
-    bands = tuple((man.get("protocol") or {}).get("cardinality_bands") or (10, 100))
-    low, high = int(bands[0]), int(bands[1])
-    metrics, models = _primary_metrics(res, man), _models(res, man)
+    low, high = man.protocol.medium_levels
+    metrics, models = _task_metrics(res, man), _models(res, man)
     rule = rule_of(man)
     eligible, _ = stats.eligible_rows(res)
     ok = stats.ok_rows(res)

@@ -16,10 +16,9 @@ from harness.reporting import figures
 from harness.reporting._blocks import cost_phrase, family, figure, fmt_p, pct, table
 from harness.reporting._html import Bullets, Heading, Note, Para, Table
 from harness.reporting.tables import metric_name
+from harness.schema import RETRY_STATUSES
 
 __all__ = ["answer_section", "decision_sentence", "decision_caveats"]
-
-_FAILED = ("failed", "timeout", "out-of-memory")
 
 
 def _evidence_phrase(row: pd.Series, d: stats.Decision) -> str:
@@ -135,7 +134,7 @@ def decision_caveats(d: stats.Decision, a) -> list[str]:
                          f"degrees of freedom; use `protocol.repeats = {need}` with "
                          f"{folds} folds to reach {stats.MIN_FOLDS_ONE_DATASET}.")
     res = a.run.results
-    bad = res.loc[(res["model"] == d.model) & res["status"].isin(_FAILED)]
+    bad = res.loc[(res["model"] == d.model) & res["status"].isin(RETRY_STATUSES)]
     for enc, ds in bad.groupby("encoder")["dataset"].unique().items():  # per encoder
         notes.append(f"Encoder '{enc}' failed or timed out on {len(ds)} dataset(s): "
                      f"{', '.join(map(str, sorted(ds)))}.")

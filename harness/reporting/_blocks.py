@@ -57,8 +57,7 @@ def cost_phrase(cost_ratio: float, saving_s: float) -> str:
 
 
 def family(run, model: str) -> str:
-    spec = (run.manifest.get("models") or {}).get(model) or {}
-    fam = spec.get("family")
+    fam = run.manifest.model_family(model)
     if fam is None:
         fams = run.results.loc[run.results["model"] == model, "model_family"].dropna()
         fam = fams.iloc[0] if len(fams) else "?"

@@ -61,8 +61,8 @@ def compare_section(a: Analysis, b: Analysis, root: Path) -> list:
     ids_a, ids_b = set(ra["cell_id"]), set(rb["cell_id"])
     out = [Heading("Changes against the other run", 2, "compare"),
            Para(f"Before: {b.run.directory} (config hash "
-                f"{b.run.manifest.get('config_hash', '?')}); now: {a.run.directory} "
-                f"(config hash {a.run.manifest.get('config_hash', '?')})."),
+                f"{b.run.manifest.config_hash or '?'}); now: {a.run.directory} "
+                f"(config hash {a.run.manifest.config_hash or '?'})."),
            Bullets((_added_removed(ra["encoder"].unique(), rb["encoder"].unique(), "Encoders"),
                     _added_removed(ra["dataset"].unique(), rb["dataset"].unique(), "Datasets"),
                     _added_removed(ra["model"].unique(), rb["model"].unique(), "Models"),

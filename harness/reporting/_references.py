@@ -13,7 +13,7 @@ __all__ = ["references_section"]
 
 def references_section(a: Analysis, root: Path) -> list:
     """The references of the methods and encoders in the run, with BibTeX."""
-    keys = _bib.used_references(a.run.manifest.get("encoders") or {})
+    keys = _bib.used_references(a.run.manifest.encoders)
     bib = "\n\n".join(_bib.BIB[k][1] for k in keys)
     (root / "references.bib").write_text(bib + "\n", encoding="utf-8")
     return [Heading("References", 2, "references"),

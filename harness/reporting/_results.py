@@ -22,13 +22,13 @@ def _heatmaps(a, root: Path) -> list:
     eligible = [e for e in pd.unique(a.run.results["encoder"]) if e not in leaky]
     for model in a.models:  # loop over models
         out += figure(lambda m=model: figures.relative_heatmap(
-            a.run.results, m, low=a.bands[0], high=a.bands[1], eligible=eligible), root,
+            a.run.results, m, low=a.medium_levels[0], high=a.medium_levels[1], eligible=eligible), root,
             f"heatmap_{slug(model)}",
             f"Per-dataset shortfall of each encoder from the best eligible one for {model}, "
             "in percent of that score on the dataset's primary metric (excluded settings "
             "are measured against it too; a negative value means an excluded setting scores "
             "above every eligible one). "
-            + figures.heatmap_note(*a.bands, lines=a.regimes.nunique() > 1).replace("\n", " "),
+            + figures.heatmap_note(*a.medium_levels, lines=a.regimes.nunique() > 1).replace("\n", " "),
             f"heatmap {model}")
     return out
 

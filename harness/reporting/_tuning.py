@@ -22,6 +22,7 @@ from harness.reporting._blocks import figure, pct, table
 from harness.reporting._figbase import INK, LIGHT, MID, STYLE, NothingToPlot, grid
 from harness.reporting._html import Heading, Para
 from harness.reporting.tables import metric_name
+from harness.schema import OK
 from harness.tuning import DEFAULT_REGIME, REGIMES
 
 __all__ = ["regime_decisions", "tuning_section", "regime_plot", "regime_cost"]
@@ -105,7 +106,7 @@ def _verdict(d: stats.Decision, encoder: str) -> str:
 
 def regime_cost(all_results: pd.DataFrame) -> pd.DataFrame:
     """Per model and regime: median seconds per cell, the tuning share, the multiplier."""
-    ok = all_results[all_results["status"] == "ok"].copy()
+    ok = all_results[all_results["status"] == OK].copy()
     if ok.empty:
         return pd.DataFrame()
     parts = ["encoder_fit_s", "encoder_transform_s", "model_fit_s", "predict_s", "score_s"]
@@ -123,19 +124,17 @@ def regime_cost(all_results: pd.DataFrame) -> pd.DataFrame:
 
 
 def _space_text(run) -> str:
-    cfg = run.manifest.get("config") or {}
-    t = cfg.get("tuning") or {}
+    t = run.manifest.tuning
     regimes = _regimes(run.all_results)
     kinds = ("models", "encoders") if "tuned-both" in regimes else ("models",)  # tuned-model keeps encoders fixed
-    spaces = [f"{kind[:-1]} {label}: " + ", ".join(f"{k} {_fmt_dim(v)}" for k, v in body["search"].items())
-              for kind in kinds for label, body in (cfg.get(kind) or {}).items()
-              if isinstance(body, dict) and isinstance(body.get("search"), dict)]
+    spaces = [f"{kind[:-1]} {label}: " + ", ".join(f"{k} {_fmt_dim(v)}" for k, v in search.items())
+              for kind in kinds for label, search in run.manifest.search_spaces(kind).items()]
     paired = (" The outer folds are those of the untuned cells, so the regimes are paired cell by cell."
               if DEFAULT_REGIME in regimes else "")
     method = {"random": "random search", "halving": "successive halving (a third kept per round)"}.get(
-        t.get("method", "random"), t.get("method"))
-    return (f"Each tuned cell searched {t.get('budget', '?')} candidates by {method}, scored by "
-            f"{t.get('inner_folds', 3)}-fold cross-validation inside the outer training fold; encoder and "
+        t.method, t.method)
+    return (f"Each tuned cell searched {t.budget} candidates by {method}, scored by "
+            f"{t.inner_folds}-fold cross-validation inside the outer training fold; encoder and "
             "model were refitted on every inner training split, so no target statistic saw the targets "
             "of its validation rows, and the winner was refitted on the whole outer training fold and "
             f"scored on the outer test fold.{paired} Search spaces: " + ("; ".join(spaces) or "none recorded") + ".")

@@ -33,6 +33,7 @@ from harness.reporting._run import Run, load_run
 from harness.reporting._status import status_section
 from harness.reporting._tuning import tuning_section
 from harness.reporting.tables import metric_name
+from harness.schema import Manifest
 from harness._outputs import swap_in_dir
 from harness.store import describe_set_aside
 
@@ -47,34 +48,34 @@ def _params(spec: dict, skip: str) -> str:
 
 def _dataset_rows(run: Run) -> pd.DataFrame:
     rows = []
-    for name, d in run.manifest.get("datasets", {}).items():  # loop over datasets
-        fp = d.get("fingerprint") or {}
-        card = fp.get("cardinality") or {}
-        private = bool(d.get("private"))
-        cats = ", ".join(f"{c} ({n})" for c, n in card.items()) or "none"
-        rows.append({"dataset": name, "source": "private file" if private else d.get("source", ""),
-                     "task": d.get("task", ""), "rows": fp.get("rows", ""),
-                     "max cardinality": fp.get("max_cardinality", ""),
+    for name, d in run.manifest.datasets.items():  # loop over datasets
+        cats = ", ".join(f"{c} ({n})" for c, n in d.cardinality.items()) or "none"
+        rows.append({"dataset": name, "source": "private file" if d.private else d.source,
+                     "task": d.task, "rows": _or(d.rows, ""),
+                     "max cardinality": _or(d.max_cardinality, ""),
                      "categorical columns (levels)": cats,
-                     "numeric columns": len(d.get("numeric") or [])})
+                     "numeric columns": len(d.numeric)})
     return pd.DataFrame(rows)
 
 
-def _protocol_text(man: dict) -> str:
-    p = man.get("protocol") or {}
-    folds, repeats = p.get("folds", "?"), p.get("repeats", 1)
-    strat = ("stratified by class for classification" if p.get("stratify", True)
-             else "not stratified")
-    return (f"{repeats} × {folds}-fold cross-validation ({strat}; seed "
-            f"{man.get('seed', '?')}; encoders are fitted on the training folds only)")
+def _or(value, missing="?"):
+    """``value``, or ``missing`` where the manifest does not record it."""
+    return missing if value is None else value
 
 
-def _grouping_text(man: dict) -> str:
+def _protocol_text(man: Manifest) -> str:
+    p = man.protocol
+    strat = "stratified by class for classification" if p.stratify else "not stratified"
+    return (f"{p.repeats} × {_or(p.folds)}-fold cross-validation ({strat}; seed "
+            f"{_or(man.seed)}; encoders are fitted on the training folds only)")
+
+
+def _grouping_text(man: Manifest) -> str:
     """Each dataset's grouping, grouped cross-fitting, and tables that look clustered."""
-    ds = man.get("datasets", {})
-    if not ds or any("group" not in d for d in ds.values()):
+    ds = man.datasets
+    if not man.grouping_recorded:
         return ""  # a manifest written before grouping was recorded: say nothing rather than guess
-    grouped = {n: d["group"] for n, d in ds.items() if d.get("group")}
+    grouped = {n: d.group for n, d in ds.items() if d.group}
     if grouped:
         parts = ", ".join(f"{n} by column '{g}'" for n, g in grouped.items())
         rest = [n for n in ds if n not in grouped]
@@ -86,22 +87,21 @@ def _grouping_text(man: dict) -> str:
                  if rest else "")
     else:
         text = "No dataset was grouped: rows were split at random and treated as independent. "
-    flagged = [f"{n} ({d.get('duplicate_test_share', 0.0):.0%})" for n, d in ds.items() if d.get("clustered")]
+    flagged = [f"{n} ({d.duplicate_test_share:.0%})" for n, d in ds.items() if d.clustered]
     if flagged:
         text += ("Share of test rows with an exact duplicate (features and target) in their training fold, "
                  f"a sign of clustered rows that inflates scores: {', '.join(flagged)}. ")
     return text
 
 
-def _policy_text(man: dict) -> str:
+def _policy_text(man: Manifest) -> str:
     """The scaling and missing-value policies as the run recorded them."""
     text = ""
-    scaling = man.get("scaling") or {}
-    if scaling.get("scaled_models"):
-        text += (f"For the models on scaled inputs ({', '.join(scaling['scaled_models'])}), "
-                 f"{scaling['policy']}; the other models took the columns unscaled. ")
+    if man.scaled_models:
+        text += (f"For the models on scaled inputs ({', '.join(man.scaled_models)}), "
+                 f"{man.scaling_policy}; the other models took the columns unscaled. ")
     rules: dict = {}
-    for label, rule in (man.get("missing_values") or {}).items():
+    for label, rule in man.missing_values.items():
         rules.setdefault(rule, []).append(label)
     if len(rules) == 1:
         text += f"A missing categorical value was {next(iter(rules))} under every encoder. "
@@ -138,23 +138,20 @@ def _primary_metric_text(results: pd.DataFrame) -> str:
 
 def _methods_text(a: Analysis) -> str:
     man = a.run.manifest
-    ds = man.get("datasets", {})
+    ds = man.datasets
     dtext = "; ".join(
-        f"{n} ({'private file, ' if d.get('private') else ''}{d.get('task')}, "
-        f"{(d.get('fingerprint') or {}).get('rows', '?')} rows, largest categorical "
-        f"cardinality {(d.get('fingerprint') or {}).get('max_cardinality', '?')})"
+        f"{n} ({'private file, ' if d.private else ''}{d.task}, "
+        f"{_or(d.rows)} rows, largest categorical "
+        f"cardinality {_or(d.max_cardinality)})"
         for n, d in ds.items())
-    enc = "; ".join(f"{lab} ({s.get('kind')}: {_params(s, 'kind')})"
-                    for lab, s in (man.get("encoders") or {}).items())
-    mod = "; ".join(f"{lab} ({s.get('family')}: {_params(s, 'family')})"
-                    for lab, s in (man.get("models") or {}).items())
-    pk = man.get("packages") or {}
-    soft = ", ".join(f"{SOFTWARE_NAMES.get(k, k)} {v}" for k, v in pk.items() if v and k in
+    enc = "; ".join(f"{lab} ({s.get('kind')}: {_params(s, 'kind')})" for lab, s in man.encoders.items())
+    mod = "; ".join(f"{lab} ({s.get('family')}: {_params(s, 'family')})" for lab, s in man.models.items())
+    soft = ", ".join(f"{SOFTWARE_NAMES.get(k, k)} {v}" for k, v in man.packages.items() if v and k in
                      ("python", "harness", "numpy", "pandas", "scipy", "scikit-learn", "lightgbm"))
-    low, high = a.bands
+    low, high = a.medium_levels
     return (
-        f"We compared {len(man.get('encoders') or {})} categorical encodings ({enc}) with "
-        f"{len(man.get('models') or {})} model(s) ({mod}) on {len(ds)} dataset(s): {dtext}. "
+        f"We compared {len(man.encoders)} categorical encodings ({enc}) with "
+        f"{len(man.models)} model(s) ({mod}) on {len(ds)} dataset(s): {dtext}. "
         f"Each dataset × encoder × model was evaluated by {_protocol_text(man)}. "
         f"{_grouping_text(man)}"
         f"{_policy_text(man)}"
@@ -169,13 +166,14 @@ def _methods_text(a: Analysis) -> str:
         f"nominal), the Friedman test with the Iman–Davenport correction "
         f"({_bib.cite('iman1980')}; permutation p-value, exact for small tables) and the "
         f"Nemenyi critical difference ({_bib.cite('demsar2006')}). {_decision_methods_text(a)} "
-        f"Cardinality regimes: low < {low} ≤ "
-        f"medium ≤ {high} < high levels. Leakage was audited per dataset: each "
+        f"Cardinality regimes, by each dataset's categorical column with the most levels: "
+        f"{low} to {high} levels (inclusive) is medium, fewer is low, more is high. "
+        f"Leakage was audited per dataset: each "
         f"target-statistics setting against its k-fold cross-fitted twin on the same folds. "
         f"Software: {soft}. Run "
-        f"{man.get('started', '?')} to {man.get('finished', '?')} on "
-        f"{(man.get('machine') or {}).get('cpus', '?')} CPU(s); config hash "
-        f"{man.get('config_hash', '?')}.")
+        f"{_or(man.started)} to {_or(man.finished)} on "
+        f"{_or(man.cpus)} CPU(s); config hash "
+        f"{_or(man.config_hash)}.")
 
 
 def _dropped_text(a: Analysis) -> str:
@@ -224,8 +222,7 @@ def methods_section(a: Analysis) -> list:
     if len(rows):
         out.append(Table(rows, "Datasets (private datasets: alias, counts and column "
                                "names only)."))
-    notes = [f"{n}: {note}" for n, d in a.run.manifest.get("datasets", {}).items()
-             for note in d.get("notes") or []]
+    notes = [f"{n}: {note}" for n, d in a.run.manifest.datasets.items() for note in d.notes]
     if notes:
         out.append(Bullets(tuple(notes)))
     return out
@@ -234,12 +231,12 @@ def methods_section(a: Analysis) -> list:
 # ---------------------------------------------------------------------------- writing
 def _header(a: Analysis) -> list:
     man = a.run.manifest
-    title = f"Encoding benchmark report: {man.get('experiment') or a.run.directory.name}"
-    desc = man.get("description") or ""
+    title = f"Encoding benchmark report: {man.experiment or a.run.directory.name}"
+    desc = man.description
     line = (f"{len(a.run.results)} cells; {a.run.results['dataset'].nunique()} datasets, "
             f"{a.run.results['encoder'].nunique()} encoders, "
             f"{a.run.results['model'].nunique()} models; config hash "
-            f"{man.get('config_hash', '?')}.")
+            f"{_or(man.config_hash)}.")
     aside = describe_set_aside(a.run.set_aside)
     return [Heading(title, 1), *([Para(desc)] if desc else []), Para(line + _regime_text(a)),
             *([Note(aside)] if aside else [])]

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from harness import stats
+from harness.schema import NOT_RUN, TEMPLATED_STATUSES
 
 __all__ = [
     "dataset_means_table",
@@ -31,8 +32,7 @@ __all__ = [
 
 METRIC_NAMES = {"roc_auc": "ROC AUC", "log_loss": "log loss", "accuracy": "accuracy",
                 "balanced_accuracy": "balanced accuracy", "rmse": "RMSE", "mae": "MAE",
-                "r2": "R²", "primary": "primary metric (per dataset)"}
-NOT_RUN = ("failed", "timeout", "out-of-memory", "skipped", "not-applicable")
+                "r2": "R²", stats.POOLED: "each dataset's own metric"}
 
 
 def metric_name(metric: str) -> str:
@@ -65,7 +65,7 @@ def dataset_means_table(results: pd.DataFrame, metric: str, *, alpha: float = 0.
     Learning 52:239-281; Bouckaert, R. & Frank, E. (2004), PAKDD (J = k*r resamples).
     """
     if metric == stats.POOLED:  # each dataset in its own metric and units, not negated
-        raw = results.assign(primary=stats.metric_values(results, stats.POOLED)[0])
+        raw = results.assign(**{stats.POOLED: stats.metric_values(results, stats.POOLED)[0]})
         s = stats.summarize_cells(raw, metrics=[metric], alpha=alpha, model_column=model_column)
         own = results.groupby("dataset")["primary_metric"].first()
         s["metric"] = s["dataset"].map(own)
@@ -135,7 +135,6 @@ def cost_summary(results: pd.DataFrame, *, reference: str | None = None,
 
 # ------------------------------------------------------------------------ cells not run
 _TYPE = re.compile(r"^\s*([A-Za-z_][\w.]*(?:Error|Exception|Warning|Exit|Timeout))\b")
-_TEMPLATED = ("skipped", "not-applicable", "timeout")
 
 
 def scrub_error(error: pd.Series, status: pd.Series, private: pd.Series) -> pd.Series:
@@ -148,7 +147,7 @@ def scrub_error(error: pd.Series, status: pd.Series, private: pd.Series) -> pd.S
     text = error.fillna("").astype(str)
     kind = text.str.extract(_TYPE, expand=False).fillna("error")
     hidden = kind + " (message withheld: private dataset)"
-    keep = ~private.astype(bool) | status.isin(_TEMPLATED) | (text == "")
+    keep = ~private.astype(bool) | status.isin(TEMPLATED_STATUSES) | (text == "")
     return text.where(keep, hidden).str.slice(0, 240)
 
 

@@ -23,7 +23,7 @@ Degenerate input
 """
 
 from harness.stats._common import (AGGREGATIONS, MISSING_POLICIES, POOLED, STATUS_OK,
-                                   metric_values, ok_rows, orientation, pool_primary,
+                                   metric_values, ok_rows, orientation, pool_task_score,
                                    unit_free_delta)
 from harness.stats._compare import (RANK_CI_MIN_DATASETS, Comparison, aggregate_scores,
                                     average_ranks, compare_encoders, control_z_test,
@@ -48,7 +48,7 @@ from harness.stats._tests import (BayesSignedRank, CorrectedT, CorrelatedT, Frie
 
 __all__ = [
     "AGGREGATIONS", "MISSING_POLICIES", "POOLED", "STATUS_OK", "metric_values", "ok_rows",
-    "orientation", "pool_primary", "unit_free_delta",
+    "orientation", "pool_task_score", "unit_free_delta",
     "RANK_CI_MIN_DATASETS", "expanded_alpha", "Comparison", "aggregate_scores", "average_ranks",
     "compare_encoders", "control_z_test",
     "friedman_test", "top_encoders", "wilcoxon_vs_control", "win_tie_loss",

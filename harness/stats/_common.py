@@ -12,8 +12,8 @@ import pandas as pd
 
 from harness.errors import ConfigError, DataError
 from harness.metrics import GREATER_IS_BETTER
+from harness.schema import OK as STATUS_OK
 
-STATUS_OK = "ok"
 MISSING_POLICIES = ("auto", "drop_datasets", "drop_encoders")
 #: aggregation name -> (column of :func:`aggregate_scores`, True when smaller is better)
 AGGREGATIONS = {
@@ -23,14 +23,16 @@ AGGREGATIONS = {
     "win_rate": ("win_rate", False),
 }
 _REQUIRED = ("dataset", "encoder", "model", "status")
-_FAILED = ("failed", "timeout", "out-of-memory")
 
 # ----------------------------------------------------------------------------- basics
-POOLED = "primary"
+#: the pooled score column: each row's own metric (named in its ``primary_metric`` column),
+#: oriented greater-is-better; shown as "each dataset's own metric"
+POOLED = "task_score"
 
 
-def pool_primary(results: pd.DataFrame) -> pd.DataFrame:
-    """Add the column ``primary``: each row's primary metric, oriented greater-is-better.
+def pool_task_score(results: pd.DataFrame) -> pd.DataFrame:
+    """Add the column ``task_score``: the value of each row's ``primary_metric``, oriented
+    greater-is-better.
 
     Encoders are ranked within each dataset, so a ranking across datasets may mix
     classification datasets judged on ROC AUC with regression datasets judged on RMSE

@@ -13,7 +13,14 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from harness.stats._common import POOLED, _row_test_train_ratio, metric_values, ok_rows, pool_primary, unit_free_delta
+from harness.stats._common import (
+    POOLED,
+    _row_test_train_ratio,
+    metric_values,
+    ok_rows,
+    pool_task_score,
+    unit_free_delta,
+)
 from harness.stats._leakage import leaky_settings
 from harness.stats._matrix import score_matrix
 from harness.stats._rule import SHOWN_NOT_WORSE, DecisionRule
@@ -137,7 +144,7 @@ def _pick_reference(results, model, metric, eligible, rule) -> tuple[str | None,
     if rule.reference is not None:
         notes.append(f"the configured reference '{rule.reference}' has no score for this "
                      "model (or is not eligible); the best average rank is used instead")
-    pooled = results if POOLED in results else pool_primary(results)
+    pooled = results if POOLED in results else pool_task_score(results)
     pooled = pooled.loc[pooled["encoder"].isin(eligible)]
     m = score_matrix(pooled, model, metric if metric in pooled else POOLED)
     if not m.encoders or m.n_datasets == 0:
@@ -302,7 +309,7 @@ def decide(results: pd.DataFrame, model: str, metric: str = POOLED,
     model : str
         Model label.
     metric : str
-        A metric column, or :data:`POOLED` (each dataset's own primary metric).
+        A metric column, or :data:`POOLED` (each dataset's own metric, ``primary_metric``).
     rule : DecisionRule, optional
         Default: ``DecisionRule()``.
 

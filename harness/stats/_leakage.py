@@ -7,7 +7,7 @@ import json
 import numpy as np
 import pandas as pd
 
-from harness.stats._common import _row_test_train_ratio, metric_values, ok_rows, orientation, unit_free_delta
+from harness.stats._common import POOLED, _row_test_train_ratio, metric_values, ok_rows, orientation, unit_free_delta
 from harness.stats._tests import corrected_t
 
 
@@ -104,7 +104,7 @@ def twins(results: pd.DataFrame) -> dict:
 
 
 def _fold_frame(df: pd.DataFrame) -> pd.DataFrame:
-    values, gib = metric_values(df, "primary")
+    values, gib = metric_values(df, POOLED)
     return pd.DataFrame({"dataset": df["dataset"], "model": df["model"],
                          "encoder": df["encoder"], "repeat": df["repeat"], "fold": df["fold"],
                          "metric": df["primary_metric"], "value": values, "gib": gib,

@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 
 from harness.errors import ConfigError
-from harness.stats._common import ok_rows
+from harness.stats._common import POOLED, ok_rows
 from harness.stats._decision import decide
 
 
@@ -68,7 +68,7 @@ def _slices(ok: pd.DataFrame, model: str, metric: str, metrics, regimes) -> list
     head = tuple(sorted(mine["dataset"].unique()))
     out, seen = [], {(metric, head)}
     own = set(mine["primary_metric"].dropna()) if "primary_metric" in mine else set()
-    if metric == "primary" and len(own) == 1:  # pooled over one task type: the same slice
+    if metric == POOLED and len(own) == 1:  # pooled over one task type: the same slice
         seen.add((own.pop(), head))
     for other in metrics:  # loop over metric names
         has = tuple(sorted(mine.loc[mine[other].notna(), "dataset"].unique())) \

@@ -79,6 +79,6 @@ def test_missing_target_lists_columns(table, tmp_path):
 
 def test_keys_are_the_shared_table_keys():
     keys = params_of("file")
-    assert list(keys) == ["path", "delimiter", "target", "categorical", "numeric", "drop", "task", "group", "max_rows", "seed", "alias"]
+    assert list(keys) == ["path", "delimiter", "target", "categorical", "numeric", "drop", "task", "group", "sample_rows", "seed", "alias"]
     assert keys["path"].default is keys["target"].default  # both required (empty)
     assert keys["seed"].default == 0 and keys["seed"].annotation is int

@@ -261,7 +261,7 @@ def test_task_id_uses_the_task_splits(cache, credit, offline):
 
 def test_task_splits_follow_dropped_rows(cache, credit, offline):
     root, pairs = cache
-    ds = load("openml", "credit_task", task_id=TASK, cache_dir=str(root), max_rows=60, seed=1)
+    ds = load("openml", "credit_task", task_id=TASK, cache_dir=str(root), sample_rows=60, seed=1)
     assert len(ds.X) == 60
     covered = np.sort(np.concatenate([test for _, test in ds.splits[:3]]))  # one repeat's test folds
     np.testing.assert_array_equal(covered, np.arange(60))

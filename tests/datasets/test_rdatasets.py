@@ -64,7 +64,7 @@ def test_catalog_covers_the_required_spread():
 
     shipped = tomllib.loads((Path(__file__).parents[2] / "configs" / "quickstart.toml").read_text())["datasets"]
     assert {b.name for b in QUICKSTART} == set(shipped)
-    assert max(min(b.rows, shipped[b.name].get("max_rows", b.rows)) for b in QUICKSTART) <= 5000
+    assert max(min(b.rows, shipped[b.name].get("sample_rows", b.rows)) for b in QUICKSTART) <= 5000
     bands = {("low" if b.max_cardinality < 10 else "medium" if b.max_cardinality <= 100 else "high") for b in TEAM}
     assert bands == {"low", "medium", "high"}
     assert {b.task for b in TEAM} == {"binary", "multiclass", "regression"}

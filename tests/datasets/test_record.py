@@ -89,7 +89,7 @@ def test_unknown_column_lists_the_available_columns(frame, key):
     ("keys", "pattern"),
     [
         ({"task": "binar"}, r"`task` must be one of binary, multiclass, regression.*got 'binar'.*Closest match: 'binary'"),
-        ({"max_rows": 0}, r"`max_rows` must be an integer >= 1; got 0"),
+        ({"sample_rows": 0}, r"`sample_rows` must be an integer >= 1; got 0"),
         ({"categorical": ["team"], "numeric": ["team"]}, r"listed both in `categorical` and in `numeric`"),
         ({"drop": ["label"]}, r"the target column 'label' is also listed"),
     ],
@@ -157,9 +157,9 @@ def test_group_column_leaves_the_features(frame):
 
 
 def test_subsample_is_seeded_and_keeps_order(frame):
-    a = _prep(frame, target="score", drop=["when"], max_rows=20, seed=1)
-    b = _prep(frame, target="score", drop=["when"], max_rows=20, seed=1)
-    c = _prep(frame, target="score", drop=["when"], max_rows=20, seed=2)
+    a = _prep(frame, target="score", drop=["when"], sample_rows=20, seed=1)
+    b = _prep(frame, target="score", drop=["when"], sample_rows=20, seed=1)
+    c = _prep(frame, target="score", drop=["when"], sample_rows=20, seed=2)
     assert len(a.X) == 20 and a.fingerprint["checksum"] == b.fingerprint["checksum"]
     assert a.fingerprint["checksum"] != c.fingerprint["checksum"]
     # rows keep their original order: the amounts appear in the same relative order

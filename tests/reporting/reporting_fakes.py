@@ -120,6 +120,6 @@ def write_fake_run(df: pd.DataFrame, out, *, private=(), aliases=None) -> None:
         "packages": {"python": "3"}, "machine": {"cpus": 1}, "datasets": datasets,
         "encoders": {e: {"kind": k} for e, k in zip(df["encoder"], df["encoder_kind"])},
         "models": {m: {"family": f} for m, f in zip(df["model"], df["model_family"])},
-        "protocol": {"folds": 3, "repeats": 1, "cardinality_bands": [10, 100]},
+        "protocol": {"folds": 3, "repeats": 1, "medium_levels": [10, 100]},
     }
     (out / "manifest.json").write_text(json.dumps(manifest))

@@ -12,6 +12,7 @@ from harness.config import parse_config
 from harness.models import SCALING_POLICY
 from harness.reporting.report import _methods_text, analyse, load_run
 from harness.runner import execute, plan
+from harness.schema import Manifest
 
 
 def _tables(tmp):
@@ -66,10 +67,10 @@ def test_grouping_and_grouped_crossfitting_are_stated(methods):
 
 def test_clustered_table_is_named_with_its_duplicate_share(methods):
     text, run = methods
-    share = run.manifest["datasets"]["copies"]["duplicate_test_share"]
-    assert share >= 0.2 and run.manifest["datasets"]["copies"]["clustered"]
+    share = run.manifest.datasets["copies"].duplicate_test_share
+    assert share >= 0.2 and run.manifest.datasets["copies"].clustered
     assert f"copies ({share:.0%})" in text
-    assert run.manifest["datasets"]["incidents"]["duplicate_test_share"] == 0.0
+    assert run.manifest.datasets["incidents"].duplicate_test_share == 0.0
 
 
 def test_scaling_and_missing_value_policies_are_stated(methods):
@@ -89,5 +90,5 @@ def test_set_aside_rows_are_stated(methods):
 def test_a_manifest_without_grouping_records_states_nothing_about_grouping():
     from harness.reporting.report import _grouping_text, _policy_text
 
-    old = {"datasets": {"a": {"task": "binary"}, "b": {"task": "regression"}}}
+    old = Manifest.from_dict({"datasets": {"a": {"task": "binary"}, "b": {"task": "regression"}}})
     assert _grouping_text(old) == "" and _policy_text(old) == ""

@@ -31,9 +31,9 @@ def _analysis(tmp_path, df, reference=None):
     """Analyse ``df`` as the report does (the team's incumbent ``reference`` configured),
     from a run record built in memory: the prose needs no store."""
     manifest = {"models": {m: {"family": f} for m, f in zip(df["model"], df["model_family"])},
-                "protocol": {"folds": 3, "repeats": 1, "cardinality_bands": [10, 100]},
+                "protocol": {"folds": 3, "repeats": 1, "medium_levels": [10, 100]},
                 "config": {"decision": {"reference": reference}} if reference else {}}
-    run = Run(directory=tmp_path, results=stats.pool_primary(df), manifest=manifest)
+    run = Run(directory=tmp_path, results=stats.pool_task_score(df), manifest=manifest)
     return analyse(run, n_boot=50)
 
 

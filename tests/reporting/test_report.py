@@ -52,7 +52,7 @@ def test_answer_names_a_choice_and_caveats(report):
     answer = md[md.index("## 1."):md.index("## 2.")]
     assert re.search(r"\*\*lin\*\* \(linear\).*: (use|keep) \*\*[\w-]+\*\*", answer)
     # the headline pools the 3 classification and 1 regression datasets of the sweep
-    assert "primary metric (per dataset) over 4 dataset(s) against the reference" in answer
+    assert "each dataset's own metric over 4 dataset(s) against the reference" in answer
     assert "Caveat: No reference was configured" in answer
     assert "| RMSE | exploratory, uncorrected |" in answer  # the regression dataset alone
     assert "p = 0 " not in md and "p = 0)" not in md and "p = 0," not in md

@@ -55,7 +55,7 @@ def test_pooled_means_are_in_each_dataset_own_units(rng):
     cls = fake_results(rng, n_datasets=2)
     reg = fake_results(rng, n_datasets=2, task="regression").assign(
         dataset=lambda d: d["dataset"].str.replace("d", "r"))
-    df = stats.pool_primary(pd.concat([cls, reg], ignore_index=True))
+    df = stats.pool_task_score(pd.concat([cls, reg], ignore_index=True))
     long = tables.dataset_means_table(df, stats.POOLED)
     rmse = long.loc[long["dataset"].str.startswith("r")]
     assert (rmse["mean"] > 0).all() and set(rmse["metric"]) == {"rmse"}  # not negated

