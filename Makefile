@@ -10,7 +10,7 @@ TEST_STAMP := $(VENV)/.installed-test
 # package may shadow it; here that folder is the package, so the note is silenced
 PIP := $(BIN)/python -W "ignore:Editable installation:UserWarning" -m pip
 
-.PHONY: demo test test-fast bench clean
+.PHONY: demo test test-fast lint bench clean
 
 $(BIN)/python:
 	$(PY) -m venv $(VENV)
@@ -33,11 +33,16 @@ demo: $(STAMP)
 	$(BIN)/levelfold run configs/quickstart.toml
 	$(BIN)/levelfold report results/quickstart
 
-test: $(TEST_STAMP)
+test: lint
 	$(BIN)/python -m pytest -q -p no:cacheprovider
 
-test-fast: $(TEST_STAMP)
+test-fast: lint
 	$(BIN)/python -m pytest -q -m "not slow" -p no:cacheprovider
+
+# ruff's lint and format check ([tool.ruff] in pyproject.toml); `make test` runs it first
+lint: $(TEST_STAMP)
+	$(BIN)/ruff check harness tests
+	$(BIN)/ruff format --check harness tests
 
 bench: $(STAMP)
 	$(BIN)/levelfold bench encoders

@@ -18,8 +18,7 @@ import shutil
 import uuid
 from pathlib import Path
 
-__all__ = ["temporary_beside", "swap_in_dir", "fsync_path", "is_disk_full",
-           "remove_stale_temporaries"]
+__all__ = ["temporary_beside", "swap_in_dir", "fsync_path", "is_disk_full", "remove_stale_temporaries"]
 
 _AT_FDCWD = -100
 _RENAME_EXCHANGE = 2
@@ -90,7 +89,7 @@ def remove_stale_temporaries(path) -> int:
     removed = 0
     for tmp in path.parent.glob(f".{path.name}.tmp-*-*"):
         try:
-            pid = int(tmp.name[len(f".{path.name}.tmp-"):].split("-")[0])
+            pid = int(tmp.name[len(f".{path.name}.tmp-") :].split("-")[0])
         except ValueError:
             continue
         if pid == os.getpid() or _pid_alive(pid):

@@ -66,8 +66,10 @@ def run_tuned_unit(dataset, job) -> list[dict]:
         splits = inner_splits(dataset, job)
     except ValueError as exc:  # too few rows or groups of a class for the inner folds
         _, message = classify_failure(exc, dataset.private)
-        why = (f"the inner folds of the search cannot be built ({message}); lower tuning.inner_folds "
-               f"(now {job.tuning.inner_folds}) or leave this dataset out of the tuned regimes")
+        why = (
+            f"the inner folds of the search cannot be built ({message}); lower tuning.inner_folds "
+            f"(now {job.tuning.inner_folds}) or leave this dataset out of the tuned regimes"
+        )
         return [base_row(c, dataset, job, FAILED, why) for c in job.cells]
     points = {c.cell_id: search_points(c, job.tuning) for c in job.cells}
     scores, spent = _search(dataset, job, splits, points)
@@ -75,7 +77,10 @@ def run_tuned_unit(dataset, job) -> list[dict]:
     for cell in job.cells:
         best = _best(scores[cell.cell_id])
         if best is None:
-            why = "every candidate of the search failed on the inner folds; see the model's own failures in the defaults regime"
+            why = (
+                "every candidate of the search failed on the inner folds; "
+                "see the model's own failures in the defaults regime"
+            )
             rows.append(dict(base_row(cell, dataset, job, FAILED, why), tune_s=spent.get(cell.cell_id, 0.0)))
             continue
         finals.append((cell, points[cell.cell_id][best]))
@@ -83,8 +88,12 @@ def run_tuned_unit(dataset, job) -> list[dict]:
         tuned = dict(next(p for c, p in finals if c.cell_id == cell.cell_id))
         # record what took effect: a parameter of the other task's estimator does not
         tuned["model"] = _models.role_params(cell.model.family, dataset.task, tuned["model"])
-        row.update(cell_id=cell.cell_id, regime=cell.regime, tune_s=spent.get(cell.cell_id, 0.0),
-                   tuned_params=json.dumps(tuned, sort_keys=True, default=str))
+        row.update(
+            cell_id=cell.cell_id,
+            regime=cell.regime,
+            tune_s=spent.get(cell.cell_id, 0.0),
+            tuned_params=json.dumps(tuned, sort_keys=True, default=str),
+        )
         rows.append(row)
     order = {c.cell_id: i for i, c in enumerate(job.cells)}
     rows.sort(key=lambda r: order[r["cell_id"]])
@@ -112,9 +121,15 @@ def _run(dataset, job, cells: list, train_idx, test_idx, inner: bool) -> list[di
 
     rows = []
     for group in _by_encoding(cells):
-        sub = dataclasses.replace(job, cells=tuple(group), train_idx=train_idx, test_idx=test_idx, tuning=None,
-                                  metrics=(job.task_metric(dataset.task),) if inner else job.metrics,
-                                  score_train=not inner)
+        sub = dataclasses.replace(
+            job,
+            cells=tuple(group),
+            train_idx=train_idx,
+            test_idx=test_idx,
+            tuning=None,
+            metrics=(job.task_metric(dataset.task),) if inner else job.metrics,
+            score_train=not inner,
+        )
         rows += run_unit(dataset, sub)
     return rows
 

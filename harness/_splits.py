@@ -33,8 +33,11 @@ def kfold_indices(y, groups, task: str, folds: int, stratify: bool, random_state
     if classify:
         classify = y.value_counts().min() >= 2  # a singleton class cannot be stratified
     if groups is not None:
-        splitter = (StratifiedGroupKFold(folds, shuffle=True, random_state=random_state) if classify
-                    else GroupKFold(folds, shuffle=True, random_state=random_state))
+        splitter = (
+            StratifiedGroupKFold(folds, shuffle=True, random_state=random_state)
+            if classify
+            else GroupKFold(folds, shuffle=True, random_state=random_state)
+        )
         parts = splitter.split(np.zeros(n), y, groups)
     elif classify:
         parts = StratifiedKFold(folds, shuffle=True, random_state=random_state).split(np.zeros(n), y)

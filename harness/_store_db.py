@@ -247,8 +247,11 @@ class Store:
         old = self.grid()
         new = {c.cell_id: c for c in cells}
         at_path = {c.path: c for c in cells}
-        labels = {"dataset": {c.dataset for c in cells}, "encoder": {c.encoder.label for c in cells},
-                  "model": {c.model.label for c in cells}}
+        labels = {
+            "dataset": {c.dataset for c in cells},
+            "encoder": {c.encoder.label for c in cells},
+            "model": {c.model.label for c in cells},
+        }
         stale = [r for r in self._rows("cells") if r["cell_id"] not in new]
         moved: dict[str, int] = {}
         for row in stale:
@@ -261,8 +264,10 @@ class Store:
             self._move(stale, "cells", "superseded", now)
             self._move(back, "superseded", "cells", now)
             self.db.execute("DELETE FROM grid")
-            self.db.executemany("INSERT INTO grid VALUES (?, ?, ?)",
-                                [(c.cell_id, c.path, json.dumps(c.identity, sort_keys=True)) for c in cells])
+            self.db.executemany(
+                "INSERT INTO grid VALUES (?, ?, ?)",
+                [(c.cell_id, c.path, json.dumps(c.identity, sort_keys=True)) for c in cells],
+            )
             self.db.execute("COMMIT")
         except BaseException:
             self.db.execute("ROLLBACK")
@@ -284,8 +289,10 @@ class Store:
             row.setdefault("superseded_at", now)
         cols = ", ".join(f'"{c}"' for c in names)
         marks = ", ".join("?" for _ in names)
-        self.db.executemany(f"INSERT OR REPLACE INTO {target} ({cols}) VALUES ({marks})",
-                            [tuple(row.get(c) for c in names) for row in rows])
+        self.db.executemany(
+            f"INSERT OR REPLACE INTO {target} ({cols}) VALUES ({marks})",
+            [tuple(row.get(c) for c in names) for row in rows],
+        )
         self.db.executemany(f"DELETE FROM {source} WHERE cell_id = ?", [(row["cell_id"],) for row in rows])
 
     def set_aside(self) -> dict:

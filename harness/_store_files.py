@@ -20,9 +20,22 @@ from urllib.parse import quote
 from harness._outputs import fsync_path, is_disk_full
 from harness.errors import DiskFullError, OutputError, StoreError
 
-__all__ = ["STORE_NAME", "CREATING_PREFIX", "KEPT_PREFIX", "lock_directory", "unlock", "file_identity",
-           "connect_readonly", "create_atomically", "remove_creation_leftovers", "keep_aside", "finish_keeping",
-           "make_dir", "disk_full", "output_error"]
+__all__ = [
+    "STORE_NAME",
+    "CREATING_PREFIX",
+    "KEPT_PREFIX",
+    "lock_directory",
+    "unlock",
+    "file_identity",
+    "connect_readonly",
+    "create_atomically",
+    "remove_creation_leftovers",
+    "keep_aside",
+    "finish_keeping",
+    "make_dir",
+    "disk_full",
+    "output_error",
+]
 
 STORE_NAME = "results.sqlite"
 CREATING_PREFIX = ".results.sqlite.creating-"  # a store being built; renamed when complete
@@ -147,7 +160,7 @@ def remove_creation_leftovers(out: Path) -> None:
 
 
 def _kept_dirs(out: Path) -> list[Path]:
-    return [p for p in out.glob(KEPT_PREFIX + "*") if p.name[len(KEPT_PREFIX):].split(".")[0].isdigit()]
+    return [p for p in out.glob(KEPT_PREFIX + "*") if p.name[len(KEPT_PREFIX) :].split(".")[0].isdigit()]
 
 
 def keep_aside(out: Path) -> Path:
@@ -157,7 +170,7 @@ def keep_aside(out: Path) -> Path:
     leaves the ``.partial`` directory, and the next writer finishes the move before it
     touches anything (:func:`_finish_keeping`), so a WAL is never separated from its file.
     """
-    numbers = [int(p.name[len(KEPT_PREFIX):].split(".")[0]) for p in _kept_dirs(out)]
+    numbers = [int(p.name[len(KEPT_PREFIX) :].split(".")[0]) for p in _kept_dirs(out)]
     partial = out / f"{KEPT_PREFIX}{max(numbers, default=0) + 1}.partial"
     try:
         partial.mkdir()

@@ -128,11 +128,7 @@ class ProcessPool:
                             job,
                             [
                                 base_row(
-                                    c,
-                                    self.datasets[label],
-                                    job,
-                                    FAILED,
-                                    "worker process died while running this unit",
+                                    c, self.datasets[label], job, FAILED, "worker process died while running this unit"
                                 )
                                 for c in job.cells
                             ],

@@ -45,8 +45,18 @@ ZIPF_EXPONENT = 1.1  # word and city-size frequencies follow Zipf's law with s c
 DTYPES = ("object", "str", "category")
 DEFAULT_OUTPUT = Path("results/bench/encoders.csv")
 RESULT_COLUMNS = [
-    "kind", "dtype", "columns", "cardinality", "ours_s", "reference", "reference_s", "ratio",
-    "floor_s", "over_floor", "floor_ratio", "identical",
+    "kind",
+    "dtype",
+    "columns",
+    "cardinality",
+    "ours_s",
+    "reference",
+    "reference_s",
+    "ratio",
+    "floor_s",
+    "over_floor",
+    "floor_ratio",
+    "identical",
 ]
 
 #: kinds timed against our own k-fold target statistics (no outside implementation)
@@ -139,23 +149,41 @@ def _cases(frame: pd.DataFrame, y: np.ndarray, seed: int) -> list[Case]:
     ]
     close = lambda a, b: bool(np.allclose(a, b, rtol=1e-9, atol=1e-12))  # noqa: E731
     return [
-        Case("integer", "OrdinalEncoder",
-             lambda: build("integer").fit_transform(frame),
-             lambda: OrdinalEncoder().fit_transform(frame), _arrays_equal),
-        Case("onehot", "OneHotEncoder(handle_unknown='ignore')",
-             lambda: build("onehot").fit_transform(frame),
-             lambda: OneHotEncoder(handle_unknown="ignore").fit_transform(frame), _arrays_equal),
-        Case("hashing", "FeatureHasher(input_type='string')",
-             lambda: build("hashing", width=HASH_COMPONENTS).fit_transform(frame),
-             lambda: FeatureHasher(HASH_COMPONENTS, input_type="string").transform(tokens),
-             _arrays_equal),
-        Case("frequency", "pandas map(value_counts())",
-             lambda: build("frequency").fit_transform(frame),
-             lambda: _value_counts_map(frame), _arrays_equal),
-        Case("target", "TargetEncoder(smooth='auto'), same KFold",
-             lambda: build("target", smoothing="empirical-bayes", crossfit="kfold",
-                           cv=splitter).fit_transform(frame, y),
-             lambda: TargetEncoder(smooth="auto", cv=splitter).fit_transform(frame, y), close),
+        Case(
+            "integer",
+            "OrdinalEncoder",
+            lambda: build("integer").fit_transform(frame),
+            lambda: OrdinalEncoder().fit_transform(frame),
+            _arrays_equal,
+        ),
+        Case(
+            "onehot",
+            "OneHotEncoder(handle_unknown='ignore')",
+            lambda: build("onehot").fit_transform(frame),
+            lambda: OneHotEncoder(handle_unknown="ignore").fit_transform(frame),
+            _arrays_equal,
+        ),
+        Case(
+            "hashing",
+            "FeatureHasher(input_type='string')",
+            lambda: build("hashing", width=HASH_COMPONENTS).fit_transform(frame),
+            lambda: FeatureHasher(HASH_COMPONENTS, input_type="string").transform(tokens),
+            _arrays_equal,
+        ),
+        Case(
+            "frequency",
+            "pandas map(value_counts())",
+            lambda: build("frequency").fit_transform(frame),
+            lambda: _value_counts_map(frame),
+            _arrays_equal,
+        ),
+        Case(
+            "target",
+            "TargetEncoder(smooth='auto'), same KFold",
+            lambda: build("target", smoothing="empirical-bayes", crossfit="kfold", cv=splitter).fit_transform(frame, y),
+            lambda: TargetEncoder(smooth="auto", cv=splitter).fit_transform(frame, y),
+            close,
+        ),
         *_newer_cases(frame, y, splitter),
     ]
 
@@ -166,11 +194,12 @@ def _newer_cases(frame: pd.DataFrame, y: np.ndarray, splitter) -> list[Case]:
     ``contrast`` is timed with sparse output: its dense output at 1,000 levels and 10^6
     rows is 8 GB, which no encoder can write at this speed (the README says so).
     """
-    ours = {"contrast": dict(scheme="sum", sparse=True), "hybrid": {}, "glmm": {"cv": splitter},
-            "similarity": {}}
+    ours = {"contrast": dict(scheme="sum", sparse=True), "hybrid": {}, "glmm": {"cv": splitter}, "similarity": {}}
     target = lambda: build("target", crossfit="kfold", cv=splitter).fit_transform(frame, y)  # noqa: E731
-    return [Case(kind, TARGET_REFERENCE, lambda kind=kind: _fit(kind, ours[kind], frame, y),
-                 target, _same_rows) for kind in NEWER_KINDS]
+    return [
+        Case(kind, TARGET_REFERENCE, lambda kind=kind: _fit(kind, ours[kind], frame, y), target, _same_rows)
+        for kind in NEWER_KINDS
+    ]
 
 
 def _fit(kind: str, params: dict, frame: pd.DataFrame, y: np.ndarray):
@@ -260,14 +289,22 @@ def _time_frame(n_rows: int, cardinality: int, n_columns: int, dtype: str, repea
     for case in _cases(frame, y, seed):
         ours_s, ours = best_time(case.ours, repeats)
         reference_s, reference = best_time(case.reference, repeats)
-        rows.append({
-            "kind": case.kind, "dtype": dtype, "columns": n_columns,
-            "cardinality": cardinality, "ours_s": ours_s,
-            "reference": case.reference_name, "reference_s": reference_s,
-            "ratio": reference_s / ours_s, "floor_s": floor_s,
-            "over_floor": ours_s / floor_s, "floor_ratio": reference_s / floor_s,
-            "identical": case.same(ours, reference),
-        })
+        rows.append(
+            {
+                "kind": case.kind,
+                "dtype": dtype,
+                "columns": n_columns,
+                "cardinality": cardinality,
+                "ours_s": ours_s,
+                "reference": case.reference_name,
+                "reference_s": reference_s,
+                "ratio": reference_s / ours_s,
+                "floor_s": floor_s,
+                "over_floor": ours_s / floor_s,
+                "floor_ratio": reference_s / floor_s,
+                "identical": case.same(ours, reference),
+            }
+        )
     return rows
 
 
@@ -289,14 +326,14 @@ def check_targets(table: pd.DataFrame) -> pd.DataFrame:
             if found is None:
                 continue
             bound, only = found
-            rows_of = part if only is None else part.loc[(part["cardinality"] == only)
-                                                         & (part["columns"] == 1)]
+            rows_of = part if only is None else part.loc[(part["cardinality"] == only) & (part["columns"] == 1)]
             if rows_of.empty:
                 continue
             worst = rows_of[measure].min() if measure == "ratio" else rows_of[measure].max()
             met = worst >= bound if measure == "ratio" else worst <= bound
-            rows.append({"kind": kind, "dtype": dtype, "measure": measure,
-                         "worst": worst, "target": bound, "met": bool(met)})
+            rows.append(
+                {"kind": kind, "dtype": dtype, "measure": measure, "worst": worst, "target": bound, "met": bool(met)}
+            )
     return pd.DataFrame(rows, columns=["kind", "dtype", "measure", "worst", "target", "met"])
 
 
@@ -320,11 +357,15 @@ def format_targets(checked: pd.DataFrame) -> str:
     lines = []
     for r in checked.itertuples():
         if r.measure == "ratio":
-            lines.append(f"{r.kind:<11}{r.dtype:<9} reference / ours  worst {r.worst:5.2f}x  "
-                         f"target >= {r.target:.2g}x  {'met' if r.met else 'NOT MET'}")
+            lines.append(
+                f"{r.kind:<11}{r.dtype:<9} reference / ours  worst {r.worst:5.2f}x  "
+                f"target >= {r.target:.2g}x  {'met' if r.met else 'NOT MET'}"
+            )
         else:
-            lines.append(f"{r.kind:<11}{r.dtype:<9} ours / floor      worst {r.worst:5.2f}x  "
-                         f"target <= {r.target:g}x  {'met' if r.met else 'NOT MET'}")
+            lines.append(
+                f"{r.kind:<11}{r.dtype:<9} ours / floor      worst {r.worst:5.2f}x  "
+                f"target <= {r.target:g}x  {'met' if r.met else 'NOT MET'}"
+            )
     return "\n".join(lines)
 
 
@@ -335,17 +376,14 @@ def _positive_ints(text: str) -> tuple[int, ...]:
         values = ()
     if not values or min(values) < 1:
         raise ConfigError(
-            f"--cardinalities must be a comma-separated list of integers >= 1 "
-            f"(e.g. 10,1000,100000); got {text!r}."
+            f"--cardinalities must be a comma-separated list of integers >= 1 (e.g. 10,1000,100000); got {text!r}."
         )
     return values
 
 
 def main(argv=None) -> int:
     """Command line: ``python -m harness.bench [--rows N] [--cardinalities 10,1000] ...``."""
-    parser = argparse.ArgumentParser(
-        prog="levelfold bench encoders", description=__doc__.split("\n")[0]
-    )
+    parser = argparse.ArgumentParser(prog="levelfold bench encoders", description=__doc__.split("\n")[0])
     parser.add_argument("--rows", type=int, default=1_000_000, help="rows per column")
     parser.add_argument("--cardinalities", default="10,1000,100000", help="comma-separated")
     parser.add_argument("--repeats", type=int, default=3, help="timings per call; best kept")
@@ -363,8 +401,12 @@ def main(argv=None) -> int:
     if not dtypes or set(dtypes) - set(DTYPES):
         raise ConfigError(f"--dtypes must be a comma-separated list of {', '.join(DTYPES)}; got {args.dtypes!r}.")
     table = run_encoder_bench(
-        args.rows, _positive_ints(args.cardinalities), repeats=args.repeats, seed=args.seed,
-        dtypes=dtypes, wide=args.wide,
+        args.rows,
+        _positive_ints(args.cardinalities),
+        repeats=args.repeats,
+        seed=args.seed,
+        dtypes=dtypes,
+        wide=args.wide,
     )
     print(
         f"encoder fit_transform, {args.rows:,} rows, best of {args.repeats}; "

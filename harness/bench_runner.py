@@ -119,30 +119,29 @@ def hand_loop(config_path: str, repeats: int = 2) -> dict:
     # training encodings, so the training-fold scores of target encoders differ by design
     metrics = [c for c in hand.columns if c not in keys and not c.startswith("train_")]
     diff = max(float((both[m] - both[f"{m}_hand"]).abs().max()) for m in metrics)
-    return {"config": config_path, "cells": len(df), "matched": len(both), "harness_s": harness_s,
-            "hand_s": hand_s, "ratio": hand_s / harness_s, "max_metric_diff": diff}
+    return {
+        "config": config_path,
+        "cells": len(df),
+        "matched": len(both),
+        "harness_s": harness_s,
+        "hand_s": hand_s,
+        "ratio": hand_s / harness_s,
+        "max_metric_diff": diff,
+    }
 
 
 def _hand_written(config) -> pd.DataFrame:
     """The loop a user writes without the harness (no sharing across models or folds)."""
     import numpy as np
-    from sklearn.compose import ColumnTransformer
-    from sklearn.impute import SimpleImputer
-    from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import FunctionTransformer
     from threadpoolctl import threadpool_limits
 
     from harness import metrics as _metrics
-    from harness import models as _models
-    from harness.encoders import build
     from harness.runner import load_datasets, outer_splits
 
     p = config.protocol
-    target_types = {"binary": "binary", "multiclass": "multiclass", "regression": "continuous"}
     rows = []
     with threadpool_limits(1):
         for label, ds in load_datasets(config).items():
-            cat, num = list(ds.categorical), list(ds.numeric)
             own = p.regression_metric if ds.task == "regression" else p.classification_metric
             classes = None if ds.task == "regression" else np.unique(ds.y.to_numpy())
             splits = outer_splits(ds, p.folds, p.repeats, p.stratify, config.seed)
@@ -151,35 +150,47 @@ def _hand_written(config) -> pd.DataFrame:
                 y_tr, y_te = ds.y.iloc[tr].to_numpy(), ds.y.iloc[te].to_numpy()
                 for enc in config.encoders:
                     for model in config.models:
-                        encoder = build(enc.kind, **enc.params)
-                        if "random_state" in encoder.get_params() and "random_state" not in enc.params:
-                            seed = (config.seed * 10_007 + repeat * 101 + fold) % (2**31 - 1)
-                            encoder.set_params(random_state=seed)
-                        if encoder.get_params().get("target_type") == "auto":
-                            encoder.set_params(target_type=target_types[ds.task])
-                        sparse = enc.kind == "hashing" or (enc.kind == "onehot" and enc.params.get("sparse", True))
-                        family = _models.FAMILIES[model.family]
-                        steps = [ColumnTransformer(
-                            [("cat", encoder, cat), ("num", SimpleImputer(strategy="median"), num)],
-                            sparse_threshold=1.0)]
-                        if sparse and not family.sparse:
-                            steps.append(FunctionTransformer(lambda m: m.toarray(), accept_sparse=True))
-                        steps.append(_models.build_model(
-                            model.family, ds.task, seed=(config.seed + repeat) % 2**31,
-                            params=dict(model.params), n_numeric=len(num)))
-                        pipe = make_pipeline(*steps).fit(X_tr, y_tr)
+                        pipe = _hand_pipeline(config, ds, enc, model, repeat, fold).fit(X_tr, y_tr)
                         if ds.task == "regression":
                             pred_te, pred_tr = pipe.predict(X_te), pipe.predict(X_tr)
                         else:
                             pred_te, pred_tr = pipe.predict_proba(X_te), pipe.predict_proba(X_tr)
-                        row = {"dataset": label, "encoder": enc.label, "model": model.label,
-                               "repeat": repeat, "fold": fold}
+                        row = {"dataset": label, "encoder": enc.label, "model": model.label}
+                        row.update(repeat=repeat, fold=fold)
                         for name in p.metrics:
                             if name in _metrics.metrics_for(ds.task):
                                 row[name] = _metrics.score(name, ds.task, y_te, pred_te, classes)
                         row[f"train_{own}"] = _metrics.score(own, ds.task, y_tr, pred_tr, classes)
                         rows.append(row)
     return pd.DataFrame(rows)
+
+
+def _hand_pipeline(config, ds, enc, model, repeat: int, fold: int):
+    """One scikit-learn pipeline (encoder and imputer side by side, then the model), unfitted."""
+    from sklearn.compose import ColumnTransformer
+    from sklearn.impute import SimpleImputer
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import FunctionTransformer
+
+    from harness import models as _models
+    from harness.encoders import build
+
+    target_types = {"binary": "binary", "multiclass": "multiclass", "regression": "continuous"}
+    cat, num = list(ds.categorical), list(ds.numeric)
+    encoder = build(enc.kind, **enc.params)
+    if "random_state" in encoder.get_params() and "random_state" not in enc.params:
+        encoder.set_params(random_state=(config.seed * 10_007 + repeat * 101 + fold) % (2**31 - 1))
+    if encoder.get_params().get("target_type") == "auto":
+        encoder.set_params(target_type=target_types[ds.task])
+    sparse = enc.kind == "hashing" or (enc.kind == "onehot" and enc.params.get("sparse", True))
+    steps = [
+        ColumnTransformer([("cat", encoder, cat), ("num", SimpleImputer(strategy="median"), num)], sparse_threshold=1.0)
+    ]
+    if sparse and not _models.FAMILIES[model.family].sparse:
+        steps.append(FunctionTransformer(lambda m: m.toarray(), accept_sparse=True))
+    seed = (config.seed + repeat) % 2**31
+    steps.append(_models.build_model(model.family, ds.task, seed=seed, params=dict(model.params), n_numeric=len(num)))
+    return make_pipeline(*steps)
 
 
 def tuning_cost(config_path: str) -> pd.DataFrame:
@@ -190,9 +201,16 @@ def tuning_cost(config_path: str) -> pd.DataFrame:
     for regime in base.tuning.regimes:
         config = dataclasses.replace(base, tuning=dataclasses.replace(base.tuning, regimes=(regime,)))
         wall, df = _timed_run(config, jobs=1)
-        rows.append({"regime": regime, "cells": len(df), "ok": int((df["status"] == OK).sum()), "wall_s": wall,
-                     "tune_s": float(df["tune_s"].fillna(0).sum()),
-                     "fits_per_cell_bound": 1 if regime == "defaults" else base.tuning.fits_per_cell()})
+        rows.append(
+            {
+                "regime": regime,
+                "cells": len(df),
+                "ok": int((df["status"] == OK).sum()),
+                "wall_s": wall,
+                "tune_s": float(df["tune_s"].fillna(0).sum()),
+                "fits_per_cell_bound": 1 if regime == "defaults" else base.tuning.fits_per_cell(),
+            }
+        )
     table = pd.DataFrame(rows)
     ref = table.loc[table["regime"] == "defaults", "wall_s"]
     table["multiplier"] = table["wall_s"] / float(ref.iloc[0]) if len(ref) else float("nan")
@@ -202,7 +220,11 @@ def tuning_cost(config_path: str) -> pd.DataFrame:
 def _rows(config, label: str) -> int:
     from harness.runner import load_datasets
 
-    return len(load_datasets(dataclasses.replace(config, datasets=tuple(d for d in config.datasets if d.label == label)))[label].y)
+    return len(
+        load_datasets(dataclasses.replace(config, datasets=tuple(d for d in config.datasets if d.label == label)))[
+            label
+        ].y
+    )
 
 
 def main(argv=None) -> int:
@@ -215,17 +237,25 @@ def main(argv=None) -> int:
     out.mkdir(parents=True, exist_ok=True)
     if args.what == "runner":
         over = overhead(args.config or "configs/quickstart.toml")
-        print(f"overhead on {over['config']} (--jobs 1, {over['cells']} cells): wall {over['wall_s']:.1f} s, "
-              f"work {over['work_s']:.1f} s, harness overhead {100 * over['overhead_share']:.1f} % of wall time (target <= 10 %)")
+        print(
+            f"overhead on {over['config']} (--jobs 1, {over['cells']} cells): wall {over['wall_s']:.1f} s, "
+            f"work {over['work_s']:.1f} s, harness overhead {100 * over['overhead_share']:.1f} % of wall time "
+            "(target <= 10 %)"
+        )
         sp = speedup(args.config or "configs/bench-speedup.toml")
-        print(f"speedup on {sp['config']} ({sp['cells']} cells): --jobs 1 {sp['jobs1_s']:.1f} s, --jobs 2 "
-              f"{sp['jobs2_s']:.1f} s, ratio {sp['speedup']:.2f}x (target >= 1.7x)")
+        print(
+            f"speedup on {sp['config']} ({sp['cells']} cells): --jobs 1 {sp['jobs1_s']:.1f} s, --jobs 2 "
+            f"{sp['jobs2_s']:.1f} s, ratio {sp['speedup']:.2f}x (target >= 1.7x)"
+        )
         hand = hand_loop(args.config or "configs/quickstart.toml")
-        print(f"hand-written Pipeline loop on {hand['config']} ({hand['matched']} of {hand['cells']} cells matched, "
-              f"largest metric difference {hand['max_metric_diff']:.2g}): loop {hand['hand_s']:.1f} s, harness "
-              f"--jobs 1 {hand['harness_s']:.1f} s, ratio {hand['ratio']:.2f}x (loop / harness)")
-        pd.DataFrame([{**over, **{f"speedup_{k}": v for k, v in sp.items()},
-                       **{f"hand_{k}": v for k, v in hand.items()}}]).to_csv(out / "runner.csv", index=False)
+        print(
+            f"hand-written Pipeline loop on {hand['config']} ({hand['matched']} of {hand['cells']} cells matched, "
+            f"largest metric difference {hand['max_metric_diff']:.2g}): loop {hand['hand_s']:.1f} s, harness "
+            f"--jobs 1 {hand['harness_s']:.1f} s, ratio {hand['ratio']:.2f}x (loop / harness)"
+        )
+        pd.DataFrame(
+            [{**over, **{f"speedup_{k}": v for k, v in sp.items()}, **{f"hand_{k}": v for k, v in hand.items()}}]
+        ).to_csv(out / "runner.csv", index=False)
     elif args.what == "tuning":
         table = tuning_cost(args.config or "configs/bench-tuning.toml")
         print(table.to_string(index=False, float_format=lambda v: f"{v:.2f}"))

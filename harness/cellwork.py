@@ -13,7 +13,7 @@ import time
 import traceback
 import warnings
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import numpy as np
 import pandas as pd
@@ -93,7 +93,7 @@ def base_row(cell: Cell, dataset, job: UnitJob, status: str, error: str = "") ->
         "n_train": len(job.train_idx),
         "n_test": len(job.test_idx),
         "max_cardinality": dataset.max_cardinality,
-        "finished_at": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "finished_at": datetime.now(UTC).isoformat(timespec="seconds"),
     }
 
 
@@ -168,8 +168,16 @@ def _encode(dataset, job: UnitJob):
     # targets and the class list once per unit, shared by every model of the unit
     classes = None if dataset.task == "regression" else np.unique(dataset.y.to_numpy())
     return _Encoded(
-        train, test, t1 - t0, t2 - t1, train.shape[1], _megabytes(train), peak_rss_mb(),
-        y_train, dataset.y.iloc[job.test_idx].to_numpy(), classes,
+        train,
+        test,
+        t1 - t0,
+        t2 - t1,
+        train.shape[1],
+        _megabytes(train),
+        peak_rss_mb(),
+        y_train,
+        dataset.y.iloc[job.test_idx].to_numpy(),
+        classes,
     )
 
 
@@ -233,7 +241,9 @@ def classify_failure(exc: BaseException, private: bool = False) -> tuple[str, st
 def _model_cell(cell: Cell, dataset, job: UnitJob, enc: _Encoded) -> dict:
     family = _models.FAMILIES[cell.model.family]
     row = base_row(cell, dataset, job, OK)
-    row.update(encoder_fit_s=enc.fit_s, encoder_transform_s=enc.transform_s, n_features_out=enc.n_out, encoded_mb=enc.mb)
+    row.update(
+        encoder_fit_s=enc.fit_s, encoder_transform_s=enc.transform_s, n_features_out=enc.n_out, encoded_mb=enc.mb
+    )
     native = isinstance(enc.train, pd.DataFrame)
     if native and not family.native_categorical:
         row.update(status=NOT_APPLICABLE, error=f"model family '{family.name}' cannot take native categorical columns")
@@ -274,7 +284,10 @@ def _fit_and_score(cell: Cell, dataset, job: UnitJob, train, test, enc: _Encoded
         model = DummyRegressor() if task == "regression" else DummyClassifier(strategy="prior")
     else:
         model = _models.build_model(
-            cell.model.family, task, seed=(job.seed + cell.repeat) % 2**31, params=dict(cell.model.params),
+            cell.model.family,
+            task,
+            seed=(job.seed + cell.repeat) % 2**31,
+            params=dict(cell.model.params),
             n_numeric=len(dataset.numeric),
         )
     t0 = time.perf_counter()

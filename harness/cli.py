@@ -26,35 +26,13 @@ PROG = "levelfold"
 
 def _parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
-        prog=PROG,
-        description="Benchmark categorical encodings: datasets x encoders x models x folds -> evidence.",
+        prog=PROG, description="Benchmark categorical encodings: datasets x encoders x models x folds -> evidence."
     )
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
-
-    run = sub.add_parser("run", help="run a config (resumes: only missing cells are computed)")
-    run.add_argument("config", nargs="?", metavar="CONFIG", help="TOML config file")
-    run.add_argument("--data", metavar="FILE", help="a private CSV/Parquet file to use as the only dataset")
-    run.add_argument("--target", metavar="COLUMN", help="target column of --data")
-    run.add_argument("--config", dest="config_opt", metavar="BASE_CONFIG",
-                     help="config whose encoders, models and protocol --data uses "
-                     f"(default {DEFAULT_PRIVATE_CONFIG})")
-    run.add_argument("--alias", metavar="NAME", help="name of the --data dataset in every output (hides the file name)")
-    run.add_argument("--description", metavar="TEXT",
-                     help="one-line description of the --data experiment for the report")
-    run.add_argument("--out", metavar="DIR", help="output directory (default results/<experiment name>; with --data, "
-                     "results/private-<name>-<config hash>)")
-    run.add_argument("--jobs", type=int, metavar="N", help="parallel worker processes")
-    run.add_argument("--backend", choices=["local", "dask"], help="execution backend")
-    run.add_argument("--scheduler", metavar="ADDRESS",
-                     help="Dask scheduler address (tcp://host:8786); none = local cluster")
-    run.add_argument("--fresh", action="store_true", help="start over (the old store is kept as kept-N/, numbered)")
-    run.add_argument("--retry-failed", action="store_true", help="also rerun cells recorded as failed, timeout or out-of-memory")
-    run.add_argument("--only", metavar="PATTERN", help="only cells whose dataset/encoder/model label matches")
-    run.add_argument("--dry-run", action="store_true", help="print the grid size and the cells, run nothing")
-    run.add_argument("--quiet", action="store_true", help="no progress bar")
-
-    st = sub.add_parser("status", help="cells finished, missing and superseded, and counts per status, "
-                        "of a results directory")
+    _add_run_parser(sub)
+    st = sub.add_parser(
+        "status", help="cells finished, missing and superseded, and counts per status, of a results directory"
+    )
     st.add_argument("dir", metavar="DIR", help="a results directory (what `run --out` wrote)")
 
     ex = sub.add_parser("export", help="write the results table to CSV or Parquet")
@@ -65,14 +43,53 @@ def _parser() -> argparse.ArgumentParser:
 
     rep = sub.add_parser("report", help="write DIR/report/: report.md, report.html, figures, tables")
     rep.add_argument("dir", metavar="DIR", help="the results directory to report on (with --compare: the run 'now')")
-    rep.add_argument("--compare", metavar="OTHER_DIR",
-                     help="an earlier run, the 'before': the report adds what changed from OTHER_DIR to DIR")
-    rep.add_argument("--out", metavar="OUT_DIR", help="write OUT_DIR/report/ instead of DIR/report/ (e.g. DIR is read-only)")
+    rep.add_argument(
+        "--compare",
+        metavar="OTHER_DIR",
+        help="an earlier run, the 'before': the report adds what changed from OTHER_DIR to DIR",
+    )
+    rep.add_argument(
+        "--out", metavar="OUT_DIR", help="write OUT_DIR/report/ instead of DIR/report/ (e.g. DIR is read-only)"
+    )
 
     bench = sub.add_parser("bench", help="speed benchmarks that print ratios against a reference")
     bench.add_argument("what", choices=["encoders", "runner", "scaling", "tuning"])
     bench.add_argument("rest", nargs=argparse.REMAINDER, help="options passed to the benchmark")
     return p
+
+
+def _add_run_parser(sub) -> None:
+    run = sub.add_parser("run", help="run a config (resumes: only missing cells are computed)")
+    run.add_argument("config", nargs="?", metavar="CONFIG", help="TOML config file")
+    run.add_argument("--data", metavar="FILE", help="a private CSV/Parquet file to use as the only dataset")
+    run.add_argument("--target", metavar="COLUMN", help="target column of --data")
+    run.add_argument(
+        "--config",
+        dest="config_opt",
+        metavar="BASE_CONFIG",
+        help=f"config whose encoders, models and protocol --data uses (default {DEFAULT_PRIVATE_CONFIG})",
+    )
+    run.add_argument("--alias", metavar="NAME", help="name of the --data dataset in every output (hides the file name)")
+    run.add_argument(
+        "--description", metavar="TEXT", help="one-line description of the --data experiment for the report"
+    )
+    run.add_argument(
+        "--out",
+        metavar="DIR",
+        help="output directory (default results/<experiment name>; with --data, results/private-<name>-<config hash>)",
+    )
+    run.add_argument("--jobs", type=int, metavar="N", help="parallel worker processes")
+    run.add_argument("--backend", choices=["local", "dask"], help="execution backend")
+    run.add_argument(
+        "--scheduler", metavar="ADDRESS", help="Dask scheduler address (tcp://host:8786); none = local cluster"
+    )
+    run.add_argument("--fresh", action="store_true", help="start over (the old store is kept as kept-N/, numbered)")
+    run.add_argument(
+        "--retry-failed", action="store_true", help="also rerun cells recorded as failed, timeout or out-of-memory"
+    )
+    run.add_argument("--only", metavar="PATTERN", help="only cells whose dataset/encoder/model label matches")
+    run.add_argument("--dry-run", action="store_true", help="print the grid size and the cells, run nothing")
+    run.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 INTERRUPTED = "finished cells are kept in the store; rerun the same command to resume."
@@ -150,22 +167,29 @@ def _say(text: str) -> None:
 
 # --------------------------------------------------------------------------- commands
 def _load_for_run(args):
-    from harness.config import load_config
-    from harness.config import private_config
+    from harness.config import load_config, private_config
 
     if args.data:
         if args.config:
             raise ConfigError("give either a CONFIG or --data FILE (with --config for its settings), not both.")
         if not args.target:
             raise ConfigError("--data needs --target COLUMN naming the target column of the file.")
-        return private_config(args.data, args.target, args.config_opt or DEFAULT_PRIVATE_CONFIG,
-                              alias=args.alias, description=args.description)
+        return private_config(
+            args.data,
+            args.target,
+            args.config_opt or DEFAULT_PRIVATE_CONFIG,
+            alias=args.alias,
+            description=args.description,
+        )
     if args.alias or args.description:
-        raise ConfigError("--alias and --description name a --data dataset; with a CONFIG, set `alias` in its "
-                          "[datasets.<label>] table and `description` in [experiment].")
+        raise ConfigError(
+            "--alias and --description name a --data dataset; with a CONFIG, set `alias` in its "
+            "[datasets.<label>] table and `description` in [experiment]."
+        )
     if not args.config:
-        raise ConfigError(f"`{PROG} run` needs a CONFIG file (e.g. configs/quickstart.toml) "
-                          "or --data FILE --target COLUMN.")
+        raise ConfigError(
+            f"`{PROG} run` needs a CONFIG file (e.g. configs/quickstart.toml) or --data FILE --target COLUMN."
+        )
     return load_config(args.config)
 
 
@@ -180,25 +204,34 @@ def cmd_run(args) -> int:
         raise ConfigError(
             f"--scheduler '{args.scheduler}' is given but the backend is "
             f"'{args.backend or config.execution.backend}', which does not use a scheduler. Add --backend dask "
-            "(or set execution.backend = \"dask\"), or drop --scheduler."
+            '(or set execution.backend = "dask"), or drop --scheduler.'
         )
     if args.jobs is not None and not (args.scheduler or config.execution.scheduler):
         check_jobs(args.jobs, "--jobs")
     the_plan = plan(config, args.only)
     out = Path(args.out or config.output)
     if not the_plan.cells:
-        raise ConfigError(f"--only '{args.only}' matches no cell; labels are dataset, encoder and model names from {config.path}.")
+        raise ConfigError(
+            f"--only '{args.only}' matches no cell; labels are dataset, encoder and model names from {config.path}."
+        )
     if args.dry_run:
         code = _dry_run(the_plan, out)
         _warn_few_folds(config)
         return code
     summary = execute(
-        the_plan, out, jobs=args.jobs, backend=args.backend, scheduler=args.scheduler, fresh=args.fresh,
-        progress=not args.quiet, retry_failed=args.retry_failed,
+        the_plan,
+        out,
+        jobs=args.jobs,
+        backend=args.backend,
+        scheduler=args.scheduler,
+        fresh=args.fresh,
+        progress=not args.quiet,
+        retry_failed=args.retry_failed,
     )
     counts = ", ".join(f"{k} {v}" for k, v in sorted(summary.counts.items()))
     print(
-        f"{summary.total} cells ({summary.computed} computed, {summary.reused} reused) in {summary.wall_s:.1f} s: {counts}.\n"
+        f"{summary.total} cells ({summary.computed} computed, {summary.reused} reused) "
+        f"in {summary.wall_s:.1f} s: {counts}.\n"
         f"results: {out / 'results.sqlite'}  table: {out / 'results.csv'}  manifest: {out / 'manifest.json'}"
     )
     if summary.set_aside:
@@ -210,7 +243,7 @@ def cmd_run(args) -> int:
     for label, ds in the_plan.datasets.items():
         for note in ds.notes:
             if note.startswith(CHECK):
-                print(f"note: dataset '{label}': {note[len(CHECK):]}.")
+                print(f"note: dataset '{label}': {note[len(CHECK) :]}.")
     if summary.interrupted:
         text, code = _interrupted_message(summary.stopped_by)
         _say(text)
@@ -227,10 +260,12 @@ def _warn_few_folds(config) -> None:
     total = p.folds * p.repeats
     if len(config.datasets) == 1 and total < MIN_FOLDS_ONE_DATASET:
         need = -(-MIN_FOLDS_ONE_DATASET // p.folds)
-        _say(f"warning: one dataset with {p.folds} folds x {p.repeats} repeat(s) = {total} "
-             f"outer folds; the one-dataset decision rests on fold-paired differences and wants "
-             f"at least {MIN_FOLDS_ONE_DATASET}: set `protocol.repeats = {need}` in "
-             f"{config.path} (or pass --config with such a protocol).")
+        _say(
+            f"warning: one dataset with {p.folds} folds x {p.repeats} repeat(s) = {total} "
+            f"outer folds; the one-dataset decision rests on fold-paired differences and wants "
+            f"at least {MIN_FOLDS_ONE_DATASET}: set `protocol.repeats = {need}` in "
+            f"{config.path} (or pass --config with such a protocol)."
+        )
 
 
 DRY_RUN_SHOWN = 40  # cells to compute listed by --dry-run; the rest are counted
@@ -250,7 +285,8 @@ def _dry_run(the_plan, out: Path) -> int:
     todo = sum(c.cell_id not in done for c in the_plan.cells)
     print(
         f"{cfg.name}: {len(cfg.datasets)} datasets x {len(cfg.encoders)} encoders x {len(cfg.models)} models x "
-        f"{cfg.protocol.repeats} repeats x {cfg.protocol.folds} folds = {n} cells; {todo} to compute, {n - todo} already in {out}."
+        f"{cfg.protocol.repeats} repeats x {cfg.protocol.folds} folds = {n} cells; "
+        f"{todo} to compute, {n - todo} already in {out}."
     )
     stale = len(done - {c.cell_id for c in the_plan.grid})
     if stale:
@@ -273,15 +309,19 @@ def cmd_status(args) -> int:
     table = table_only(args.dir)
     if table is not None:  # a committed sample: its table is the grid
         grid, aside = {}, {}
-        _say(f"note: {args.dir} has no results store; read its exported table "
-             f"{table.name} (the rows of the grid it was made with).")
+        _say(
+            f"note: {args.dir} has no results store; read its exported table "
+            f"{table.name} (the rows of the grid it was made with)."
+        )
     else:
         with Store(args.dir, lock=False, create=False) as store:
             grid, aside = store.grid(), store.set_aside()
     finished = int(df["cell_id"].isin(grid).sum()) if grid else len(df)
     missing = len(grid) - finished if grid else 0
-    print(f"{args.dir}: {len(grid) or len(df)} cells in the current grid: {finished} finished, {missing} missing; "
-          f"{sum(aside.values())} superseded rows set aside")
+    print(
+        f"{args.dir}: {len(grid) or len(df)} cells in the current grid: {finished} finished, {missing} missing; "
+        f"{sum(aside.values())} superseded rows set aside"
+    )
     if len(df):
         index = ["dataset", "regime"] if df.get("regime", pd.Series(dtype=str)).nunique() > 1 else "dataset"
         table = df.pivot_table(index=index, columns="status", values="cell_id", aggfunc="count", fill_value=0)
@@ -289,8 +329,11 @@ def cmd_status(args) -> int:
         failed = df[df["status"].isin(RETRY_STATUSES)]
         for _, row in failed.head(10).iterrows():
             tuned = "" if row.get("regime", "defaults") == "defaults" else f"{row['regime']}/"
-            print(f"  {row['status']}: {row['dataset']}/{row['encoder']}/{row['model']}/{tuned}r{row['repeat']}f{row['fold']}: "
-                  f"{row['error'][:150]}")
+            print(
+                f"  {row['status']}: {row['dataset']}/{row['encoder']}/{row['model']}/"
+                f"{tuned}r{row['repeat']}f{row['fold']}: "
+                f"{row['error'][:150]}"
+            )
     for reason, n in aside.items():
         print(f"  superseded ({n} rows): {reason}")
     return 0

@@ -60,8 +60,10 @@ def _shared_parts(config: Config) -> dict:
         "code": digest([harness_version(), CODE_VERSION, IDENTITY_SCHEMA], 12),
         "seed": digest(config.seed, 12),
         # values only, in this order: renaming a protocol key keeps every cell id
-        "protocol": digest([p.folds, p.repeats, p.stratify, p.group, sorted(p.metrics),
-                            p.classification_metric, p.regression_metric], 12),
+        "protocol": digest(
+            [p.folds, p.repeats, p.stratify, p.group, sorted(p.metrics), p.classification_metric, p.regression_metric],
+            12,
+        ),
     }
 
 
@@ -118,7 +120,9 @@ def resolved_encoder_params(encoder: EncoderSpec) -> dict:
     return json.loads(json.dumps(params, sort_keys=True, default=repr))
 
 
-def build_grid(config: Config, layout: dict[str, tuple[int, int]] | None = None, checksums: dict | None = None) -> list[Cell]:
+def build_grid(
+    config: Config, layout: dict[str, tuple[int, int]] | None = None, checksums: dict | None = None
+) -> list[Cell]:
     """All cells of ``config`` in unit order.
 
     Parameters

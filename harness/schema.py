@@ -43,11 +43,30 @@ from harness.metrics import METRICS
 from harness.tuning import DEFAULT_REGIME, Tuning
 
 __all__ = [
-    "SCHEMA_VERSION", "IDENTITY_SCHEMA", "READABLE_VERSIONS",
-    "COLUMNS", "NAMES", "BOOL_COLUMNS", "FILLED_ON_UPGRADE", "SET_ASIDE_EXTRA",
-    "OK", "FAILED", "TIMEOUT", "OUT_OF_MEMORY", "SKIPPED", "NOT_APPLICABLE",
-    "STATUSES", "RETRY_STATUSES", "NOT_RUN", "TEMPLATED_STATUSES",
-    "MANIFEST_VERSION", "RENAMED_PROTOCOL_KEYS", "Manifest", "DatasetRecord", "ProtocolRecord", "protocol_value",
+    "SCHEMA_VERSION",
+    "IDENTITY_SCHEMA",
+    "READABLE_VERSIONS",
+    "COLUMNS",
+    "NAMES",
+    "BOOL_COLUMNS",
+    "FILLED_ON_UPGRADE",
+    "SET_ASIDE_EXTRA",
+    "OK",
+    "FAILED",
+    "TIMEOUT",
+    "OUT_OF_MEMORY",
+    "SKIPPED",
+    "NOT_APPLICABLE",
+    "STATUSES",
+    "RETRY_STATUSES",
+    "NOT_RUN",
+    "TEMPLATED_STATUSES",
+    "MANIFEST_VERSION",
+    "RENAMED_PROTOCOL_KEYS",
+    "Manifest",
+    "DatasetRecord",
+    "ProtocolRecord",
+    "protocol_value",
 ]
 
 # ----------------------------------------------------------------------------- versions
@@ -126,8 +145,11 @@ SET_ASIDE_EXTRA = [("superseded_at", "TEXT"), ("reason", "TEXT")]
 MANIFEST_VERSION = 2
 #: protocol keys renamed since earlier runs wrote their manifest (new -> old): the
 #: committed samples and older runs hold the old names, so readers take the new one first
-RENAMED_PROTOCOL_KEYS = {"classification_metric": "primary", "regression_metric": "primary_regression",
-                         "medium_levels": "cardinality_bands"}
+RENAMED_PROTOCOL_KEYS = {
+    "classification_metric": "primary",
+    "regression_metric": "primary_regression",
+    "medium_levels": "cardinality_bands",
+}
 
 
 def _table(value) -> dict:
@@ -158,13 +180,19 @@ class DatasetRecord:
     @classmethod
     def from_dict(cls, raw) -> DatasetRecord:
         raw = _table(raw)
-        return cls(source=str(raw.get("source") or ""), task=str(raw.get("task") or ""),
-                   private=bool(raw.get("private")), notes=tuple(raw.get("notes") or ()),
-                   categorical=tuple(raw.get("categorical") or ()), numeric=tuple(raw.get("numeric") or ()),
-                   fingerprint=_table(raw.get("fingerprint")), group=raw.get("group") or None,
-                   grouping_recorded="group" in raw,
-                   duplicate_test_share=float(raw.get("duplicate_test_share") or 0.0),
-                   clustered=bool(raw.get("clustered")))
+        return cls(
+            source=str(raw.get("source") or ""),
+            task=str(raw.get("task") or ""),
+            private=bool(raw.get("private")),
+            notes=tuple(raw.get("notes") or ()),
+            categorical=tuple(raw.get("categorical") or ()),
+            numeric=tuple(raw.get("numeric") or ()),
+            fingerprint=_table(raw.get("fingerprint")),
+            group=raw.get("group") or None,
+            grouping_recorded="group" in raw,
+            duplicate_test_share=float(raw.get("duplicate_test_share") or 0.0),
+            clustered=bool(raw.get("clustered")),
+        )
 
     @property
     def rows(self) -> int | None:
@@ -199,8 +227,10 @@ class ProtocolRecord:
     def from_dict(cls, raw) -> ProtocolRecord:
         """Read a protocol table under the current key names, else their earlier ones."""
         raw = _table(raw)
-        got = {key: protocol_value(raw, key) for key in ("folds", "repeats", "stratify", "group", "metrics",
-                                                         *RENAMED_PROTOCOL_KEYS)}
+        got = {
+            key: protocol_value(raw, key)
+            for key in ("folds", "repeats", "stratify", "group", "metrics", *RENAMED_PROTOCOL_KEYS)
+        }
         got = {k: v for k, v in got.items() if v is not None}
         if "metrics" in got:
             got["metrics"] = tuple(got["metrics"])
@@ -258,29 +288,42 @@ class Manifest:
             Not a JSON object, or a version newer than :data:`MANIFEST_VERSION`.
         """
         if not isinstance(raw, Mapping):
-            raise StoreError(f"not a JSON object (got {type(raw).__name__}); rerun `levelfold run` with "
-                             "the same config to rewrite it.")
+            raise StoreError(
+                f"not a JSON object (got {type(raw).__name__}); rerun `levelfold run` with "
+                "the same config to rewrite it."
+            )
         version = raw.get("manifest_version", 1)
         if not isinstance(version, int) or not 1 <= version <= MANIFEST_VERSION:
-            raise StoreError(f"manifest version {version!r}, which this harness does not read (1 to "
-                             f"{MANIFEST_VERSION}); report it with the harness version that wrote it, or "
-                             "rerun `levelfold run` with the same config to rewrite it.")
+            raise StoreError(
+                f"manifest version {version!r}, which this harness does not read (1 to "
+                f"{MANIFEST_VERSION}); report it with the harness version that wrote it, or "
+                "rerun `levelfold run` with the same config to rewrite it."
+            )
         config = _table(raw.get("config"))
         scaling = _table(raw.get("scaling"))
         protocol = raw.get("protocol") or config.get("protocol")
         return cls(
-            version=version, experiment=str(raw.get("experiment") or ""),
-            description=str(raw.get("description") or ""), config_path=raw.get("config_path"),
-            config_hash=raw.get("config_hash"), seed=raw.get("seed"), started=raw.get("started"),
-            finished=raw.get("finished"), interrupted=bool(raw.get("interrupted")),
-            status_counts=_table(raw.get("status_counts")), packages=_table(raw.get("packages")),
+            version=version,
+            experiment=str(raw.get("experiment") or ""),
+            description=str(raw.get("description") or ""),
+            config_path=raw.get("config_path"),
+            config_hash=raw.get("config_hash"),
+            seed=raw.get("seed"),
+            started=raw.get("started"),
+            finished=raw.get("finished"),
+            interrupted=bool(raw.get("interrupted")),
+            status_counts=_table(raw.get("status_counts")),
+            packages=_table(raw.get("packages")),
             machine=_table(raw.get("machine")),
             datasets={str(k): DatasetRecord.from_dict(v) for k, v in _table(raw.get("datasets")).items()},
-            missing_values=_table(raw.get("missing_values")), scaling_policy=str(scaling.get("policy") or ""),
+            missing_values=_table(raw.get("missing_values")),
+            scaling_policy=str(scaling.get("policy") or ""),
             scaled_models=tuple(scaling.get("scaled_models") or ()),
             encoders={k: _table(v) for k, v in _table(raw.get("encoders")).items()},
             models={k: _table(v) for k, v in _table(raw.get("models")).items()},
-            protocol=ProtocolRecord.from_dict(protocol), config=config)
+            protocol=ProtocolRecord.from_dict(protocol),
+            config=config,
+        )
 
     @classmethod
     def coerce(cls, manifest) -> Manifest:
@@ -314,8 +357,11 @@ class Manifest:
 
     def search_spaces(self, kind: str) -> dict:
         """``{label: search table}`` of the config's ``models`` or ``encoders`` that have one."""
-        return {label: body["search"] for label, body in _table(self.config.get(kind)).items()
-                if isinstance(body, Mapping) and isinstance(body.get("search"), Mapping)}
+        return {
+            label: body["search"]
+            for label, body in _table(self.config.get(kind)).items()
+            if isinstance(body, Mapping) and isinstance(body.get("search"), Mapping)
+        }
 
     @property
     def aliases(self) -> dict:

@@ -39,11 +39,24 @@ from harness.schema import (
     SET_ASIDE_EXTRA,
 )
 
-__all__ = ["STORE_NAME", "TABLE_NAME", "Store", "read_results", "read_set_aside", "describe_set_aside", "export",
-           "table_only",
-           # the results format (harness.schema), importable from here as before
-           "COLUMNS", "NAMES", "BOOL_COLUMNS", "FILLED_ON_UPGRADE", "READABLE_VERSIONS", "SCHEMA_VERSION",
-           "SET_ASIDE_EXTRA"]
+__all__ = [
+    "STORE_NAME",
+    "TABLE_NAME",
+    "Store",
+    "read_results",
+    "read_set_aside",
+    "describe_set_aside",
+    "export",
+    "table_only",
+    # the results format (harness.schema), importable from here as before
+    "COLUMNS",
+    "NAMES",
+    "BOOL_COLUMNS",
+    "FILLED_ON_UPGRADE",
+    "READABLE_VERSIONS",
+    "SCHEMA_VERSION",
+    "SET_ASIDE_EXTRA",
+]
 
 TABLE_NAME = "results.parquet"  # the exported table; read when a directory has no store
 
@@ -72,14 +85,18 @@ def read_results(out) -> pd.DataFrame:
         try:
             df = pd.read_parquet(table)
         except Exception as exc:  # noqa: BLE001  pyarrow raises several types for a damaged file
-            raise StoreError(f"the results table {table} cannot be read ({exc}); restore it "
-                             "from version control or rerun the config that made it.") from None
+            raise StoreError(
+                f"the results table {table} cannot be read ({exc}); restore it "
+                "from version control or rerun the config that made it."
+            ) from None
         df = df.assign(**{k: v for k, v in FILLED_ON_UPGRADE.items() if k not in df})
         missing = [col for col, _ in COLUMNS if col not in df and col not in BOOL_COLUMNS]
         if missing:
-            raise StoreError(f"the results table {table} lacks the column(s) "
-                             f"{', '.join(missing)}; it was not written by `levelfold export`. "
-                             "Rerun the config that made it.")
+            raise StoreError(
+                f"the results table {table} lacks the column(s) "
+                f"{', '.join(missing)}; it was not written by `levelfold export`. "
+                "Rerun the config that made it."
+            )
     else:
         with Store(out, lock=False, create=False) as store:
             df = store.frame()
@@ -111,8 +128,10 @@ def describe_set_aside(aside: dict) -> str:
     if not aside:
         return ""
     why = "; ".join(f"{reason}: {n}" for reason, n in aside.items())
-    return (f"{sum(aside.values())} row(s) of cells no longer in the current config were set aside "
-            f"as superseded and are not used ({why}).")
+    return (
+        f"{sum(aside.values())} row(s) of cells no longer in the current config were set aside "
+        f"as superseded and are not used ({why})."
+    )
 
 
 def export(df: pd.DataFrame, path) -> Path:
@@ -145,7 +164,6 @@ def export(df: pd.DataFrame, path) -> Path:
         if is_disk_full(exc):
             raise disk_full(path.parent, f"writing {path.name}", len(df) * 512) from None
         raise OutputError(
-            f"cannot write the export {path} ({exc.strerror or exc}). Pass a path in a directory you "
-            "can write to."
+            f"cannot write the export {path} ({exc.strerror or exc}). Pass a path in a directory you can write to."
         ) from None
     return path

@@ -33,8 +33,18 @@ import numpy as np
 
 from harness.errors import ConfigError
 
-__all__ = ["REGIMES", "DEFAULT_REGIME", "METHODS", "Tuning", "Dimension", "parse_space", "space_size",
-           "candidates", "check_budget", "HALVING_FACTOR"]
+__all__ = [
+    "REGIMES",
+    "DEFAULT_REGIME",
+    "METHODS",
+    "Tuning",
+    "Dimension",
+    "parse_space",
+    "space_size",
+    "candidates",
+    "check_budget",
+    "HALVING_FACTOR",
+]
 
 REGIMES = ("defaults", "tuned-model", "tuned-both")
 DEFAULT_REGIME = "defaults"
@@ -92,8 +102,11 @@ class Dimension:
             return self.values[int(rng.integers(len(self.values)))]
         lo, hi = (math.log(self.low), math.log(self.high)) if self.scale == "log" else (self.low, self.high)
         if self.integer:  # widen by half a step so that both ends are as likely as any other value
-            lo, hi = (math.log(self.low - 0.5 + 1e-9), math.log(self.high + 0.5)) if self.scale == "log" \
+            lo, hi = (
+                (math.log(self.low - 0.5 + 1e-9), math.log(self.high + 0.5))
+                if self.scale == "log"
                 else (self.low - 0.5 + 1e-9, self.high + 0.5)
+            )
         x = float(rng.uniform(lo, hi))
         x = math.exp(x) if self.scale == "log" else x
         return int(min(max(round(x), self.low), self.high)) if self.integer else x
@@ -126,21 +139,26 @@ def parse_space(table, where: str, path: str, allowed, check_value) -> tuple:
         ``check_value(name, value)`` raises ``ConfigError`` for a value the estimator rejects.
     """
     if not isinstance(table, dict):
-        raise ConfigError(f"`{where}` in {path} must be a table mapping parameters to a list of values or "
-                          f"a range {{low = ..., high = ..., scale = \"log\"}}; got {table!r}.")
+        raise ConfigError(
+            f"`{where}` in {path} must be a table mapping parameters to a list of values or "
+            f'a range {{low = ..., high = ..., scale = "log"}}; got {table!r}.'
+        )
     if not table:
-        raise ConfigError(f"`[{where}]` in {path} is empty: a search space needs at least one parameter. "
-                          "Add one, or remove the table.")
+        raise ConfigError(
+            f"`[{where}]` in {path} is empty: a search space needs at least one parameter. "
+            "Add one, or remove the table."
+        )
     from harness.errors import closest
 
     dims = []
     for name, spec in sorted(table.items()):
         if name not in allowed:
             shown = ", ".join(allowed) if len(allowed) <= 40 else f"the {len(allowed)} names `harness list` shows"
-            raise ConfigError(f"`{where}.{name}` in {path}: unknown parameter '{name}'; allowed: {shown}."
-                              f"{closest(name, allowed)}")
+            raise ConfigError(
+                f"`{where}.{name}` in {path}: unknown parameter '{name}'; allowed: {shown}.{closest(name, allowed)}"
+            )
         dim = _dimension(name, spec, f"{where}.{name}", path)
-        for value in (dim.values or (dim.low, dim.high)):
+        for value in dim.values or (dim.low, dim.high):
             check_value(name, value)
         dims.append(dim)
     return tuple(dims)
@@ -154,22 +172,27 @@ def _dimension(name: str, spec, where: str, path: str) -> Dimension:
             raise ConfigError(f"`{where}` in {path} lists a value twice ({spec!r}); list each value once.")
         return Dimension(name, tuple(spec))
     if not isinstance(spec, dict):
-        raise ConfigError(f"`{where}` in {path} must be a list of values or a range table "
-                          f"{{low = ..., high = ..., scale = \"linear\" | \"log\"}}; got {spec!r}.")
+        raise ConfigError(
+            f"`{where}` in {path} must be a list of values or a range table "
+            f'{{low = ..., high = ..., scale = "linear" | "log"}}; got {spec!r}.'
+        )
     unknown = sorted(set(spec) - {"low", "high", "scale"})
     if unknown or "low" not in spec or "high" not in spec:
-        raise ConfigError(f"`{where}` in {path} must have the keys low and high (and optionally scale); "
-                          f"got {sorted(spec)}.")
+        raise ConfigError(
+            f"`{where}` in {path} must have the keys low and high (and optionally scale); got {sorted(spec)}."
+        )
     lo, hi, scale = spec["low"], spec["high"], spec.get("scale", "linear")
     numbers = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (lo, hi))
     if not numbers or not lo < hi:
-        raise ConfigError(f"`{where}` in {path}: low and high must be numbers with low < high; got "
-                          f"low = {lo!r}, high = {hi!r}.")
+        raise ConfigError(
+            f"`{where}` in {path}: low and high must be numbers with low < high; got low = {lo!r}, high = {hi!r}."
+        )
     if scale not in ("linear", "log"):
-        raise ConfigError(f"`{where}.scale` in {path} must be \"linear\" or \"log\"; got {scale!r}.")
+        raise ConfigError(f'`{where}.scale` in {path} must be "linear" or "log"; got {scale!r}.')
     if scale == "log" and lo <= 0:
-        raise ConfigError(f"`{where}` in {path}: a log scale needs low > 0; got low = {lo!r}. "
-                          "Raise low or use scale = \"linear\".")
+        raise ConfigError(
+            f'`{where}` in {path}: a log scale needs low > 0; got low = {lo!r}. Raise low or use scale = "linear".'
+        )
     integer = isinstance(lo, int) and isinstance(hi, int)
     return Dimension(name, (), lo, hi, scale, integer)
 
@@ -185,7 +208,8 @@ def check_budget(tuning: Tuning, size: float, where: str, path: str) -> None:
         raise ConfigError(
             f"`tuning.budget` in {path} is {tuning.budget}, but the search space of {where} has only "
             f"{int(size)} distinct candidate(s). Lower tuning.budget to at most {int(size)}, or widen "
-            "the space (more values, or a range).")
+            "the space (more values, or a range)."
+        )
 
 
 def candidates(dims: tuple, budget: int, seed: int) -> list[dict]:
@@ -198,8 +222,10 @@ def candidates(dims: tuple, budget: int, seed: int) -> list[dict]:
     rng = np.random.default_rng(seed)
     size = space_size(dims)
     if size == budget:
-        return [dict(zip((d.name for d in dims), combo))
-                for combo in itertools.product(*([d.nth(i) for i in range(int(d.size))] for d in dims))]
+        return [
+            dict(zip((d.name for d in dims), combo))
+            for combo in itertools.product(*([d.nth(i) for i in range(int(d.size))] for d in dims))
+        ]
     if size <= _EXHAUSTIVE_LIMIT:
         picks = rng.choice(int(size), size=budget, replace=False)
         return [_decode(dims, int(i)) for i in picks]

@@ -55,8 +55,17 @@ def write_config(path: Path, raw: dict) -> Path:
     return path
 
 
-def tiny_config(path: Path, *, name: str = "tiny", folds: int = 2, repeats: int | None = None,
-                n_rows: int = 60, cardinalities=(4,), encoders=None, models=None) -> Path:
+def tiny_config(
+    path: Path,
+    *,
+    name: str = "tiny",
+    folds: int = 2,
+    repeats: int | None = None,
+    n_rows: int = 60,
+    cardinalities=(4,),
+    encoders=None,
+    models=None,
+) -> Path:
     """Write the tiny config the CLI, store and fault tests run, and return its path.
 
     One invented synthetic binary dataset ``toy`` (``n_rows`` rows, one categorical column
@@ -68,12 +77,23 @@ def tiny_config(path: Path, *, name: str = "tiny", folds: int = 2, repeats: int 
     raw = {
         "experiment": {"name": name},
         "protocol": protocol,
-        "datasets": {"toy": {"source": "synthetic", "n_rows": n_rows,
-                             "cardinalities": list(cardinalities), "task": "binary"}},
+        "datasets": {
+            "toy": {"source": "synthetic", "n_rows": n_rows, "cardinalities": list(cardinalities), "task": "binary"}
+        },
         "encoders": {label: {"kind": kind} for label, kind in (encoders or {"codes": "integer"}).items()},
         "models": models or {"lin": {"family": "linear"}},
     }
     return write_config(Path(path), raw)
+
+
+def store_rows(n: int, *, status: str = "ok", error: str = "", score=lambda i: 0.5 + i / 100) -> list[dict]:
+    """``n`` bare store rows of one dataset/encoder/model, one per fold (for store tests)."""
+    from harness.schema import SCHEMA_VERSION
+
+    base = {"schema_version": SCHEMA_VERSION, "dataset": "d", "encoder": "e", "model": "m", "repeat": 0}
+    return [
+        {**base, "cell_id": f"c{i}", "fold": i, "status": status, "roc_auc": score(i), "error": error} for i in range(n)
+    ]
 
 
 def harness_cmd(*args) -> list[str]:
@@ -84,8 +104,13 @@ def start(*args, group: bool = False) -> subprocess.Popen:
     """Start ``python -m harness ARGS`` with piped text output (own session if ``group``)."""
     env = {**os.environ, "PYTHONUNBUFFERED": "1"}
     return subprocess.Popen(
-        harness_cmd(*args), cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-        text=True, start_new_session=group,
+        harness_cmd(*args),
+        cwd=ROOT,
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        start_new_session=group,
     )
 
 

@@ -16,9 +16,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from _runtools import write_config
 from harness.cli import main
 from harness.store import read_results
+
+from _runtools import write_config
 
 N = 120
 FOLDS = 3
@@ -36,12 +37,14 @@ LGBM = {"lgbm": {"family": "lightgbm", "n_estimators": 10}}  # only where names 
 
 
 def _base(rng, n=N) -> pd.DataFrame:
-    return pd.DataFrame({
-        "color": rng.choice(["red", "green", "blue", "grey"], n),
-        "shop": rng.choice([f"s{i}" for i in range(15)], n),
-        "age": rng.normal(40, 10, n),
-        "y": rng.integers(0, 2, n),
-    })
+    return pd.DataFrame(
+        {
+            "color": rng.choice(["red", "green", "blue", "grey"], n),
+            "shop": rng.choice([f"s{i}" for i in range(15)], n),
+            "age": rng.normal(40, 10, n),
+            "y": rng.integers(0, 2, n),
+        }
+    )
 
 
 def _run(tmp_path, capsys, frame: pd.DataFrame, suffix=".parquet", models=MODELS):
@@ -216,12 +219,14 @@ def test_column_names_that_collide_or_hold_special_characters(tmp_path, capsys, 
     """'color=red' next to color == 'red' (a one-hot style name); 'num__age' next to 'age'
     (the runner's old prefix for numeric columns beside native ones); JSON specials in a
     name, which LightGBM refuses in a DataFrame."""
-    frame = _base(rng).assign(**{
-        "color=red": rng.choice(["yes", "no"], N),
-        "num__age": rng.choice(["p", "q"], N),
-        "price [USD]": rng.choice(["lo", "hi"], N),
-        "a,b:c": rng.normal(size=N),
-    })
+    frame = _base(rng).assign(
+        **{
+            "color=red": rng.choice(["yes", "no"], N),
+            "num__age": rng.choice(["p", "q"], N),
+            "price [USD]": rng.choice(["lo", "hi"], N),
+            "a,b:c": rng.normal(size=N),
+        }
+    )
     code, err, df, ds = _run(tmp_path, capsys, frame, models=MODELS | LGBM)
     assert code == 0
     _assert_usual(df, models=MODELS | LGBM)

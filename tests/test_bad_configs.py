@@ -16,7 +16,7 @@ CASES = sorted((Path(__file__).parent / "bad_configs").glob("*.toml"))
 def _expected(path: Path) -> str:
     first = path.read_text(encoding="utf-8-sig").splitlines()[0]  # u_bom.toml starts with a BOM
     assert first.startswith("# expect: "), f"{path.name} lacks its '# expect:' line"
-    return first[len("# expect: "):]
+    return first[len("# expect: ") :]
 
 
 def test_there_are_at_least_25_cases():

@@ -13,8 +13,7 @@ from harness.errors import ConfigError
 def test_bench_table_on_tiny_data(seed):
     table = bench.run_encoder_bench(n_rows=2_000, cardinalities=(5, 300), repeats=1, seed=seed, wide=3)
     assert list(table.columns) == bench.RESULT_COLUMNS
-    assert set(table["kind"]) == {"integer", "onehot", "hashing", "frequency", "target",
-                                  *bench.NEWER_KINDS}
+    assert set(table["kind"]) == {"integer", "onehot", "hashing", "frequency", "target", *bench.NEWER_KINDS}
     assert set(table["dtype"]) == {"object", "str", "category"}
     assert len(table) == 3 * 3 * 9 and set(table["columns"]) == {1, 3}
     newer = table["kind"].isin(bench.NEWER_KINDS)
@@ -38,8 +37,9 @@ def test_floor_counts_levels():
 
 
 def test_target_check_reads_the_table():
-    table = pd.DataFrame({"kind": ["integer", "integer"], "dtype": ["str", "str"],
-                          "ratio": [6.0, 4.0], "over_floor": [1.5, 2.0]})
+    table = pd.DataFrame(
+        {"kind": ["integer", "integer"], "dtype": ["str", "str"], "ratio": [6.0, 4.0], "over_floor": [1.5, 2.0]}
+    )
     checked = bench.check_targets(table).set_index("measure")
     assert checked.loc["ratio", "worst"] == 4.0 and not checked.loc["ratio", "met"]
     assert checked.loc["over_floor", "worst"] == 2.0 and checked.loc["over_floor", "met"]
@@ -47,8 +47,7 @@ def test_target_check_reads_the_table():
 
 def test_main_writes_csv(tmp_path, capsys):
     out = tmp_path / "bench.csv"
-    argv = ["--rows", "500", "--cardinalities", "4", "--repeats", "1", "--wide", "2",
-            "--output", str(out)]
+    argv = ["--rows", "500", "--cardinalities", "4", "--repeats", "1", "--wide", "2", "--output", str(out)]
     assert bench.main(argv) == 0
     assert out.exists() and "ratio" in capsys.readouterr().out
 
@@ -68,8 +67,15 @@ def test_main_rejects_bad_options(argv, match):
 
 def test_newer_kinds_are_held_to_their_target_at_one_column_of_1000_levels_only():
     # within 3x of our k-fold target statistics at 1,000 levels; other shapes shown only
-    table = pd.DataFrame({"kind": ["glmm"] * 3, "dtype": ["str"] * 3, "columns": [1, 1, 10],
-                          "cardinality": [1_000, 100_000, 1_000], "ratio": [0.5, 0.1, 0.2],
-                          "over_floor": [np.nan] * 3})
+    table = pd.DataFrame(
+        {
+            "kind": ["glmm"] * 3,
+            "dtype": ["str"] * 3,
+            "columns": [1, 1, 10],
+            "cardinality": [1_000, 100_000, 1_000],
+            "ratio": [0.5, 0.1, 0.2],
+            "over_floor": [np.nan] * 3,
+        }
+    )
     checked = bench.check_targets(table)
     assert len(checked) == 1 and checked.loc[0, "worst"] == 0.5 and checked.loc[0, "met"]

@@ -4,16 +4,16 @@ tests on a shared machine would be flaky)."""
 from __future__ import annotations
 
 import pandas as pd
-from _runtools import tiny_config
 
 from harness import bench_runner
+
+from _runtools import tiny_config
 
 ENCODERS = {"codes": "integer", "te": "target"}
 
 
 def _config(path, encoders=ENCODERS, models=None):
-    return tiny_config(path, name="tiny-bench", n_rows=400, cardinalities=(5, 30),
-                       encoders=encoders, models=models)
+    return tiny_config(path, name="tiny-bench", n_rows=400, cardinalities=(5, 30), encoders=encoders, models=models)
 
 
 def test_overhead_speedup_and_scaling_run(tmp_path, capsys):
@@ -33,8 +33,11 @@ def test_overhead_speedup_and_scaling_run(tmp_path, capsys):
 def test_hand_written_loop_matches_the_harness(tmp_path):
     """The hand-written Pipeline loop scores the same cells with the same numbers, so the
     time ratio compares equal work."""
-    cfg = _config(tmp_path / "tiny.toml", {**ENCODERS, "oh": "onehot"},
-                  {"gb": {"family": "boosting", "max_iter": 10}, "lin": {"family": "linear"}})
+    cfg = _config(
+        tmp_path / "tiny.toml",
+        {**ENCODERS, "oh": "onehot"},
+        {"gb": {"family": "boosting", "max_iter": 10}, "lin": {"family": "linear"}},
+    )
     hand = bench_runner.hand_loop(str(cfg), repeats=1)
     assert hand["cells"] == hand["matched"] == 12
     assert hand["max_metric_diff"] < 1e-9 and hand["hand_s"] > 0 and hand["harness_s"] > 0

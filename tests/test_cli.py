@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import pytest
-from _runtools import tiny_config
 
 from harness.cli import main
+
+from _runtools import tiny_config
 
 
 @pytest.fixture
@@ -13,16 +14,22 @@ def tiny(tmp_path):
     return str(tiny_config(tmp_path / "tiny.toml"))
 
 
-@pytest.mark.parametrize("args, pattern", [
-    (["run"], "needs a CONFIG file"),
-    (["run", "{cfg}", "--data", "x.csv"], "either a CONFIG or --data FILE"),
-    (["run", "--data", "x.csv"], "--data needs --target COLUMN"),
-    (["run", "--data", "x.csv", "--target", "y", "--config", "no/such.toml"], r"--config no/such.toml does not exist"),
-    (["run", "{cfg}", "--jobs", "0"], "--jobs must be an integer >= 1; got 0"),
-    (["run", "{cfg}", "--only", "nothing-like-this", "--dry-run"], "--only 'nothing-like-this' matches no cell"),
-    (["run", "no/such/config.toml"], "config file no/such/config.toml does not exist"),
-    (["status", "{tmp}/empty"], "no results store at"),
-])
+@pytest.mark.parametrize(
+    "args, pattern",
+    [
+        (["run"], "needs a CONFIG file"),
+        (["run", "{cfg}", "--data", "x.csv"], "either a CONFIG or --data FILE"),
+        (["run", "--data", "x.csv"], "--data needs --target COLUMN"),
+        (
+            ["run", "--data", "x.csv", "--target", "y", "--config", "no/such.toml"],
+            r"--config no/such.toml does not exist",
+        ),
+        (["run", "{cfg}", "--jobs", "0"], "--jobs must be an integer >= 1; got 0"),
+        (["run", "{cfg}", "--only", "nothing-like-this", "--dry-run"], "--only 'nothing-like-this' matches no cell"),
+        (["run", "no/such/config.toml"], "config file no/such/config.toml does not exist"),
+        (["status", "{tmp}/empty"], "no results store at"),
+    ],
+)
 def test_misuse_is_refused_clearly(args, pattern, tiny, tmp_path, capsys):
     import re
 
@@ -40,7 +47,9 @@ def test_private_file_shortcut_runs_with_a_base_config(tmp_path, tiny, capsys):
     rng = np.random.default_rng(0)
     data = tmp_path / "mine.csv"
     pd.DataFrame({"plan": rng.choice(["a", "b", "c"], 80), "y": rng.integers(0, 2, 80)}).to_csv(data, index=False)
-    code = main(["run", "--data", str(data), "--target", "y", "--config", tiny, "--out", str(tmp_path / "o"), "--quiet"])
+    code = main(
+        ["run", "--data", str(data), "--target", "y", "--config", tiny, "--out", str(tmp_path / "o"), "--quiet"]
+    )
     assert code == 0
     assert "2 cells (2 computed, 0 reused)" in capsys.readouterr().out
 
@@ -51,19 +60,35 @@ def test_one_dataset_with_few_folds_warns_with_the_repeats_needed(tmp_path, caps
 
     rng = np.random.default_rng(0)  # invented table (demo data)
     data = tmp_path / "shop.csv"
-    pd.DataFrame({"store": rng.choice(list("abcdef"), 200), "y": rng.integers(0, 2, 200)}
-                 ).to_csv(data, index=False)
-    code = main(["run", "--data", str(data), "--target", "y", "--config",
-                 "configs/quickstart.toml", "--dry-run", "--out", str(tmp_path / "o")])
+    pd.DataFrame({"store": rng.choice(list("abcdef"), 200), "y": rng.integers(0, 2, 200)}).to_csv(data, index=False)
+    code = main(
+        [
+            "run",
+            "--data",
+            str(data),
+            "--target",
+            "y",
+            "--config",
+            "configs/quickstart.toml",
+            "--dry-run",
+            "--out",
+            str(tmp_path / "o"),
+        ]
+    )
     err = " ".join(capsys.readouterr().err.split())
     assert code == 0
     assert "5 folds x 1 repeat(s) = 5 outer folds" in err and "`protocol.repeats = 2`" in err
 
 
 def test_dry_run_lists_only_cells_to_compute_and_counts_the_rest(tmp_path, capsys):
-    config = tiny_config(tmp_path / "many.toml", name="many", folds=10, n_rows=200,
-                         encoders={"a": "integer", "b": "frequency", "c": "onehot"},
-                         models={"lin": {"family": "linear"}, "knn": {"family": "knn"}})
+    config = tiny_config(
+        tmp_path / "many.toml",
+        name="many",
+        folds=10,
+        n_rows=200,
+        encoders={"a": "integer", "b": "frequency", "c": "onehot"},
+        models={"lin": {"family": "linear"}, "knn": {"family": "knn"}},
+    )
     assert main(["run", str(config), "--dry-run", "--out", str(tmp_path / "o")]) == 0
     out = capsys.readouterr().out.splitlines()
     todo = [line for line in out if line.startswith("  todo ")]

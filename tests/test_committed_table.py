@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import pandas as pd
 import pytest
+
 from _runtools import RESULT_COLUMNS, run, tiny_config
 
 ENCODERS = {"codes": "integer", "freq": "frequency"}

@@ -23,7 +23,9 @@ def _raw(model=None, encoder=None, execution=None):
     return raw
 
 
-@pytest.mark.parametrize("params", [{"num_iterations": 5}, {"min_data_in_leaf": 3, "n_estimators": 5}, {"lambda_l2": 1.0}])
+@pytest.mark.parametrize(
+    "params", [{"num_iterations": 5}, {"min_data_in_leaf": 3, "n_estimators": 5}, {"lambda_l2": 1.0}]
+)
 def test_lightgbm_documented_names_and_aliases_pass(params):
     # names and aliases as LightGBM's own parameter table declares them (LGBM_DumpParamAliases)
     parse_config(_raw({"family": "lightgbm", **params}))
@@ -34,10 +36,13 @@ def test_lightgbm_typo_is_refused_with_the_closest_name():
         parse_config(_raw({"family": "lightgbm", "n_estimator": 50}))
 
 
-@pytest.mark.parametrize("encoder, hint", [
-    ({"kind": "target", "crossfit": "kfolds"}, "'kfold'"),  # a value outside the rules
-    ({"kind": "target", "smoothin": "m-estimate"}, "'smoothing'"),  # an unknown parameter
-])
+@pytest.mark.parametrize(
+    "encoder, hint",
+    [
+        ({"kind": "target", "crossfit": "kfolds"}, "'kfold'"),  # a value outside the rules
+        ({"kind": "target", "smoothin": "m-estimate"}, "'smoothing'"),  # an unknown parameter
+    ],
+)
 def test_encoder_typo_hint_reads_as_sentences(encoder, hint):
     # the hint is wrapped by "... Fix the value of that key."; it once read "'kfold'?. Fix"
     with pytest.raises(ConfigError) as info:
@@ -47,7 +52,10 @@ def test_encoder_typo_hint_reads_as_sentences(encoder, hint):
     assert "?." not in text and ".." not in text
 
 
-@pytest.mark.parametrize("family, key, value", [("mlp", "alpha", -1.0), ("knn", "n_neighbors", 0), ("svm", "C", "x"), ("boosting", "max_iter", "many")])
+@pytest.mark.parametrize(
+    "family, key, value",
+    [("mlp", "alpha", -1.0), ("knn", "n_neighbors", 0), ("svm", "C", "x"), ("boosting", "max_iter", "many")],
+)
 def test_probe_fit_rejects_bad_values_of_every_family(family, key, value):
     with pytest.raises(ConfigError, match=rf"`models.m` .* the {family} estimator rejects its parameters \({key} = "):
         parse_config(_raw({"family": family, key: value}))

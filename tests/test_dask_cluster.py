@@ -57,9 +57,14 @@ class Cluster:
         self.procs: list[subprocess.Popen] = []
 
     def _spawn(self, name: str, *args) -> subprocess.Popen:
-        log = open(self.log_dir / f"{name}.log", "wb")
-        proc = subprocess.Popen([DASK, *args], cwd=ROOT, stdout=log, stderr=subprocess.STDOUT,
-                                env={**os.environ, "PYTHONUNBUFFERED": "1"})
+        with open(self.log_dir / f"{name}.log", "wb") as log:  # the child keeps its own copy
+            proc = subprocess.Popen(
+                [DASK, *args],
+                cwd=ROOT,
+                stdout=log,
+                stderr=subprocess.STDOUT,
+                env={**os.environ, "PYTHONUNBUFFERED": "1"},
+            )
         self.procs.append(proc)
         return proc
 
@@ -70,8 +75,21 @@ class Cluster:
 
     def worker(self, name: str) -> subprocess.Popen:
         # no nanny: a killed worker stays dead, as a lost machine does
-        return self._spawn(name, "worker", self.address, "--nthreads", "1", "--no-nanny", "--no-dashboard",
-                           "--host", "127.0.0.1", "--name", name, "--death-timeout", "60")
+        return self._spawn(
+            name,
+            "worker",
+            self.address,
+            "--nthreads",
+            "1",
+            "--no-nanny",
+            "--no-dashboard",
+            "--host",
+            "127.0.0.1",
+            "--name",
+            name,
+            "--death-timeout",
+            "60",
+        )
 
     def wait_workers(self, n: int, timeout: float = 60) -> None:
         from distributed import Client

@@ -7,10 +7,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from _runtools import RESULT_COLUMNS, assert_same_results, results_by_cell, write_config
 from harness.cli import main
 from harness.config import parse_config
 from harness.runner import execute, plan
+
+from _runtools import RESULT_COLUMNS, assert_same_results, results_by_cell, write_config
 
 
 def _raw(seed: int = 11) -> dict:
@@ -19,10 +20,22 @@ def _raw(seed: int = 11) -> dict:
         "protocol": {"folds": 2, "repeats": 1},
         "datasets": {
             # invented scenarios: a churn flag and a basket value
-            "churn": {"source": "synthetic", "n_rows": 500, "cardinalities": [6, 80], "task": "binary",
-                      "noise_column": 30, "seed": 3},
-            "basket": {"source": "synthetic", "n_rows": 400, "cardinalities": [5, 40], "task": "multiclass",
-                       "n_classes": 3, "seed": 4},
+            "churn": {
+                "source": "synthetic",
+                "n_rows": 500,
+                "cardinalities": [6, 80],
+                "task": "binary",
+                "noise_column": 30,
+                "seed": 3,
+            },
+            "basket": {
+                "source": "synthetic",
+                "n_rows": 400,
+                "cardinalities": [5, 40],
+                "task": "multiclass",
+                "n_classes": 3,
+                "seed": 4,
+            },
         },
         "encoders": {
             "integer": {"kind": "integer"},

@@ -12,7 +12,6 @@ import contextlib
 import json
 import os
 import shutil
-import sqlite3
 import subprocess
 import sys
 from pathlib import Path
@@ -20,9 +19,10 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from _runtools import CONFIGS, assert_clean_refusal, integrity, run, tiny_config
 from harness.grid import SCHEMA_VERSION
 from harness.store import Store, read_results
+
+from _runtools import CONFIGS, assert_clean_refusal, integrity, run, tiny_config
 
 KILL_SCRIPT = CONFIGS / "kill_each_write.py"
 UNIT = 3  # rows per write in that script
@@ -31,9 +31,26 @@ OFFSET = 100  # harmless writes + store writes before the injected kill, per chi
 
 def _strace(tmp_path, *inject) -> subprocess.CompletedProcess:
     return subprocess.run(
-        ["strace", "-qq", "-f", "-o", "/dev/null", "-e", "trace=pwrite64", *inject, sys.executable,
-         str(KILL_SCRIPT), str(tmp_path), str(OFFSET), "40", str(UNIT)],
-        capture_output=True, text=True, timeout=120, check=True,
+        [
+            "strace",
+            "-qq",
+            "-f",
+            "-o",
+            "/dev/null",
+            "-e",
+            "trace=pwrite64",
+            *inject,
+            sys.executable,
+            str(KILL_SCRIPT),
+            str(tmp_path),
+            str(OFFSET),
+            "40",
+            str(UNIT),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=True,
     )
 
 
@@ -85,9 +102,15 @@ def _mounted(target, *how):
 
 needs_root = pytest.mark.skipif(os.geteuid() != 0 or shutil.which("mount") is None, reason="needs root to mount")
 
+
 def _tiny_config(tmp_path, repeats: int = 1):
-    return tiny_config(tmp_path / f"tiny{repeats}.toml", repeats=repeats, n_rows=120,
-                       cardinalities=(4, 9), encoders={"codes": "integer", "freq": "frequency"})
+    return tiny_config(
+        tmp_path / f"tiny{repeats}.toml",
+        repeats=repeats,
+        n_rows=120,
+        cardinalities=(4, 9),
+        encoders={"codes": "integer", "freq": "frequency"},
+    )
 
 
 def _snapshot(directory) -> dict:
@@ -234,8 +257,9 @@ def test_a_report_that_appears_between_check_and_rename_is_swapped_over(tmp_path
 def test_temporaries_of_killed_writers_are_removed_and_live_ones_kept(tmp_path):
     from harness._outputs import swap_in_dir, temporary_beside
 
-    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
-                          capture_output=True, text=True, check=True)
+    dead = subprocess.run(
+        [sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True, check=True
+    )
     dead_pid = int(dead.stdout)  # a process that has exited: its temporaries are remains
     (tmp_path / f".report.tmp-{dead_pid}-0000dead").mkdir()
     (tmp_path / f".results.csv.tmp-{dead_pid}-0000dead").write_text("half")

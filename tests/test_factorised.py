@@ -14,10 +14,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from harness import runner
 from harness.config import load_config
 from harness.encoders import KINDS, build, factorised, params_of
 from harness.metrics import METRICS
-from harness import runner
 from harness.runner import execute, load_datasets, outer_splits, plan
 from harness.store import read_results
 
@@ -33,8 +33,7 @@ def _dense(out) -> np.ndarray:
 def _same(a, b) -> bool:
     if isinstance(a, pd.DataFrame):  # native categories: same codes and category tables
         return all(
-            np.array_equal(a[c].cat.codes, b[c].cat.codes)
-            and list(a[c].cat.categories) == list(b[c].cat.categories)
+            np.array_equal(a[c].cat.codes, b[c].cat.codes) and list(a[c].cat.categories) == list(b[c].cat.categories)
             for c in a.columns
         )
     return bool(np.array_equal(_dense(a), _dense(b), equal_nan=True))
@@ -45,16 +44,18 @@ def _awkward(rng, n=400) -> pd.DataFrame:
     text = rng.choice(["b", "a", "Ünï", "c", "B"], size=n).astype(object)
     text[rng.random(n) < 0.1] = None
     cat = pd.Categorical(rng.choice(["x", "y", "z"], size=n), categories=["w", "z", "y", "x"])
-    return pd.DataFrame({
-        "object": text,
-        "str": pd.Series(text, dtype="str"),
-        "python_str": pd.Series(text, dtype=pd.StringDtype("python")),
-        "category": cat,  # "w" is an unused category
-        "bool": rng.random(n) < 0.3,
-        "boolean": pd.array(np.where(rng.random(n) < 0.1, None, rng.random(n) < 0.5), dtype="boolean"),
-        "int": rng.integers(0, 7, size=n),
-        "mixed": pd.Series(rng.choice([1, 2, "1", "x"], size=n).tolist(), dtype=object),
-    })
+    return pd.DataFrame(
+        {
+            "object": text,
+            "str": pd.Series(text, dtype="str"),
+            "python_str": pd.Series(text, dtype=pd.StringDtype("python")),
+            "category": cat,  # "w" is an unused category
+            "bool": rng.random(n) < 0.3,
+            "boolean": pd.array(np.where(rng.random(n) < 0.1, None, rng.random(n) < 0.5), dtype="boolean"),
+            "int": rng.integers(0, 7, size=n),
+            "mixed": pd.Series(rng.choice([1, 2, "1", "x"], size=n).tolist(), dtype=object),
+        }
+    )
 
 
 @pytest.mark.parametrize(("kind", "params"), SETTINGS, ids=[f"{k}{p}" for k, p in SETTINGS])
@@ -90,8 +91,9 @@ def test_quickstart_folds_encode_identically_after_factorising():
                 outs = []
                 for X in (ds.X, codes):
                     target_type = "continuous" if ds.task == "regression" else ds.task
-                    extra = {k: v for k, v in {"random_state": 3, "target_type": target_type}.items()
-                             if k in params_of(kind)}
+                    extra = {
+                        k: v for k, v in {"random_state": 3, "target_type": target_type}.items() if k in params_of(kind)
+                    }
                     enc = build(kind, **params, **extra)
                     outs.append((enc.fit_transform(X.iloc[tr][cat], y), enc.transform(X.iloc[te][cat])))
                 assert _same(outs[0][0], outs[1][0]) and _same(outs[0][1], outs[1][1]), (label, kind)
@@ -107,7 +109,6 @@ def test_quickstart_metrics_are_bit_identical_without_factorising(tmp_path, monk
     execute(plan(config), tmp_path / "before", jobs=2, progress=False)
     metrics = list(METRICS) + [f"train_{m}" for m in METRICS]
     cols = KEYS + ["status", "n_features_out"] + metrics
-    now, before = (read_results(tmp_path / d)[cols].sort_values(KEYS).reset_index(drop=True)
-                   for d in ("now", "before"))
+    now, before = (read_results(tmp_path / d)[cols].sort_values(KEYS).reset_index(drop=True) for d in ("now", "before"))
     assert len(now) > 0 and (now["status"] == "ok").mean() > 0.9
     pd.testing.assert_frame_equal(now, before, check_exact=True)

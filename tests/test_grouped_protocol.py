@@ -40,8 +40,10 @@ def optimism_gaps(kind, params, grouped, seeds=range(3)):
             train = enc.fit_transform(X.iloc[tr], y[tr], **({"groups": g[tr]} if grouped else {}))
             test = enc.transform(X.iloc[te])
             model = build_model("linear", "binary", seed=0).fit(train, y[tr])
-            out.append(roc_auc_score(y[tr], model.predict_proba(train)[:, 1])
-                       - roc_auc_score(y[te], model.predict_proba(test)[:, 1]))
+            out.append(
+                roc_auc_score(y[tr], model.predict_proba(train)[:, 1])
+                - roc_auc_score(y[te], model.predict_proba(test)[:, 1])
+            )
     return np.array(out)
 
 
@@ -75,13 +77,15 @@ def test_the_runner_hands_the_groups_to_the_encoder(tmp_path):
 
     X, y, g = clustered_table(0, n_clusters=60)
     X.assign(incident=g, y=y).to_csv(tmp_path / "t.csv", index=False)
-    cfg = parse_config({
-        "experiment": {"name": "grp", "seed": 2},
-        "protocol": {"folds": 3, "group": "incident"},
-        "datasets": {"t": {"source": "file", "path": str(tmp_path / "t.csv"), "target": "y"}},
-        "encoders": {"te": {"kind": "target", "random_state": 5}},
-        "models": {"lin": {"family": "linear"}},
-    })
+    cfg = parse_config(
+        {
+            "experiment": {"name": "grp", "seed": 2},
+            "protocol": {"folds": 3, "group": "incident"},
+            "datasets": {"t": {"source": "file", "path": str(tmp_path / "t.csv"), "target": "y"}},
+            "encoders": {"te": {"kind": "target", "random_state": 5}},
+            "models": {"lin": {"family": "linear"}},
+        }
+    )
     the_plan = plan(cfg)
     label, job = _jobs_for(the_plan, the_plan.cells)[0]
     ds = the_plan.datasets[label]
@@ -89,5 +93,6 @@ def test_the_runner_hands_the_groups_to_the_encoder(tmp_path):
     groups = ds.groups.iloc[job.train_idx].to_numpy()
     assert set(groups).isdisjoint(ds.groups.iloc[job.test_idx])  # outer folds grouped
     expected = build("target", random_state=5, target_type="binary").fit_transform(
-        ds.X.iloc[job.train_idx][["site"]], ds.y.iloc[job.train_idx].to_numpy(), groups=groups)
+        ds.X.iloc[job.train_idx][["site"]], ds.y.iloc[job.train_idx].to_numpy(), groups=groups
+    )
     np.testing.assert_allclose(encoded.train[:, :1], expected)

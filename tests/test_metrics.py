@@ -12,14 +12,7 @@ from sklearn import metrics as skm
 from sklearn.linear_model import LogisticRegression
 from sklearn.preprocessing import label_binarize
 
-from harness.metrics import (
-    CLASSIFICATION_METRICS,
-    GREATER_IS_BETTER,
-    METRICS,
-    REGRESSION_METRICS,
-    metrics_for,
-    score,
-)
+from harness.metrics import CLASSIFICATION_METRICS, GREATER_IS_BETTER, METRICS, REGRESSION_METRICS, metrics_for, score
 
 CLASSES = {"binary": np.array(["no", "yes"]), "multiclass": np.array(["a", "b", "c", "d"])}
 
@@ -40,9 +33,11 @@ def _sklearn(name, task, y, proba, classes):
         return skm.roc_auc_score(y, proba[:, 1])  # scikit-learn: the greater label is positive
     if name == "roc_auc":
         return skm.roc_auc_score(y, proba, multi_class="ovr", average="macro", labels=classes)
-    return {"log_loss": lambda: skm.log_loss(y, proba, labels=classes),
-            "accuracy": lambda: skm.accuracy_score(y, label),
-            "balanced_accuracy": lambda: skm.balanced_accuracy_score(y, label)}[name]()
+    return {
+        "log_loss": lambda: skm.log_loss(y, proba, labels=classes),
+        "accuracy": lambda: skm.accuracy_score(y, label),
+        "balanced_accuracy": lambda: skm.balanced_accuracy_score(y, label),
+    }[name]()
 
 
 # ----------------------------------------------------------------- against scikit-learn
@@ -54,11 +49,9 @@ def test_classification_metric_equals_scikit_learn(rng, name, task):
     assert got == pytest.approx(_sklearn(name, task, y, proba, classes), rel=1e-12, abs=1e-12)
 
 
-@pytest.mark.parametrize("name, reference", [
-    ("rmse", skm.root_mean_squared_error),
-    ("mae", skm.mean_absolute_error),
-    ("r2", skm.r2_score),
-])
+@pytest.mark.parametrize(
+    "name, reference", [("rmse", skm.root_mean_squared_error), ("mae", skm.mean_absolute_error), ("r2", skm.r2_score)]
+)
 def test_regression_metric_equals_scikit_learn(rng, name, reference):
     y = rng.normal(10, 3, 50)
     pred = y + rng.normal(0, 1, 50)
@@ -66,11 +59,18 @@ def test_regression_metric_equals_scikit_learn(rng, name, reference):
     assert score(name, "regression", list(y), list(pred)) == score(name, "regression", y, pred)
 
 
-@pytest.mark.parametrize("name, scorer", [
-    ("roc_auc", "roc_auc"), ("log_loss", "neg_log_loss"), ("accuracy", "accuracy"),
-    ("balanced_accuracy", "balanced_accuracy"), ("rmse", "neg_root_mean_squared_error"),
-    ("mae", "neg_mean_absolute_error"), ("r2", "r2"),
-])
+@pytest.mark.parametrize(
+    "name, scorer",
+    [
+        ("roc_auc", "roc_auc"),
+        ("log_loss", "neg_log_loss"),
+        ("accuracy", "accuracy"),
+        ("balanced_accuracy", "balanced_accuracy"),
+        ("rmse", "neg_root_mean_squared_error"),
+        ("mae", "neg_mean_absolute_error"),
+        ("r2", "r2"),
+    ],
+)
 def test_orientation_follows_scikit_learns_scorer_names(name, scorer):
     # scikit-learn names a scorer neg_<metric> exactly when lower values are better
     assert scorer in skm.get_scorer_names()
@@ -92,8 +92,7 @@ def test_multiclass_auc_averages_over_the_classes_present_in_the_fold(rng):
     # scikit-learn's roc_auc_score on the one-vs-rest indicator of the present classes,
     # macro-averaged (the multiclass form refuses a fold that lacks a labelled class)
     present = np.array([0, 1, 3])
-    reference = skm.roc_auc_score(label_binarize(y, classes=classes[present]), proba[:, present],
-                                  average="macro")
+    reference = skm.roc_auc_score(label_binarize(y, classes=classes[present]), proba[:, present], average="macro")
     assert got == pytest.approx(reference, rel=1e-12)
     by_hand = np.mean([skm.roc_auc_score(y == classes[j], proba[:, j]) for j in present])
     assert got == pytest.approx(by_hand, rel=1e-12)
@@ -146,7 +145,8 @@ def test_a_class_missing_from_training_still_counts_in_the_test_metrics(rng):
     label = classes[proba.argmax(axis=1)]
     assert score("accuracy", "multiclass", y_test, proba, classes) == skm.accuracy_score(y_test, label)
     assert score("balanced_accuracy", "multiclass", y_test, proba, classes) == pytest.approx(
-        skm.balanced_accuracy_score(y_test, label))
+        skm.balanced_accuracy_score(y_test, label)
+    )
     # log loss: finite; the zero column is clipped at 1e-15 and rows renormalised before
     # scikit-learn's log_loss (which would clip at the float64 epsilon instead)
     clipped = np.clip(proba, 1e-15, 1.0)
@@ -161,11 +161,14 @@ def test_r2_of_one_row_is_nan():
     assert np.isnan(score("r2", "regression", [1.0], [2.0]))
 
 
-@pytest.mark.parametrize("name, task, pattern", [
-    ("roc_auc", "regression", "metric 'roc_auc' does not apply to regression"),
-    ("rmse", "binary", "metric 'rmse' does not apply to classification"),
-    ("f1", "multiclass", "metric 'f1' does not apply to classification"),
-])
+@pytest.mark.parametrize(
+    "name, task, pattern",
+    [
+        ("roc_auc", "regression", "metric 'roc_auc' does not apply to regression"),
+        ("rmse", "binary", "metric 'rmse' does not apply to classification"),
+        ("f1", "multiclass", "metric 'f1' does not apply to classification"),
+    ],
+)
 def test_a_metric_of_the_other_task_is_refused(name, task, pattern):
     with pytest.raises(ValueError, match=pattern):
         score(name, task, [0, 1], np.array([[0.5, 0.5], [0.5, 0.5]]), [0, 1])

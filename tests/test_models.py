@@ -34,8 +34,7 @@ EXPECTED = {
 }
 TASKS = ("binary", "multiclass", "regression")
 #: estimators that take no seed at all (deterministic)
-UNSEEDED = {("knn", "binary"), ("knn", "multiclass"), ("knn", "regression"),
-            ("svm", "regression")}
+UNSEEDED = {("knn", "binary"), ("knn", "multiclass"), ("knn", "regression"), ("svm", "regression")}
 
 
 def _final(model):
@@ -52,7 +51,8 @@ def _seeded_estimator(model):
 def test_every_family_has_an_expectation():
     assert set(EXPECTED) == set(FAMILIES)  # a new family gets its row in EXPECTED
     assert {name: fam.scaled for name, fam in FAMILIES.items()} == {
-        name: scaled for name, (_, _, scaled) in EXPECTED.items()}
+        name: scaled for name, (_, _, scaled) in EXPECTED.items()
+    }
 
 
 @pytest.mark.parametrize("task", TASKS)
@@ -75,9 +75,10 @@ def test_svm_classifier_is_a_platt_calibrated_svc():
     assert (model.method, model.cv, model.ensemble) == ("sigmoid", 3, False)
 
 
-@pytest.mark.parametrize("family, task", [
-    (f, t) for f in sorted(EXPECTED) for t in TASKS
-    if (f, t) not in UNSEEDED and (f, t) != ("linear", "regression")])  # ridge: see below
+@pytest.mark.parametrize(
+    "family, task",
+    [(f, t) for f in sorted(EXPECTED) for t in TASKS if (f, t) not in UNSEEDED and (f, t) != ("linear", "regression")],
+)  # ridge: see below
 def test_seed_is_set_where_the_estimator_takes_one(family, task):
     assert _seeded_estimator(build_model(family, task, seed=1234)).random_state == 1234
     assert _seeded_estimator(build_model(family, task, seed=7)).random_state == 7
@@ -99,16 +100,19 @@ def test_a_configured_random_state_wins_over_the_seed(family):
     assert est.random_state == 99
 
 
-@pytest.mark.parametrize("family, task, params", [
-    ("linear", "binary", {"C": 0.25, "penalty": "l2"}),
-    ("linear", "regression", {"alpha": 3.0}),
-    ("knn", "multiclass", {"n_neighbors": 4, "weights": "distance"}),
-    ("svm", "regression", {"C": 2.0, "epsilon": 0.2}),
-    ("forest", "binary", {"n_estimators": 7, "max_depth": 3}),
-    ("boosting", "regression", {"max_iter": 11, "learning_rate": 0.3}),
-    ("lightgbm", "multiclass", {"n_estimators": 9, "num_leaves": 5}),
-    ("mlp", "regression", {"hidden_layer_sizes": (8, 4), "alpha": 0.01}),
-])
+@pytest.mark.parametrize(
+    "family, task, params",
+    [
+        ("linear", "binary", {"C": 0.25, "penalty": "l2"}),
+        ("linear", "regression", {"alpha": 3.0}),
+        ("knn", "multiclass", {"n_neighbors": 4, "weights": "distance"}),
+        ("svm", "regression", {"C": 2.0, "epsilon": 0.2}),
+        ("forest", "binary", {"n_estimators": 7, "max_depth": 3}),
+        ("boosting", "regression", {"max_iter": 11, "learning_rate": 0.3}),
+        ("lightgbm", "multiclass", {"n_estimators": 9, "num_leaves": 5}),
+        ("mlp", "regression", {"hidden_layer_sizes": (8, 4), "alpha": 0.01}),
+    ],
+)
 def test_config_params_pass_through_and_override_the_defaults(family, task, params):
     given = dict(params)
     est = _final(build_model(family, task, seed=0, params=given))
@@ -121,17 +125,19 @@ def test_config_params_pass_through_and_override_the_defaults(family, task, para
             assert got[key] == default
 
 
-@pytest.mark.parametrize("family, task, defaults", [
-    ("linear", "binary", {"max_iter": 2000, "C": 1.0}),
-    ("linear", "regression", {"alpha": 1.0}),
-    ("knn", "binary", {"n_neighbors": 15}),
-    ("forest", "regression", {"n_estimators": 100, "min_samples_leaf": 2, "n_jobs": 1}),
-    ("boosting", "binary", {"categorical_features": "from_dtype"}),
-    # force_col_wise: LightGBM otherwise picks its histogram layout by timing
-    ("lightgbm", "regression", {"n_estimators": 200, "verbosity": -1, "n_jobs": 1,
-                                "force_col_wise": True}),
-    ("mlp", "multiclass", {"hidden_layer_sizes": (64,), "max_iter": 200, "early_stopping": True}),
-])
+@pytest.mark.parametrize(
+    "family, task, defaults",
+    [
+        ("linear", "binary", {"max_iter": 2000, "C": 1.0}),
+        ("linear", "regression", {"alpha": 1.0}),
+        ("knn", "binary", {"n_neighbors": 15}),
+        ("forest", "regression", {"n_estimators": 100, "min_samples_leaf": 2, "n_jobs": 1}),
+        ("boosting", "binary", {"categorical_features": "from_dtype"}),
+        # force_col_wise: LightGBM otherwise picks its histogram layout by timing
+        ("lightgbm", "regression", {"n_estimators": 200, "verbosity": -1, "n_jobs": 1, "force_col_wise": True}),
+        ("mlp", "multiclass", {"hidden_layer_sizes": (64,), "max_iter": 200, "early_stopping": True}),
+    ],
+)
 def test_family_defaults_apply(family, task, defaults):
     got = _final(build_model(family, task, seed=0)).get_params()
     assert {k: got[k] for k in defaults} == defaults
@@ -149,8 +155,11 @@ def test_builds_do_not_share_state():
 def test_built_estimator_fits_and_predicts(family, task, rng):
     # tiny invented data: three numeric columns, a target that depends on the first
     X = rng.normal(size=(60, 3))
-    y = {"binary": (X[:, 0] > 0).astype(int), "multiclass": np.digitize(X[:, 0], [-0.5, 0.5]),
-         "regression": X[:, 0] + rng.normal(0, 0.1, 60)}[task]
+    y = {
+        "binary": (X[:, 0] > 0).astype(int),
+        "multiclass": np.digitize(X[:, 0], [-0.5, 0.5]),
+        "regression": X[:, 0] + rng.normal(0, 0.1, 60),
+    }[task]
     params = {"n_estimators": 5} if family in ("forest", "lightgbm") else {}
     model = build_model(family, task, seed=0, params=params, n_numeric=3).fit(X, y)
     if task == "regression":
@@ -161,11 +170,19 @@ def test_built_estimator_fits_and_predicts(family, task, rng):
         np.testing.assert_allclose(proba.sum(axis=1), 1.0, atol=1e-9)
 
 
-@pytest.mark.parametrize("name, pattern", [
-    ("tabnet", (r"unknown model family 'tabnet'; allowed: boosting, forest, knn, lightgbm, "
-                r"linear, mlp, svm\.$")),
-    ("forrest", r"unknown model family 'forrest'; allowed: .*\. Closest match: 'forest'\.$"),
-])
+@pytest.mark.parametrize(
+    "name, pattern",
+    [
+        (
+            "tabnet",
+            (
+                r"unknown model family 'tabnet'; allowed: boosting, forest, knn, lightgbm, "
+                r"linear, mlp, svm\.$"
+            ),
+        ),
+        ("forrest", r"unknown model family 'forrest'; allowed: .*\. Closest match: 'forest'\.$"),
+    ],
+)
 def test_unknown_family_is_refused(name, pattern):
     with pytest.raises(ConfigError, match=pattern):
         build_model(name, "binary", seed=0)

@@ -32,8 +32,13 @@ family = "linear"
 def workspace(tmp_path, monkeypatch):
     rng = np.random.default_rng(4)
     # invented data: a shop column, a spend column and a churn flag
-    frame = pd.DataFrame({"shop": [f"s{i}" for i in rng.integers(0, 8, 120)], "spend": rng.normal(size=120),
-                          "churned": rng.integers(0, 2, 120)})
+    frame = pd.DataFrame(
+        {
+            "shop": [f"s{i}" for i in rng.integers(0, 8, 120)],
+            "spend": rng.normal(size=120),
+            "churned": rng.integers(0, 2, 120),
+        }
+    )
     data = tmp_path / "deep" / "folder" / "secret_customers.csv"
     data.parent.mkdir(parents=True)
     frame.to_csv(data, index=False)
@@ -43,7 +48,11 @@ def workspace(tmp_path, monkeypatch):
 
 
 def _outputs(directory):
-    return [p for p in directory.rglob("*") if p.is_file() and p.suffix in (".json", ".csv", ".md", ".html", ".tex", ".bib", ".svg")]
+    return [
+        p
+        for p in directory.rglob("*")
+        if p.is_file() and p.suffix in (".json", ".csv", ".md", ".html", ".tex", ".bib", ".svg")
+    ]
 
 
 def _run(data, *extra):
@@ -93,16 +102,26 @@ def test_alias_without_data_is_refused(capsys):
     assert "--alias and --description name a --data dataset" in " ".join(capsys.readouterr().err.split())
 
 
-@pytest.mark.parametrize("section, line, expected", [
-    ("[protocol]", 'primary = "log_loss"',
-     r"`protocol.primary` in base.toml with --data secret_customers.csv was renamed 'classification_metric' "
-     r"\(.*\); write classification_metric = 'log_loss' instead."),
-    ("[models.lin]", "max_rows = 5000",
-     r"`models.lin.max_rows` in base.toml with --data secret_customers.csv was renamed 'skip_above_rows' "
-     r"\(skip the cells whose training fold has more rows\); write skip_above_rows = 5000 instead."),
-])
-def test_a_borrowed_config_with_an_old_key_name_is_refused_with_the_new_name(workspace, capsys, section, line,
-                                                                             expected):
+@pytest.mark.parametrize(
+    "section, line, expected",
+    [
+        (
+            "[protocol]",
+            'primary = "log_loss"',
+            r"`protocol.primary` in base.toml with --data secret_customers.csv was renamed 'classification_metric' "
+            r"\(.*\); write classification_metric = 'log_loss' instead.",
+        ),
+        (
+            "[models.lin]",
+            "max_rows = 5000",
+            r"`models.lin.max_rows` in base.toml with --data secret_customers.csv was renamed 'skip_above_rows' "
+            r"\(skip the cells whose training fold has more rows\); write skip_above_rows = 5000 instead.",
+        ),
+    ],
+)
+def test_a_borrowed_config_with_an_old_key_name_is_refused_with_the_new_name(
+    workspace, capsys, section, line, expected
+):
     tmp, data = workspace
     (tmp / "base.toml").write_text(BASE.replace(section, f"{section}\n{line}"))
     assert _run(data, "--dry-run") == 2

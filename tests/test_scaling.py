@@ -17,14 +17,24 @@ from harness.runner import _jobs_for, plan
 
 
 def _encoded(kind):
-    cfg = parse_config({
-        "experiment": {"name": "scale", "seed": 1},
-        "protocol": {"folds": 3},
-        "datasets": {"t": {"source": "synthetic", "n_rows": 300, "cardinalities": [4, 25], "task": "binary",
-                           "n_numeric": 2, "seed": 3}},
-        "encoders": {"e": {"kind": kind}},
-        "models": {"lin": {"family": "linear"}},
-    })
+    cfg = parse_config(
+        {
+            "experiment": {"name": "scale", "seed": 1},
+            "protocol": {"folds": 3},
+            "datasets": {
+                "t": {
+                    "source": "synthetic",
+                    "n_rows": 300,
+                    "cardinalities": [4, 25],
+                    "task": "binary",
+                    "n_numeric": 2,
+                    "seed": 3,
+                }
+            },
+            "encoders": {"e": {"kind": kind}},
+            "models": {"lin": {"family": "linear"}},
+        }
+    )
     the_plan = plan(cfg)
     label, job = _jobs_for(the_plan, the_plan.cells)[0]
     ds = the_plan.datasets[label]
@@ -40,7 +50,7 @@ def test_numeric_columns_are_scaled_the_same_whatever_the_encoding(encodings):
     ds, job, _ = encodings["integer"]
     num = ds.X.iloc[job.train_idx][list(ds.numeric)]
     reference = StandardScaler().fit_transform(num.fillna(num.median()).to_numpy(float))
-    for kind, (ds, job, enc) in encodings.items():
+    for kind, (ds, _job, enc) in encodings.items():
         out = BlockScaler(len(ds.numeric)).fit(enc.train).transform(enc.train)
         dense = out.toarray() if sp.issparse(out) else out
         np.testing.assert_allclose(dense[:, -2:], reference, atol=1e-12, err_msg=kind)

@@ -31,10 +31,10 @@ def test_status_words_are_one_set():
     assert set(RETRY_STATUSES) <= set(NOT_RUN) and set(TEMPLATED_STATUSES) <= set(NOT_RUN)
 
 
-@pytest.mark.parametrize("sample, regimes, n_datasets", [
-    ("team-default", (DEFAULT_REGIME,), 15),
-    ("tuned-sample", (DEFAULT_REGIME, "tuned-model"), 6),
-])
+@pytest.mark.parametrize(
+    "sample, regimes, n_datasets",
+    [("team-default", (DEFAULT_REGIME,), 15), ("tuned-sample", (DEFAULT_REGIME, "tuned-model"), 6)],
+)
 def test_the_committed_manifests_without_a_version_are_read(sample, regimes, n_datasets):
     raw = json.loads((RESULTS / sample / "manifest.json").read_text(encoding="utf-8"))
     assert "manifest_version" not in raw  # written before the version was recorded
@@ -50,11 +50,18 @@ def test_the_committed_manifests_without_a_version_are_read(sample, regimes, n_d
 
 @pytest.mark.parametrize("where", ["protocol", "config"])
 def test_protocol_keys_are_read_under_the_new_name_then_the_old(where):
-    old = {RENAMED_PROTOCOL_KEYS[k]: v for k, v in
-           {"classification_metric": "log_loss", "regression_metric": "mae", "medium_levels": [12, 345]}.items()}
+    old = {
+        RENAMED_PROTOCOL_KEYS[k]: v
+        for k, v in {
+            "classification_metric": "log_loss",
+            "regression_metric": "mae",
+            "medium_levels": [12, 345],
+        }.items()
+    }
     raw = {"protocol": old} if where == "protocol" else {"config": {"protocol": old}}
-    assert Manifest.from_dict(raw).protocol == ProtocolRecord(classification_metric="log_loss",
-                                                              regression_metric="mae", medium_levels=(12, 345))
+    assert Manifest.from_dict(raw).protocol == ProtocolRecord(
+        classification_metric="log_loss", regression_metric="mae", medium_levels=(12, 345)
+    )
     both = {"protocol": {**old, "medium_levels": [20, 30]}, "manifest_version": MANIFEST_VERSION}
     assert Manifest.from_dict(both).protocol.medium_levels == (20, 30)
 
@@ -67,19 +74,25 @@ def test_a_manifest_missing_sections_reads_as_unrecorded():
 
 
 def test_aliases_private_datasets_and_renaming():
-    man = Manifest.from_dict({"datasets": {"mine": {"private": True}, "open": {}},
-                              "config": {"datasets": {"mine": {"alias": "clinic"}}}})
+    man = Manifest.from_dict(
+        {"datasets": {"mine": {"private": True}, "open": {}}, "config": {"datasets": {"mine": {"alias": "clinic"}}}}
+    )
     assert man.aliases == {"mine": "clinic", "open": "open"} and man.private_datasets == ("mine",)
     renamed = man.with_dataset_names(man.aliases)
     assert list(renamed.datasets) == ["clinic", "open"] and renamed.datasets["clinic"].private
 
 
-@pytest.mark.parametrize("raw, match", [
-    ({"manifest_version": MANIFEST_VERSION + 1},
-     f"manifest version {MANIFEST_VERSION + 1}, which this harness does not read"),
-    ({"manifest_version": "2"}, "manifest version '2'"),
-    ([1, 2], "not a JSON object .got list."),
-])
+@pytest.mark.parametrize(
+    "raw, match",
+    [
+        (
+            {"manifest_version": MANIFEST_VERSION + 1},
+            f"manifest version {MANIFEST_VERSION + 1}, which this harness does not read",
+        ),
+        ({"manifest_version": "2"}, "manifest version '2'"),
+        ([1, 2], "not a JSON object .got list."),
+    ],
+)
 def test_unknown_versions_and_non_objects_are_refused(raw, match):
     with pytest.raises(StoreError, match=match):
         Manifest.from_dict(raw)
@@ -90,8 +103,21 @@ def test_the_report_refuses_a_manifest_of_a_newer_version(tmp_path):
     from harness.store import Store
 
     with Store(tmp_path) as store:
-        store.write([{"cell_id": "c", "schema_version": SCHEMA_VERSION, "dataset": "d", "encoder": "e",
-                      "model": "m", "repeat": 0, "fold": 0, "status": OK, "error": ""}])
+        store.write(
+            [
+                {
+                    "cell_id": "c",
+                    "schema_version": SCHEMA_VERSION,
+                    "dataset": "d",
+                    "encoder": "e",
+                    "model": "m",
+                    "repeat": 0,
+                    "fold": 0,
+                    "status": OK,
+                    "error": "",
+                }
+            ]
+        )
     (tmp_path / "manifest.json").write_text(json.dumps({"manifest_version": MANIFEST_VERSION + 1}))
     with pytest.raises(StoreError, match=rf"the manifest .*manifest.json: manifest version {MANIFEST_VERSION + 1}"):
         load_run(tmp_path)

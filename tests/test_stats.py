@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import json
-
 import numpy as np
 import pandas as pd
 import pytest
@@ -23,14 +21,31 @@ def rng():
     return np.random.default_rng(20240611)
 
 
-def make_results(means: pd.DataFrame, *, metric="roc_auc", model="lr", n_folds=5,
-                 n_repeats=2, noise=0.0, rng=None, seconds=None, features=None,
-                 cardinality=None, train_gap=0.05, kinds=None, params=None):
+def make_results(
+    means: pd.DataFrame,
+    *,
+    metric="roc_auc",
+    model="lr",
+    n_folds=5,
+    n_repeats=2,
+    noise=0.0,
+    rng=None,
+    seconds=None,
+    features=None,
+    cardinality=None,
+    train_gap=0.05,
+    kinds=None,
+    params=None,
+):
     """Tiny synthetic results table: ``means`` is datasets x encoders, NaN = failed cell."""
-    cells = (means.rename_axis(index="dataset", columns="encoder").reset_index()
-             .melt(id_vars="dataset", var_name="encoder", value_name="mu"))
-    folds = pd.MultiIndex.from_product([range(n_repeats), range(n_folds)],
-                                       names=["repeat", "fold"]).to_frame(index=False)
+    cells = (
+        means.rename_axis(index="dataset", columns="encoder")
+        .reset_index()
+        .melt(id_vars="dataset", var_name="encoder", value_name="mu")
+    )
+    folds = pd.MultiIndex.from_product([range(n_repeats), range(n_folds)], names=["repeat", "fold"]).to_frame(
+        index=False
+    )
     df = cells.merge(folds, how="cross")
     eps = rng.standard_normal(len(df)) * noise if noise else 0.0
     gap = pd.Series(train_gap, index=means.columns) if np.isscalar(train_gap) else train_gap
@@ -93,11 +108,14 @@ def test_demsar_holm_vs_control_worked_example():
 
 
 @pytest.mark.parametrize("k", range(2, 11))
-@pytest.mark.parametrize("alpha, table", [
-    # Demšar (2006), JMLR 7, Table 5 (a), Nemenyi q at alpha 0.05 and 0.10, k = 2..10.
-    (0.05, [1.960, 2.343, 2.569, 2.728, 2.850, 2.949, 3.031, 3.102, 3.164]),
-    (0.10, [1.645, 2.052, 2.291, 2.459, 2.589, 2.693, 2.780, 2.855, 2.920]),
-])
+@pytest.mark.parametrize(
+    "alpha, table",
+    [
+        # Demšar (2006), JMLR 7, Table 5 (a), Nemenyi q at alpha 0.05 and 0.10, k = 2..10.
+        (0.05, [1.960, 2.343, 2.569, 2.728, 2.850, 2.949, 3.031, 3.102, 3.164]),
+        (0.10, [1.645, 2.052, 2.291, 2.459, 2.589, 2.693, 2.780, 2.855, 2.920]),
+    ],
+)
 def test_nemenyi_q_matches_demsar_table5(k, alpha, table):
     # atol 1.1e-3: some printed entries of Table 5 are not correctly rounded (checked against scipy).
     assert S.nemenyi_q(k, alpha) == pytest.approx(table[k - 2], abs=1.1e-3)
@@ -107,7 +125,7 @@ def test_nadeau_bengio_corrected_t():
     # Nadeau & Bengio (2003), Machine Learning 52; 10-fold CV so n_test/n_train = 1/9
     # (Bouckaert & Frank 2004, PAKDD). Check values: the corrected t of Nadeau & Bengio (2003),
     # Machine Learning 52, Sec. 5, recomputed here by hand; the naive paired t from scipy.
-    d = np.array([.02, .01, .03, -.01, .02, 0, .04, .01, .02, .01])
+    d = np.array([0.02, 0.01, 0.03, -0.01, 0.02, 0, 0.04, 0.01, 0.02, 0.01])
     res = S.corrected_t(d, S.cv_test_train_ratio(10))
     assert res.t == pytest.approx(2.2770, abs=5e-5)
     assert res.p_value == pytest.approx(0.0488, abs=5e-5)
@@ -170,8 +188,7 @@ def test_bayes_signed_rank_expectation_matches_dirichlet_moments():
     pair = zz[:, None] + zz[None, :]
     exact_left = np.sum(moments * (pair < -2 * rope))
     exact_right = np.sum(moments * (pair > 2 * rope))
-    np.testing.assert_allclose(res.theta_mean, [exact_left, 1 - exact_left - exact_right,
-                                                exact_right], atol=3e-3)
+    np.testing.assert_allclose(res.theta_mean, [exact_left, 1 - exact_left - exact_right, exact_right], atol=3e-3)
     assert res.p_left + res.p_rope + res.p_right == pytest.approx(1.0)
 
 
@@ -210,13 +227,13 @@ def test_summarize_cells_without_size_columns_uses_fold_count(rng):
 
 def test_paired_corrected_t_on_table(rng):
     df = make_results(frame([[0.8, 0.78]]), metric="rmse", noise=0.01, rng=rng)
-    res = S.paired_corrected_t(df, dataset="d0", model="lr", encoder_a="e0",
-                               encoder_b="e1", metric="rmse")
+    res = S.paired_corrected_t(df, dataset="d0", model="lr", encoder_a="e0", encoder_b="e1", metric="rmse")
     wide = df.pivot_table(index=["repeat", "fold"], columns="encoder", values="rmse")
     ref = S.corrected_t(-(wide["e0"] - wide["e1"]), 1 / 4)  # rmse: smaller is better
     assert res.t == pytest.approx(ref.t) and res.n == 10
-    assert np.isnan(S.paired_corrected_t(df, dataset="d0", model="lr", encoder_a="e0",
-                                         encoder_b="nope", metric="rmse").t)
+    assert np.isnan(
+        S.paired_corrected_t(df, dataset="d0", model="lr", encoder_a="e0", encoder_b="nope", metric="rmse").t
+    )
 
 
 # ------------------------------------------------------------------------- score matrix
@@ -231,10 +248,10 @@ def test_score_matrix_ranks_orientation_and_ties(metric, best):
     np.testing.assert_allclose(m.ranks.sum(axis=1), 6.0)
 
 
-@pytest.mark.parametrize("policy, n_datasets, encoders, dropped", [
-    ("drop_datasets", 2, ("e0", "e1", "e2"), ("d1",)),
-    ("drop_encoders", 3, ("e0", "e2"), ("e1",)),
-])
+@pytest.mark.parametrize(
+    "policy, n_datasets, encoders, dropped",
+    [("drop_datasets", 2, ("e0", "e1", "e2"), ("d1",)), ("drop_encoders", 3, ("e0", "e2"), ("e1",))],
+)
 def test_missing_cell_policy(policy, n_datasets, encoders, dropped):
     means = frame([[0.5, 0.7, 0.9], [0.6, np.nan, 0.8], [0.7, 0.6, 0.5]])
     m = S.score_matrix(make_results(means), "lr", "roc_auc", missing=policy)
@@ -243,12 +260,15 @@ def test_missing_cell_policy(policy, n_datasets, encoders, dropped):
     assert m.missing_cells.to_dict("records") == [{"dataset": "d1", "encoder": "e1"}]
 
 
-@pytest.mark.parametrize("holes, kept_datasets, kept_encoders", [
-    # one hole: dropping d1 keeps 2x3 = 6 cells, dropping e1 keeps 3x2 = 6: tie -> datasets
-    ([(1, 1)], 2, 3),
-    # e1 fails on two of three datasets: dropping e1 keeps 3x2 = 6 cells, datasets 1x3 = 3
-    ([(0, 1), (1, 1)], 3, 2),
-])
+@pytest.mark.parametrize(
+    "holes, kept_datasets, kept_encoders",
+    [
+        # one hole: dropping d1 keeps 2x3 = 6 cells, dropping e1 keeps 3x2 = 6: tie -> datasets
+        ([(1, 1)], 2, 3),
+        # e1 fails on two of three datasets: dropping e1 keeps 3x2 = 6 cells, datasets 1x3 = 3
+        ([(0, 1), (1, 1)], 3, 2),
+    ],
+)
 def test_auto_missing_policy_keeps_the_larger_complete_block(holes, kept_datasets, kept_encoders):
     values = np.array([[0.5, 0.7, 0.9], [0.6, 0.65, 0.8], [0.7, 0.6, 0.5]])
     for i, j in holes:
@@ -313,8 +333,7 @@ def test_compare_encoders_too_few_datasets_returns_nan(n_datasets):
 def test_compare_encoders_pairwise_columns_and_cd(rng):
     base = rng.random((10, 1)) * 0.1 + 0.7
     means = frame(np.hstack([base + 0.05, base, base - 0.05]))
-    comp = S.compare_encoders(S.score_matrix(make_results(means), "lr", "roc_auc"),
-                              n_boot=200)
+    comp = S.compare_encoders(S.score_matrix(make_results(means), "lr", "roc_auc"), n_boot=200)
     assert comp.best == "e0"
     assert comp.pairwise.loc["e2", "losses"] == 10 and comp.pairwise.loc["e2", "beyond_cd"]
     # Demšar (2006): rank difference 2 vs CD q_.05(3) sqrt(3*4/(6*10)).
@@ -343,8 +362,9 @@ def test_aggregations_and_top_encoders():
         S.top_encoders(agg, "best")
 
 
-@pytest.mark.parametrize("card, regime", [(9, "low"), (10, "medium"), (100, "medium"),
-                                          (101, "high"), (np.nan, "unknown")])
+@pytest.mark.parametrize(
+    "card, regime", [(9, "low"), (10, "medium"), (100, "medium"), (101, "high"), (np.nan, "unknown")]
+)
 def test_cardinality_regime_bounds(card, regime):
     assert S.cardinality_regime([card]).tolist() == [regime]
 
@@ -356,8 +376,7 @@ def test_cardinality_regime_rejects_bad_thresholds():
 
 # -------------------------------------------------------------------------------- cost
 def test_cost_table_relative_to_reference():
-    df = make_results(frame([[0.7, 0.8]]), seconds={"e0": 1.0, "e1": 3.0},
-                      features={"e0": 10, "e1": 40})
+    df = make_results(frame([[0.7, 0.8]]), seconds={"e0": 1.0, "e1": 3.0}, features={"e0": 10, "e1": 40})
     out = S.cost_table(df, reference="e0").set_index("encoder")
     assert out.loc["e1", "encoder_s"] == pytest.approx(3.0)
     assert out.loc["e1", "encoder_s_rel"] == pytest.approx(3.0)

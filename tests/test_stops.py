@@ -12,8 +12,9 @@ from types import SimpleNamespace
 import psutil
 import pytest
 
-from _runtools import CONFIGS, assert_clean_refusal, count_rows, integrity, run, start, wait_for_rows
 from harness.backends import WATCHDOG_MARGIN_S, _DaskWatchdog
+
+from _runtools import CONFIGS, assert_clean_refusal, count_rows, integrity, run, start, wait_for_rows
 
 SMALL = CONFIGS / "small.toml"
 KILL = CONFIGS / "kill.toml"
@@ -28,12 +29,15 @@ def _harness_children(proc) -> list[psutil.Process]:
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize(("backend", "jobs", "sig", "whom"), [
-    ("local", 1, signal.SIGTERM, "process"),
-    ("local", 2, signal.SIGTERM, "group"),
-    ("dask", 2, signal.SIGTERM, "process"),
-    ("dask", 2, signal.SIGINT, "group"),  # a terminal's Ctrl-C
-])
+@pytest.mark.parametrize(
+    ("backend", "jobs", "sig", "whom"),
+    [
+        ("local", 1, signal.SIGTERM, "process"),
+        ("local", 2, signal.SIGTERM, "group"),
+        ("dask", 2, signal.SIGTERM, "process"),
+        ("dask", 2, signal.SIGINT, "group"),  # a terminal's Ctrl-C
+    ],
+)
 def test_signal_stops_with_one_line_and_a_valid_store(tmp_path, backend, jobs, sig, whom):
     out = tmp_path / "run"
     proc = start("run", SMALL, "--out", out, "--quiet", "--jobs", jobs, "--backend", backend, group=True)

@@ -11,13 +11,11 @@ from harness.grid import SCHEMA_VERSION
 from harness.schema import COLUMNS, FILLED_ON_UPGRADE, NAMES, READABLE_VERSIONS, SET_ASIDE_EXTRA
 from harness.store import Store, export, read_results
 
+from _runtools import store_rows
+
 
 def _rows(n, status="ok"):
-    return [
-        {"cell_id": f"c{i}", "schema_version": SCHEMA_VERSION, "dataset": "d", "encoder": "e", "model": "m",
-         "repeat": 0, "fold": i, "status": status, "roc_auc": 0.5 + i / 100, "error": ""}
-        for i in range(n)
-    ]
+    return store_rows(n, status=status)
 
 
 def test_write_resume_and_read(tmp_path):
@@ -33,9 +31,8 @@ def test_write_resume_and_read(tmp_path):
 
 
 def test_second_writer_is_refused(tmp_path):
-    with Store(tmp_path):
-        with pytest.raises(StoreError, match="another `levelfold run` is writing"):
-            Store(tmp_path)
+    with Store(tmp_path), pytest.raises(StoreError, match="another `levelfold run` is writing"):
+        Store(tmp_path)
     Store(tmp_path).close()  # released on close
 
 
@@ -77,8 +74,10 @@ def _store_with_rows_in_wal(out, n: int) -> None:
         pass  # created empty, schema committed
     live = sqlite3.connect(out / "results.sqlite", isolation_level=None)
     live.execute("PRAGMA wal_autocheckpoint=0")  # keep every row in the WAL
-    live.executemany("INSERT INTO cells (cell_id, schema_version, status) VALUES (?, ?, 'ok')",
-                     [(f"c{i}", SCHEMA_VERSION) for i in range(n)])
+    live.executemany(
+        "INSERT INTO cells (cell_id, schema_version, status) VALUES (?, ?, 'ok')",
+        [(f"c{i}", SCHEMA_VERSION) for i in range(n)],
+    )
     snapshot = {p.name: p.read_bytes() for p in out.glob("results.sqlite*")}
     live.close()  # checkpoints and removes the WAL ...
     for name, data in snapshot.items():  # ... so put back the files as the live writer had them
@@ -186,8 +185,11 @@ def _layout(out) -> tuple[str, set, set]:
     db = sqlite3.connect(out / "results.sqlite")
     try:
         version = db.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()[0]
-        return (version, {r[1] for r in db.execute("PRAGMA table_info(cells)")},
-                {r[1] for r in db.execute("PRAGMA table_info(superseded)")})
+        return (
+            version,
+            {r[1] for r in db.execute("PRAGMA table_info(cells)")},
+            {r[1] for r in db.execute("PRAGMA table_info(superseded)")},
+        )
     finally:
         db.close()
 
@@ -197,20 +199,23 @@ def test_version_3_store_is_read_as_untuned_and_upgraded_in_place_by_a_writer(tm
     assert 3 in READABLE_VERSIONS and SCHEMA_VERSION > 3
     before = _layout(tmp_path)
     df = read_results(tmp_path)  # a reader fills the defaults in memory and changes nothing
-    assert df[list(FILLED_ON_UPGRADE)].to_dict("records") == [{"regime": "defaults", "tuned_params": "{}",
-                                                               "tune_s": 0.0}]
+    assert df[list(FILLED_ON_UPGRADE)].to_dict("records") == [
+        {"regime": "defaults", "tuned_params": "{}", "tune_s": 0.0}
+    ]
     assert df["roc_auc"].item() == 0.5 and df["uses_target"].item() is False
     assert _layout(tmp_path) == before and not set(FILLED_ON_UPGRADE) & before[1]
     with Store(tmp_path) as store:  # a writer upgrades the file in place, keeping its row
         version, cells, aside = _layout(tmp_path)
         assert version == str(SCHEMA_VERSION) and set(NAMES) <= cells and set(FILLED_ON_UPGRADE) <= aside
         assert store.done_ids() == {"c0"}
-        store.write([{**_rows(2)[1], "regime": "tuned-model", "tuned_params": {"model": {"C": 2.0}},
-                      "tune_s": 1.5}])
+        store.write([{**_rows(2)[1], "regime": "tuned-model", "tuned_params": {"model": {"C": 2.0}}, "tune_s": 1.5}])
     stored = sqlite3.connect(tmp_path / "results.sqlite")
     try:  # the old row holds the upgrade's values in the file itself, not NULL
         assert stored.execute("SELECT regime, tuned_params, tune_s FROM cells WHERE cell_id='c0'").fetchone() == (
-            "defaults", "{}", 0.0)
+            "defaults",
+            "{}",
+            0.0,
+        )
     finally:
         stored.close()
     df = read_results(tmp_path).set_index("cell_id")

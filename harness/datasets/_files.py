@@ -17,8 +17,7 @@ def _read(path: str, delimiter: str) -> pd.DataFrame:
     suffix = Path(path).suffix.lower()
     if suffix not in READERS:
         raise ConfigError(
-            f"`path` must end in one of {', '.join(READERS)} (the reader is chosen by suffix); "
-            f"got '{path}'."
+            f"`path` must end in one of {', '.join(READERS)} (the reader is chosen by suffix); got '{path}'."
         )
     try:
         if suffix == ".csv":
@@ -26,7 +25,7 @@ def _read(path: str, delimiter: str) -> pd.DataFrame:
         return READERS[suffix](path)
     except UnicodeDecodeError as e:
         raise DataError(
-            f"the file at `path` = '{path}' is not a UTF-8 text CSV (byte {e.object[e.start:e.start + 1]!r} at "
+            f"the file at `path` = '{path}' is not a UTF-8 text CSV (byte {e.object[e.start : e.start + 1]!r} at "
             f"offset {e.start} is not UTF-8 text). If it is another format (Parquet, Excel, a zip), convert "
             "it or give it its own suffix; if it is a CSV in another encoding, save it as UTF-8."
         ) from None
@@ -66,8 +65,16 @@ def _check_parquet_types(path: str, drop) -> None:
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    nested = (pa.types.is_list, pa.types.is_large_list, pa.types.is_fixed_size_list, pa.types.is_struct,
-              pa.types.is_map, pa.types.is_binary, pa.types.is_large_binary, pa.types.is_fixed_size_binary)
+    nested = (
+        pa.types.is_list,
+        pa.types.is_large_list,
+        pa.types.is_fixed_size_list,
+        pa.types.is_struct,
+        pa.types.is_map,
+        pa.types.is_binary,
+        pa.types.is_large_binary,
+        pa.types.is_fixed_size_binary,
+    )
     for fld in pq.read_schema(path):
         if fld.name not in (drop or ()) and any(test(fld.type) for test in nested):
             raise DataError(

@@ -108,8 +108,7 @@ def _client_error(what: str, error: Exception) -> DataError:
             "the network is back, or point `cache_dir` at a folder that already holds it."
         )
     return DataError(
-        f"the OpenML client failed while loading {what}: {type(error).__name__}: {error}. "
-        "The local cache was kept."
+        f"the OpenML client failed while loading {what}: {type(error).__name__}: {error}. The local cache was kept."
     )
 
 
@@ -138,10 +137,7 @@ def _fetch_task(task_id: int):
 def _fetch_frame(dataset_id: int):
     with kept_cache(cache_folder("datasets", dataset_id)):
         ds = openml.datasets.get_dataset(
-            dataset_id,
-            download_data=True,
-            download_qualities=False,
-            download_features_meta_data=False,
+            dataset_id, download_data=True, download_qualities=False, download_features_meta_data=False
         )
         frame, _, _, _ = ds.get_data(target=None, dataset_format="dataframe")
     return ds, frame

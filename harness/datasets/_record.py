@@ -33,15 +33,7 @@ import pandas as pd
 from harness._dtypes import normalize_column
 from harness.errors import ConfigError, DataError, closest
 
-__all__ = [
-    "TASKS",
-    "CHECK",
-    "Dataset",
-    "TableOptions",
-    "fingerprint",
-    "prepare",
-    "table_source",
-]
+__all__ = ["TASKS", "CHECK", "Dataset", "TableOptions", "fingerprint", "prepare", "table_source"]
 
 TASKS = ("binary", "multiclass", "regression")
 # notes with this prefix flag a guess about the data the user should check; the run
@@ -110,16 +102,12 @@ class Dataset:
         self._check()
         if self.fingerprint is None:
             object.__setattr__(
-                self,
-                "fingerprint",
-                fingerprint(self.X, self.y, self.task, self.categorical, private=self.private),
+                self, "fingerprint", fingerprint(self.X, self.y, self.task, self.categorical, private=self.private)
             )
 
     def _check(self) -> None:
         if self.task not in TASKS:
-            raise DataError(
-                f"dataset '{self.name}': task must be one of {', '.join(TASKS)}; got {self.task!r}."
-            )
+            raise DataError(f"dataset '{self.name}': task must be one of {', '.join(TASKS)}; got {self.task!r}.")
         if len(self.y) != len(self.X) or (self.groups is not None and len(self.groups) != len(self.X)):
             raise DataError(
                 f"dataset '{self.name}': X has {len(self.X)} rows but y has {len(self.y)}"
@@ -258,14 +246,7 @@ def table_source(loader):
 
 
 def prepare(
-    frame: pd.DataFrame,
-    options: TableOptions,
-    *,
-    name: str,
-    source: str,
-    private: bool = False,
-    splits=None,
-    notes=(),
+    frame: pd.DataFrame, options: TableOptions, *, name: str, source: str, private: bool = False, splits=None, notes=()
 ) -> Dataset:
     """Turn a raw table into a :class:`Dataset` following ``options``.
 
@@ -299,10 +280,9 @@ def prepare(
     frame = frame.reset_index(drop=True)
     y = frame.pop(options.target)
     categorical, numeric = _column_roles(frame, options, notes)
-    X = pd.DataFrame(
-        {c: _as_categorical(frame[c]) for c in categorical}
-        | {c: _as_numeric(frame[c]) for c in numeric}
-    )[[c for c in frame.columns if c in categorical or c in numeric]]
+    X = pd.DataFrame({c: _as_categorical(frame[c]) for c in categorical} | {c: _as_numeric(frame[c]) for c in numeric})[
+        [c for c in frame.columns if c in categorical or c in numeric]
+    ]
     task, y = _settle_task(y, options.task, notes)
     return Dataset(
         name=options.alias or name,
@@ -347,8 +327,11 @@ def _require_columns(frame: pd.DataFrame, columns, key: str) -> None:
     if missing:
         # quoted: a stray space in a name is invisible otherwise
         spaced = [c for c in missing if isinstance(c, str) and c.strip() in frame.columns]
-        hint = (f" Did you mean {spaced[0].strip()!r}? The name in the config has surrounding spaces."
-                if spaced else closest(missing[0], frame.columns))
+        hint = (
+            f" Did you mean {spaced[0].strip()!r}? The name in the config has surrounding spaces."
+            if spaced
+            else closest(missing[0], frame.columns)
+        )
         raise DataError(
             f"`{key}` names column(s) {', '.join(repr(str(c)) for c in missing)} that the data does not have. "
             f"Available columns: {_list_columns(frame.columns)}.{hint}"

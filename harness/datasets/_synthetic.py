@@ -56,15 +56,26 @@ MAX_ROWS = 20_000_000  # a table this size already takes gigabytes once encoded
 
 def _check(n_rows, cardinalities, zipf, effect, noise_column, task, n_classes, n_numeric) -> None:
     rules = [
-        (2 <= n_rows <= MAX_ROWS, "n_rows", f"an integer in [2, {MAX_ROWS:,}] (use a `file` dataset for larger tables)",
-         n_rows),
-        (len(cardinalities) > 0 and min(cardinalities) >= 1 and max(cardinalities) <= max(n_rows, 1),
-         "cardinalities", "a non-empty list of integers in [1, n_rows] (a column cannot have more levels than rows)",
-         cardinalities),
+        (
+            2 <= n_rows <= MAX_ROWS,
+            "n_rows",
+            f"an integer in [2, {MAX_ROWS:,}] (use a `file` dataset for larger tables)",
+            n_rows,
+        ),
+        (
+            len(cardinalities) > 0 and min(cardinalities) >= 1 and max(cardinalities) <= max(n_rows, 1),
+            "cardinalities",
+            "a non-empty list of integers in [1, n_rows] (a column cannot have more levels than rows)",
+            cardinalities,
+        ),
         (zipf >= 0, "zipf", "a number >= 0", zipf),
         (effect >= 0, "effect", "a number >= 0", effect),
-        (noise_column is None or 1 <= noise_column <= max(n_rows, 1), "noise_column",
-         "an integer in [1, n_rows] or left out", noise_column),
+        (
+            noise_column is None or 1 <= noise_column <= max(n_rows, 1),
+            "noise_column",
+            "an integer in [1, n_rows] or left out",
+            noise_column,
+        ),
         (task in TASKS, "task", f"one of {', '.join(TASKS)}", task),
         (task != "multiclass" or n_classes >= 3, "n_classes", "an integer >= 3 for task 'multiclass'", n_classes),
         (n_numeric >= 0, "n_numeric", "an integer >= 0", n_numeric),

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
+from harness import _registry
 from harness.encoders._base import CategoricalEncoder, factorised
 from harness.encoders._contrast import ContrastCodes
 from harness.encoders._frequency import FrequencyCodes
@@ -154,8 +155,7 @@ def describe(kind: str) -> str:
     else:
         leaks = "; ".join(f"{k} in {', '.join(map(str, v))}" for k, v in cls.leaky_when.items())
         text = "uses the target" + (f"; leaky when {leaks}" if leaks else "")
-    refs = sorted({k for by in cls.references_when.values() for v in by.values() for k in v}
-                  | set(cls.references))
+    refs = sorted({k for by in cls.references_when.values() for v in by.values() for k in v} | set(cls.references))
     return text + (f"; references: {', '.join(refs)}" if refs else "")
 
 
@@ -179,19 +179,12 @@ def register(kind: str, cls) -> None:
         If ``kind`` is not an identifier or is taken, or ``cls`` is not an encoder class.
     """
     global KINDS
-    if not (isinstance(kind, str) and kind.isidentifier()):
-        raise ConfigError(f"encoder kind {kind!r} must be a Python identifier; pick another name.")
-    if kind in ENCODERS:
-        raise ConfigError(
-            f"encoder kind '{kind}' is already registered (class {ENCODERS[kind].__name__}); "
-            "pick another name, or unregister it first."
-        )
     if not (isinstance(cls, type) and issubclass(cls, CategoricalEncoder)):
         raise ConfigError(
             f"encoder kind '{kind}' must be a class derived from "
             f"harness.encoders._base.CategoricalEncoder; got {cls!r}."
         )
-    ENCODERS[kind] = cls
+    _registry.add(ENCODERS, kind, cls, "encoder kind")
     KINDS = tuple(sorted(ENCODERS))
 
 
@@ -204,14 +197,7 @@ def unregister(kind: str) -> None:
         If ``kind`` ships with the package (``BUILTIN_KINDS``) or is not registered.
     """
     global KINDS
-    added = sorted(set(ENCODERS) - set(BUILTIN_KINDS))
-    if kind not in added:
-        shipped = " ships with the package" if kind in BUILTIN_KINDS else " is not registered"
-        raise ConfigError(
-            f"encoder kind '{kind}'{shipped}; only kinds added by register() can be removed: "
-            f"{', '.join(added) or '(none)'}."
-        )
-    del ENCODERS[kind]
+    _registry.remove(ENCODERS, BUILTIN_KINDS, kind, "encoder kind", "register")
     KINDS = tuple(sorted(ENCODERS))
 
 

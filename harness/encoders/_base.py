@@ -145,13 +145,9 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
                 "strings, numbers or bools; got a complex column."
             )
         if frame.shape[1] == 0:
-            raise ValueError(
-                f"0 feature(s) (shape={frame.shape}) while a minimum of 1 is required."
-            )
+            raise ValueError(f"0 feature(s) (shape={frame.shape}) while a minimum of 1 is required.")
         if frame.shape[0] == 0:
-            raise ValueError(
-                f"0 sample(s) (shape={frame.shape}) while a minimum of 1 is required."
-            )
+            raise ValueError(f"0 sample(s) (shape={frame.shape}) while a minimum of 1 is required.")
         names = np.asarray([str(c) for c in frame.columns], dtype=object)
         if reset:
             self.n_features_in_ = frame.shape[1]
@@ -203,8 +199,7 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
             # out, and distinct values that are equal once stringified merge
             kept, uniques, stringified, text = _distinct_levels(uniques, counts)
             self.stringified_.append(stringified)
-            counts = np.bincount(kept[kept >= 0], weights=counts[kept >= 0],
-                                 minlength=len(uniques)).astype(np.int64)
+            counts = np.bincount(kept[kept >= 0], weights=counts[kept >= 0], minlength=len(uniques)).astype(np.int64)
             first = _first_seen(raw, kept, len(uniques)) if order == "appearance" else None
             presorted = presorted and not stringified
             perm = self._level_order(uniques, counts, order, first, presorted, text)
@@ -222,8 +217,7 @@ class CategoricalEncoder(TransformerMixin, BaseEstimator):
         return codes_out
 
     @staticmethod
-    def _level_order(uniques, counts: np.ndarray, order: str, first=None, presorted=False,
-                     text=None) -> np.ndarray:
+    def _level_order(uniques, counts: np.ndarray, order: str, first=None, presorted=False, text=None) -> np.ndarray:
         n = len(uniques)
         if order == "any" or n == 0:
             return np.arange(n)

@@ -215,7 +215,7 @@ class ContrastCodes(LevelCodeEncoder):
         out = np.empty((len(rows[0]), int(self.widths_.sum())), dtype=np.float64)
         start = 0
         for matrix, r in zip(self.matrices_, rows):
-            out[:, start:start + matrix.shape[1]] = np.take(matrix, r, axis=0)
+            out[:, start : start + matrix.shape[1]] = np.take(matrix, r, axis=0)
             start += matrix.shape[1]
         return out
 

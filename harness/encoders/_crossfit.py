@@ -212,12 +212,7 @@ def _empty_last(stats: LevelStats, n_levels: int):
 
 
 def out_of_fold(
-    codes: np.ndarray,
-    Y: np.ndarray,
-    n_levels: int,
-    fold: np.ndarray,
-    n_folds: int,
-    spread: bool = True,
+    codes: np.ndarray, Y: np.ndarray, n_levels: int, fold: np.ndarray, n_folds: int, spread: bool = True
 ) -> tuple[CellStats, CellStats]:
     """Each row uses the rows of all other folds: one cell per (fold, level).
 

@@ -23,12 +23,7 @@ import numpy as np
 from scipy.optimize import minimize, minimize_scalar
 from scipy.special import expit
 from sklearn.utils import check_random_state
-from sklearn.utils.validation import (
-    _check_feature_names_in,
-    check_consistent_length,
-    check_is_fitted,
-    column_or_1d,
-)
+from sklearn.utils.validation import _check_feature_names_in, check_consistent_length, check_is_fitted, column_or_1d
 
 import harness.encoders._crossfit as _crossfit
 from harness.encoders._base import CategoricalEncoder
@@ -84,8 +79,11 @@ def reml_one_way(n, total, sq_dev):
     if n_rows < 2 or within + np.sum(n * (mean - grand) ** 2) <= 0:
         return float(grand), 0.0, 0.0
     best = minimize_scalar(
-        _reml_objective, bounds=LOG_RATIO_BOUNDS, method="bounded",
-        args=(n, mean, within, n_rows), options={"xatol": 1e-10},
+        _reml_objective,
+        bounds=LOG_RATIO_BOUNDS,
+        method="bounded",
+        args=(n, mean, within, n_rows),
+        options={"xatol": 1e-10},
     )
     gamma = float(np.exp(best.x))
     mu, q = _gls(gamma, n, mean, within)
@@ -181,8 +179,9 @@ def _laplace(mu, log_tau, n, s, start=None):
     value = float(np.sum(f + 0.5 * np.log(2 * np.pi) - 0.5 * np.log(curvature)))
     bend = w * (1 - 2 * p) / curvature  # (dH/du) / H
     d_mu = np.sum(s - n * p) - 0.5 * np.sum(bend * (1 - w / curvature))
-    d_tau2 = (np.sum(0.5 * u * u / tau2**2 - 0.5 / tau2)
-              - 0.5 * np.sum((-1.0 / tau2**2 + bend * u / tau2**2) / curvature))
+    d_tau2 = np.sum(0.5 * u * u / tau2**2 - 0.5 / tau2) - 0.5 * np.sum(
+        (-1.0 / tau2**2 + bend * u / tau2**2) / curvature
+    )
     return value, np.array([d_mu, 2.0 * tau2 * d_tau2]), u
 
 
@@ -240,9 +239,12 @@ def fit_logistic(n, s, start=None):
         return -value / n_rows, -grad / n_rows  # per row: a first step of sane size
 
     best = minimize(
-        objective, x0=[np.clip(start[0], -edge, edge), np.clip(start[1], *LOG_TAU_BOUNDS)],
-        jac=True, method="L-BFGS-B",
-        bounds=[(-edge, edge), LOG_TAU_BOUNDS], options={"ftol": 1e-13, "gtol": 1e-9},
+        objective,
+        x0=[np.clip(start[0], -edge, edge), np.clip(start[1], *LOG_TAU_BOUNDS)],
+        jac=True,
+        method="L-BFGS-B",
+        bounds=[(-edge, edge), LOG_TAU_BOUNDS],
+        options={"ftol": 1e-13, "gtol": 1e-9},
     )
     mu, tau2 = float(best.x[0]), float(np.exp(2.0 * best.x[1]))
     u, _, _ = _modes(mu, tau2, n, s, modes[0])
@@ -329,8 +331,9 @@ class RandomInterceptCodes(_SupervisedLevels, CategoricalEncoder):
         "target_type": (Options(*TARGET_TYPES),),
     }
 
-    def __init__(self, crossfit="kfold", cv=5, random_state=None, holdout_fraction=0.5,
-                 missing="category", target_type="auto"):
+    def __init__(
+        self, crossfit="kfold", cv=5, random_state=None, holdout_fraction=0.5, missing="category", target_type="auto"
+    ):
         self.crossfit = crossfit
         self.cv = cv
         self.random_state = random_state
@@ -427,7 +430,7 @@ class RandomInterceptCodes(_SupervisedLevels, CategoricalEncoder):
         return tags
 
     def missing_rule(self) -> str:
-        return "a level of its own" if self.missing == "category" else "the intercept (missing = \"prior\")"
+        return "a level of its own" if self.missing == "category" else 'the intercept (missing = "prior")'
 
     # --- fitting ------------------------------------------------------------------------
     @property

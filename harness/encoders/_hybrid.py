@@ -139,8 +139,17 @@ class CardinalitySplit(CategoricalEncoder):
         "sparse": (Nothing(), Flag()),
     }
 
-    def __init__(self, threshold=15, low_kind="onehot", low_params=None, high_kind="target",
-                 high_params=None, random_state=None, target_type="auto", sparse=None):
+    def __init__(
+        self,
+        threshold=15,
+        low_kind="onehot",
+        low_params=None,
+        high_kind="target",
+        high_params=None,
+        random_state=None,
+        target_type="auto",
+        sparse=None,
+    ):
         self.threshold = threshold
         self.low_kind = low_kind
         self.low_params = low_params
@@ -167,8 +176,7 @@ class CardinalitySplit(CategoricalEncoder):
         from harness.encoders import declaration
 
         full = cls.settings(params)
-        return [declaration(full[f"{side}_kind"], dict(full[f"{side}_params"] or {}))
-                for side in ("low", "high")]
+        return [declaration(full[f"{side}_kind"], dict(full[f"{side}_params"] or {})) for side in ("low", "high")]
 
     def missing_rule(self) -> str:
         low, high = (self._build(side).missing_rule() for side in ("low", "high"))
@@ -281,9 +289,7 @@ class CardinalitySplit(CategoricalEncoder):
     def _fit(self, X, y, groups, transform: bool):
         frame = self._frame(X, reset=True)
         self._fit_levels(frame, order="any")  # routing needs only the counts: no sort
-        self.n_levels_ = np.asarray(
-            [len(lv) + bool(m) for lv, m in zip(self.levels_, self.n_missing_)], dtype=np.int64
-        )
+        self.n_levels_ = np.asarray([len(lv) + bool(m) for lv, m in zip(self.levels_, self.n_missing_)], dtype=np.int64)
         low = self.n_levels_ <= self.threshold
         self.low_columns_, self.high_columns_ = np.flatnonzero(low), np.flatnonzero(~low)
         outs = []

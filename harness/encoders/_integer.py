@@ -73,7 +73,7 @@ class IntegerCodes(LevelCodeEncoder):
         self.missing = missing
 
     def missing_rule(self) -> str:
-        return "a level of its own" if self.missing == "code" else "NaN, left to the model (missing = \"nan\")"
+        return "a level of its own" if self.missing == "code" else 'NaN, left to the model (missing = "nan")'
 
     def get_feature_names_out(self, input_features=None):
         """One output column per input column, named as the input column."""

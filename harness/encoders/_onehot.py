@@ -81,8 +81,7 @@ class OneHotCodes(LevelCodeEncoder):
         "missing": (Options(*MISSING_RULES),),
     }
 
-    def __init__(self, unseen="zeros", min_count=1, max_levels=None, drop_one=False, sparse=True,
-                 missing="category"):
+    def __init__(self, unseen="zeros", min_count=1, max_levels=None, drop_one=False, sparse=True, missing="category"):
         self.unseen = unseen
         self.min_count = min_count
         self.max_levels = max_levels
@@ -118,9 +117,7 @@ class OneHotCodes(LevelCodeEncoder):
         codes = self._fit_levels(frame, order="lexical")
         self.lookups_, self.kept_, widths = [], [], []
         for levels, counts, n_missing in zip(self.levels_, self.counts_, self.n_missing_):
-            lookup, kept, pooled = self._layout(
-                levels, counts, int(n_missing) if self.missing == "category" else 0
-            )
+            lookup, kept, pooled = self._layout(levels, counts, int(n_missing) if self.missing == "category" else 0)
             self.lookups_.append(lookup)
             self.kept_.append((kept, pooled))
             widths.append(max(len(kept) + pooled - bool(self.drop_one), 0))

@@ -80,13 +80,13 @@ class Interval:
             return False
         if not isinstance(value, Real) or not math.isfinite(value):
             return False
-        if self.low is not None:
-            if value < self.low or (value == self.low and self.closed in ("right", "neither")):
-                return False
-        if self.high is not None:
-            if value > self.high or (value == self.high and self.closed in ("left", "neither")):
-                return False
-        return True
+        below = self.low is not None and (
+            value < self.low or (value == self.low and self.closed in ("right", "neither"))
+        )
+        above = self.high is not None and (
+            value > self.high or (value == self.high and self.closed in ("left", "neither"))
+        )
+        return not (below or above)
 
     def _num(self, value) -> str:
         return str(int(value)) if self.kind == "int" else f"{value:g}"

@@ -172,8 +172,7 @@ class NgramSimilarity(CategoricalEncoder):
         check_is_fitted(self)
         names = _check_feature_names_in(self, input_features)
         return np.asarray(
-            [f"{name}__sim_{k}" for name, protos in zip(names, self.prototypes_)
-             for k in range(len(protos))],
+            [f"{name}__sim_{k}" for name, protos in zip(names, self.prototypes_) for k in range(len(protos))],
             dtype=object,
         )
 
@@ -208,7 +207,7 @@ class NgramSimilarity(CategoricalEncoder):
         out = np.empty((len(codes[0]), sum(widths)), dtype=np.float64)
         start = 0
         for j, (table, col) in enumerate(zip(self.lookups_, codes)):
-            block = out[:, start: start + widths[j]]
+            block = out[:, start : start + widths[j]]
             start += widths[j]
             # codes lie in [-2, n_levels - 1], so "wrap" reads the same rows as negative
             # indexing; it is ~3x faster than the default mode, which buffers ``out``
@@ -254,7 +253,7 @@ def ngram_set(text: str, n: int) -> set[str]:
     """
     if len(text) < n:
         return {text}
-    return {text[i: i + n] for i in range(len(text) - n + 1)}
+    return {text[i : i + n] for i in range(len(text) - n + 1)}
 
 
 def ngram_similarity(texts, prototypes, n: int) -> np.ndarray:

@@ -15,12 +15,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import expit, logit
 from sklearn.utils import check_random_state
-from sklearn.utils.validation import (
-    _check_feature_names_in,
-    check_consistent_length,
-    check_is_fitted,
-    column_or_1d,
-)
+from sklearn.utils.validation import _check_feature_names_in, check_consistent_length, check_is_fitted, column_or_1d
 
 import harness.encoders._crossfit as _crossfit
 from harness.encoders._base import CategoricalEncoder
@@ -207,11 +202,7 @@ class TargetStatistics(_SupervisedLevels, CategoricalEncoder):
     leaky_when = {"crossfit": ("none", "loo")}
     references = ("pargent2022", "prokhorenkova2018")
     references_when = {
-        "smoothing": {
-            "m-estimate": ("cestnik1990",),
-            "sigmoid": ("micci2001",),
-            "empirical-bayes": ("micci2001",),
-        },
+        "smoothing": {"m-estimate": ("cestnik1990",), "sigmoid": ("micci2001",), "empirical-bayes": ("micci2001",)},
         "statistic": {"woe": ("siddiqi2006",)},
     }
     param_rules = {
@@ -332,9 +323,7 @@ class TargetStatistics(_SupervisedLevels, CategoricalEncoder):
         check_is_fitted(self, "encodings_")
         names = _check_feature_names_in(self, input_features)
         if self.target_type_ == "multiclass":
-            return np.asarray(
-                [f"{c}__target_{k}" for c in names for k in self.classes_], dtype=object
-            )
+            return np.asarray([f"{c}__target_{k}" for c in names for k in self.classes_], dtype=object)
         return np.asarray([f"{c}__target" for c in names], dtype=object)
 
     def __sklearn_tags__(self):
@@ -343,7 +332,7 @@ class TargetStatistics(_SupervisedLevels, CategoricalEncoder):
         return tags
 
     def missing_rule(self) -> str:
-        return "a level of its own" if self.missing == "category" else "the prior (missing = \"prior\")"
+        return "a level of its own" if self.missing == "category" else 'the prior (missing = "prior")'
 
     # --- fitting ------------------------------------------------------------------------
     def _prepare(self, X, y):
@@ -353,8 +342,7 @@ class TargetStatistics(_SupervisedLevels, CategoricalEncoder):
         check_consistent_length(frame, y)
         Y, classes = self._target_matrix(y)
         # training codes hold MISSING only where missing rows were seen: else no remap pass
-        codes = [self._level_codes(c, j) if self.n_missing_[j] else c
-                 for j, c in enumerate(self._fit_levels(frame))]
+        codes = [self._level_codes(c, j) if self.n_missing_[j] else c for j, c in enumerate(self._fit_levels(frame))]
         self._n_fit = Y.shape[0]
         self.prior_ = Y.mean(axis=0)
         if self.prior is not None:

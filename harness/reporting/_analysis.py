@@ -63,9 +63,13 @@ def _models(results: pd.DataFrame, manifest: Manifest) -> tuple:
 def _comparison(eligible, decision, n_boot, seed):
     keep = tuple(e for e in (decision.reference, *decision.choice) if e)
     m = stats.score_matrix(eligible, decision.model, decision.metric, keep=keep)
-    return stats.compare_encoders(m, alpha=decision.rule.alpha, n_boot=n_boot, seed=seed,
-                                  control=decision.reference if decision.reference in
-                                  m.encoders else None)
+    return stats.compare_encoders(
+        m,
+        alpha=decision.rule.alpha,
+        n_boot=n_boot,
+        seed=seed,
+        control=decision.reference if decision.reference in m.encoders else None,
+    )
 
 
 def analyse(run: Run, *, n_boot: int = 2000, seed: int = 0) -> Analysis:
@@ -88,6 +92,16 @@ def analyse(run: Run, *, n_boot: int = 2000, seed: int = 0) -> Analysis:
     head = [d for (_, m), d in decs.items() if m == metrics[0]]
     related = [m for m in tables.METRIC_NAMES if m in res.columns and m != stats.POOLED]
     robust = stats.choice_robustness(res, head, metrics=related, low=low, high=high)
-    return Analysis(run, rule, metrics, models, (low, high), comps, decs, robust,
-                    tables.cost_summary(res), stats.leakage_audit(res, alpha=rule.alpha),
-                    stats.dataset_regimes(res, low=low, high=high))
+    return Analysis(
+        run,
+        rule,
+        metrics,
+        models,
+        (low, high),
+        comps,
+        decs,
+        robust,
+        tables.cost_summary(res),
+        stats.leakage_audit(res, alpha=rule.alpha),
+        stats.dataset_regimes(res, low=low, high=high),
+    )

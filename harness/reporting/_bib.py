@@ -14,15 +14,20 @@ __all__ = ["BIB", "STATS_KEYS", "used_references", "cite"]
 
 # key -> (short citation, BibTeX entry)
 BIB = {
-    "demsar2006": ("Demšar (2006)", """@article{demsar2006,
+    "demsar2006": (
+        "Demšar (2006)",
+        """@article{demsar2006,
   author  = {Dem{\\v{s}}ar, Janez},
   title   = {Statistical Comparisons of Classifiers over Multiple Data Sets},
   journal = {Journal of Machine Learning Research},
   volume  = {7},
   pages   = {1--30},
   year    = {2006}
-}"""),
-    "nadeau2003": ("Nadeau & Bengio (2003)", """@article{nadeau2003,
+}""",
+    ),
+    "nadeau2003": (
+        "Nadeau & Bengio (2003)",
+        """@article{nadeau2003,
   author  = {Nadeau, Claude and Bengio, Yoshua},
   title   = {Inference for the Generalization Error},
   journal = {Machine Learning},
@@ -30,8 +35,11 @@ BIB = {
   number  = {3},
   pages   = {239--281},
   year    = {2003}
-}"""),
-    "bouckaert2004": ("Bouckaert & Frank (2004)", """@inproceedings{bouckaert2004,
+}""",
+    ),
+    "bouckaert2004": (
+        "Bouckaert & Frank (2004)",
+        """@inproceedings{bouckaert2004,
   author    = {Bouckaert, Remco R. and Frank, Eibe},
   title     = {Evaluating the Replicability of Significance Tests for Comparing
                Learning Algorithms},
@@ -41,8 +49,11 @@ BIB = {
   pages     = {3--12},
   publisher = {Springer},
   year      = {2004}
-}"""),
-    "holm1979": ("Holm (1979)", """@article{holm1979,
+}""",
+    ),
+    "holm1979": (
+        "Holm (1979)",
+        """@article{holm1979,
   author  = {Holm, Sture},
   title   = {A Simple Sequentially Rejective Multiple Test Procedure},
   journal = {Scandinavian Journal of Statistics},
@@ -50,8 +61,11 @@ BIB = {
   number  = {2},
   pages   = {65--70},
   year    = {1979}
-}"""),
-    "iman1980": ("Iman & Davenport (1980)", """@article{iman1980,
+}""",
+    ),
+    "iman1980": (
+        "Iman & Davenport (1980)",
+        """@article{iman1980,
   author  = {Iman, Ronald L. and Davenport, James M.},
   title   = {Approximations of the Critical Region of the {Friedman} Statistic},
   journal = {Communications in Statistics -- Theory and Methods},
@@ -59,14 +73,20 @@ BIB = {
   number  = {6},
   pages   = {571--595},
   year    = {1980}
-}"""),
-    "efron1993": ("Efron & Tibshirani (1993)", """@book{efron1993,
+}""",
+    ),
+    "efron1993": (
+        "Efron & Tibshirani (1993)",
+        """@book{efron1993,
   author    = {Efron, Bradley and Tibshirani, Robert J.},
   title     = {An Introduction to the Bootstrap},
   publisher = {Chapman \\& Hall},
   year      = {1993}
-}"""),
-    "micci2001": ("Micci-Barreca (2001)", """@article{micci2001,
+}""",
+    ),
+    "micci2001": (
+        "Micci-Barreca (2001)",
+        """@article{micci2001,
   author  = {Micci-Barreca, Daniele},
   title   = {A Preprocessing Scheme for High-Cardinality Categorical Attributes in
              Classification and Prediction Problems},
@@ -75,23 +95,32 @@ BIB = {
   number  = {1},
   pages   = {27--32},
   year    = {2001}
-}"""),
-    "cestnik1990": ("Cestnik (1990)", """@inproceedings{cestnik1990,
+}""",
+    ),
+    "cestnik1990": (
+        "Cestnik (1990)",
+        """@inproceedings{cestnik1990,
   author    = {Cestnik, Bojan},
   title     = {Estimating Probabilities: A Crucial Task in Machine Learning},
   booktitle = {Proceedings of the 9th European Conference on Artificial Intelligence
                (ECAI'90)},
   pages     = {147--149},
   year      = {1990}
-}"""),
-    "prokhorenkova2018": ("Prokhorenkova et al. (2018)", """@inproceedings{prokhorenkova2018,
+}""",
+    ),
+    "prokhorenkova2018": (
+        "Prokhorenkova et al. (2018)",
+        """@inproceedings{prokhorenkova2018,
   author    = {Prokhorenkova, Liudmila and Gusev, Gleb and Vorobev, Aleksandr and
                Dorogush, Anna Veronika and Gulin, Andrey},
   title     = {{CatBoost}: Unbiased Boosting with Categorical Features},
   booktitle = {Advances in Neural Information Processing Systems 31 (NeurIPS 2018)},
   year      = {2018}
-}"""),
-    "weinberger2009": ("Weinberger et al. (2009)", """@inproceedings{weinberger2009,
+}""",
+    ),
+    "weinberger2009": (
+        "Weinberger et al. (2009)",
+        """@inproceedings{weinberger2009,
   author    = {Weinberger, Kilian and Dasgupta, Anirban and Langford, John and
                Smola, Alex and Attenberg, Josh},
   title     = {Feature Hashing for Large Scale Multitask Learning},
@@ -99,15 +128,21 @@ BIB = {
                (ICML 2009)},
   pages     = {1113--1120},
   year      = {2009}
-}"""),
-    "siddiqi2006": ("Siddiqi (2006)", """@book{siddiqi2006,
+}""",
+    ),
+    "siddiqi2006": (
+        "Siddiqi (2006)",
+        """@book{siddiqi2006,
   author    = {Siddiqi, Naeem},
   title     = {Credit Risk Scorecards: Developing and Implementing Intelligent Credit
                Scoring},
   publisher = {Wiley},
   year      = {2006}
-}"""),
-    "pargent2022": ("Pargent et al. (2022)", """@article{pargent2022,
+}""",
+    ),
+    "pargent2022": (
+        "Pargent et al. (2022)",
+        """@article{pargent2022,
   author  = {Pargent, Florian and Pfisterer, Florian and Thomas, Janek and Bischl, Bernd},
   title   = {Regularized Target Encoding Outperforms Traditional Methods in Supervised
              Machine Learning with High Cardinality Features},
@@ -115,16 +150,22 @@ BIB = {
   volume  = {37},
   pages   = {2671--2692},
   year    = {2022}
-}"""),
-    "cerda2018": ("Cerda et al. (2018)", """@article{cerda2018,
+}""",
+    ),
+    "cerda2018": (
+        "Cerda et al. (2018)",
+        """@article{cerda2018,
   author  = {Cerda, Patricio and Varoquaux, Ga{\\"e}l and K{\\'e}gl, Bal{\\'a}zs},
   title   = {Similarity Encoding for Learning with Dirty Categorical Variables},
   journal = {Machine Learning},
   volume  = {107},
   pages   = {1477--1494},
   year    = {2018}
-}"""),
-    "benavoli2017": ("Benavoli et al. (2017)", """@article{benavoli2017,
+}""",
+    ),
+    "benavoli2017": (
+        "Benavoli et al. (2017)",
+        """@article{benavoli2017,
   author  = {Benavoli, Alessio and Corani, Giorgio and Dem{\\v{s}}ar, Janez and
              Zaffalon, Marco},
   title   = {Time for a Change: a Tutorial for Comparing Multiple Classifiers Through
@@ -134,8 +175,11 @@ BIB = {
   number  = {77},
   pages   = {1--36},
   year    = {2017}
-}"""),
-    "schuirmann1987": ("Schuirmann (1987)", """@article{schuirmann1987,
+}""",
+    ),
+    "schuirmann1987": (
+        "Schuirmann (1987)",
+        """@article{schuirmann1987,
   author  = {Schuirmann, Donald J.},
   title   = {A Comparison of the Two One-Sided Tests Procedure and the Power Approach for
              Assessing the Equivalence of Average Bioavailability},
@@ -144,8 +188,11 @@ BIB = {
   number  = {6},
   pages   = {657--680},
   year    = {1987}
-}"""),
-    "corani2015": ("Corani & Benavoli (2015)", """@article{corani2015,
+}""",
+    ),
+    "corani2015": (
+        "Corani & Benavoli (2015)",
+        """@article{corani2015,
   author  = {Corani, Giorgio and Benavoli, Alessio},
   title   = {A {Bayesian} Approach for Comparing Cross-Validated Algorithms on Multiple
              Data Sets},
@@ -153,16 +200,22 @@ BIB = {
   volume  = {100},
   pages   = {285--304},
   year    = {2015}
-}"""),
-    "hodges1963": ("Hodges & Lehmann (1963)", """@article{hodges1963,
+}""",
+    ),
+    "hodges1963": (
+        "Hodges & Lehmann (1963)",
+        """@article{hodges1963,
   author  = {Hodges, J. L. and Lehmann, E. L.},
   title   = {Estimates of Location Based on Rank Tests},
   journal = {Annals of Mathematical Statistics},
   volume  = {34},
   pages   = {598--611},
   year    = {1963}
-}"""),
-    "hesterberg2015": ("Hesterberg (2015)", """@article{hesterberg2015,
+}""",
+    ),
+    "hesterberg2015": (
+        "Hesterberg (2015)",
+        """@article{hesterberg2015,
   author  = {Hesterberg, Tim C.},
   title   = {What Teachers Should Know About the Bootstrap: Resampling in the
              Undergraduate Statistics Curriculum},
@@ -171,15 +224,26 @@ BIB = {
   number  = {4},
   pages   = {371--386},
   year    = {2015}
-}"""),
+}""",
+    ),
 }
 
 #: methods every report uses: corrected t intervals, ranks, Friedman/Iman-Davenport,
 #: Nemenyi, the decision (Wilcoxon with Holm, Hodges-Lehmann, TOST, Bayesian signed-rank
 #: and correlated t), bootstrap intervals of the average rank
-STATS_KEYS = ("demsar2006", "nadeau2003", "bouckaert2004", "iman1980", "holm1979",
-              "efron1993", "hesterberg2015", "hodges1963", "schuirmann1987", "benavoli2017",
-              "corani2015")
+STATS_KEYS = (
+    "demsar2006",
+    "nadeau2003",
+    "bouckaert2004",
+    "iman1980",
+    "holm1979",
+    "efron1993",
+    "hesterberg2015",
+    "hodges1963",
+    "schuirmann1987",
+    "benavoli2017",
+    "corani2015",
+)
 
 
 def cite(key: str) -> str:

@@ -27,8 +27,9 @@ def figure(fig_fn, root: Path, stem: str, caption: str, alt: str) -> list:
 
 
 def table(frame, root: Path, stem: str, caption: str, shown=None, tex=None) -> Table:
-    csv, texp = tables.write_table(frame, root / "tables", stem, caption=caption,
-                                   tex_frame=tex if tex is not None else shown)
+    csv, texp = tables.write_table(
+        frame, root / "tables", stem, caption=caption, tex_frame=tex if tex is not None else shown
+    )
     shown = tables.display(frame if shown is None else shown)
     return Table(shown, caption, (str(csv.relative_to(root)), str(texp.relative_to(root))))
 

@@ -15,10 +15,19 @@ __all__ = ["INK", "MID", "LIGHT", "ACCENT", "STYLE", "NothingToPlot", "save"]
 
 INK, MID, LIGHT, ACCENT = "#111111", "#6b6b6b", "#d9d9d9", "#0b5d6b"
 STYLE = {
-    "font.size": 9, "axes.titlesize": 9.5, "axes.titleweight": "bold", "axes.labelsize": 9,
-    "xtick.labelsize": 8.5, "ytick.labelsize": 8.5, "legend.fontsize": 8,
-    "axes.spines.top": False, "axes.spines.right": False, "axes.edgecolor": MID,
-    "axes.linewidth": 0.8, "svg.hashsalt": "harness", "figure.dpi": 100,
+    "font.size": 9,
+    "axes.titlesize": 9.5,
+    "axes.titleweight": "bold",
+    "axes.labelsize": 9,
+    "xtick.labelsize": 8.5,
+    "ytick.labelsize": 8.5,
+    "legend.fontsize": 8,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.edgecolor": MID,
+    "axes.linewidth": 0.8,
+    "svg.hashsalt": "harness",
+    "figure.dpi": 100,
 }
 
 
@@ -53,7 +62,7 @@ def new_figure(size) -> Figure:
 def grid(n: int, ncols: int, width: float, heights) -> tuple:
     ncols = max(1, min(ncols, n))
     nrows = math.ceil(n / ncols)
-    row_h = [max(heights[r * ncols:(r + 1) * ncols]) for r in range(nrows)]
+    row_h = [max(heights[r * ncols : (r + 1) * ncols]) for r in range(nrows)]
     fig = new_figure((width * ncols, sum(row_h) + 0.9))
     axes = fig.subplots(nrows, ncols, squeeze=False, gridspec_kw={"height_ratios": row_h})
     for ax in axes.flat[n:]:
@@ -62,11 +71,7 @@ def grid(n: int, ncols: int, width: float, heights) -> tuple:
 
 
 def usable(comparisons, min_datasets: int, what: str) -> list:
-    comps = [c for c in comparisons if c.matrix.n_datasets >= min_datasets
-             and len(c.matrix.encoders) >= 2]
+    comps = [c for c in comparisons if c.matrix.n_datasets >= min_datasets and len(c.matrix.encoders) >= 2]
     if not comps:
-        raise NothingToPlot(f"{what}: no model has at least {min_datasets} complete "
-                            "dataset(s) and 2 encoders.")
+        raise NothingToPlot(f"{what}: no model has at least {min_datasets} complete dataset(s) and 2 encoders.")
     return comps
-
-

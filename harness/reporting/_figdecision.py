@@ -16,8 +16,11 @@ __all__ = ["rank_plot", "cd_diagram", "cliques", "delta_plot", "VERDICT_MARKERS"
 
 #: verdict -> (marker, face colour, size): distinct shapes, so no colour is needed
 VERDICT_MARKERS = {
-    "superior": ("^", INK, 8), "equivalent": ("D", MID, 7), "non-inferior": ("o", INK, 7),
-    "inferior": ("v", "white", 8), "inconclusive": ("o", "white", 7),
+    "superior": ("^", INK, 8),
+    "equivalent": ("D", MID, 7),
+    "non-inferior": ("o", INK, 7),
+    "inferior": ("v", "white", 8),
+    "inconclusive": ("o", "white", 7),
 }
 
 
@@ -40,15 +43,18 @@ def _delta_panel(ax, d) -> None:
     unbounded = ~(np.isfinite(lo) & np.isfinite(hi))
     if unbounded.any() and not unbounded.all():
         for yi, e in zip(y[unbounded], eff[unbounded]):  # rows without a finite bound
-            ax.annotate("no bound", (e, yi), xytext=(0, 7), textcoords="offset points",
-                        ha="center", fontsize=7, color=MID)
+            ax.annotate(
+                "no bound", (e, yi), xytext=(0, 7), textcoords="offset points", ha="center", fontsize=7, color=MID
+            )
     for verdict, (mk, face, ms) in VERDICT_MARKERS.items():  # loop over verdict kinds
         sel = (t["verdict"] == verdict).to_numpy()
         ax.plot(eff[sel], y[sel], mk, mfc=face, mec=INK, ms=ms, ls="")
     ax.axvline(-100 * d.rule.margin, color=INK, ls="--", lw=1)
     ax.axvline(0, color=MID, lw=0.8)
-    names = [f"{e}{'  (chosen)' if c else ''}{'' if ok else '  (excluded: leaky)'}"
-             for e, c, ok in zip(t.index, t["chosen"], t["eligible"])]
+    names = [
+        f"{e}{'  (chosen)' if c else ''}{'' if ok else '  (excluded: leaky)'}"
+        for e, c, ok in zip(t.index, t["chosen"], t["eligible"])
+    ]
     ax.set_yticks(y, names)
     ax.set_ylim(len(t) - 0.4, -0.6)
     ax.grid(axis="x", color=LIGHT, lw=0.6)
@@ -78,13 +84,18 @@ def delta_plot(decisions, *, ncols: int = 1):
         fig, axes = grid(len(ds), ncols, 7.5, [0.32 * len(d.table) + 1.1 for d in ds])
         for ax, d in zip(axes, ds):  # loop over panels
             _delta_panel(ax, d)
-        handles = [Line2D([], [], ls="", marker=mk, mfc=face, mec=INK, ms=ms, label=v)
-                   for v, (mk, face, ms) in VERDICT_MARKERS.items()]
+        handles = [
+            Line2D([], [], ls="", marker=mk, mfc=face, mec=INK, ms=ms, label=v)
+            for v, (mk, face, ms) in VERDICT_MARKERS.items()
+        ]
         handles.append(Line2D([], [], ls="--", color=INK, lw=1, label="margin"))
         fig.legend(handles=handles, loc="outside lower center", ncols=6, frameon=False)
-        fig.suptitle("Effect against the reference\nsimultaneous one-sided bounds (arrow: "
-                     "the bound runs off the window)\ndashed line: the margin",
-                     fontweight="bold", fontsize=10.5)
+        fig.suptitle(
+            "Effect against the reference\nsimultaneous one-sided bounds (arrow: "
+            "the bound runs off the window)\ndashed line: the margin",
+            fontweight="bold",
+            fontsize=10.5,
+        )
     return fig
 
 
@@ -102,8 +113,7 @@ def _rank_panel(ax, comp, decision) -> None:
     ax.plot(r["avg_rank"][ref], y[ref], "s", mfc=MID, mec=INK, ms=7, ls="")
     ax.plot(r["avg_rank"][chosen], y[chosen], "D", mfc=INK, mec=INK, ms=6, ls="")
     for yi, v in zip(y, r["avg_rank"]):  # loop over encoders
-        ax.annotate(f"{v:.2f}", (v, yi), xytext=(0, 6), textcoords="offset points",
-                    ha="center", fontsize=7, color=MID)
+        ax.annotate(f"{v:.2f}", (v, yi), xytext=(0, 6), textcoords="offset points", ha="center", fontsize=7, color=MID)
     ax.set_yticks(y, [str(e) for e in r.index])
     ax.set_ylim(k - 0.4, -0.7)
     ax.set_xlim(0.7, k + 0.3)
@@ -112,9 +122,11 @@ def _rank_panel(ax, comp, decision) -> None:
     ax.set_axisbelow(True)
     ax.set_xlabel("average rank  (1 = best; further left is better)")
     n = comp.matrix.n_datasets
-    ax.set_title(f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · {n} dataset(s)"
-                 + ("" if np.isfinite(r["ci_low"]).any() else
-                    "\nno interval: too few datasets for its coverage"), loc="left")
+    ax.set_title(
+        f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · {n} dataset(s)"
+        + ("" if np.isfinite(r["ci_low"]).any() else "\nno interval: too few datasets for its coverage"),
+        loc="left",
+    )
 
 
 def rank_plot(comparisons, decisions=None, *, ncols: int = 1):
@@ -141,13 +153,12 @@ def rank_plot(comparisons, decisions=None, *, ncols: int = 1):
             _rank_panel(ax, comp, decs.get((comp.matrix.model, comp.matrix.metric)))
         handles = [
             Line2D([], [], ls="", marker="s", mfc=MID, mec=INK, ms=7, label="reference"),
-            Line2D([], [], ls="", marker="D", mfc=INK, mec=INK, ms=6,
-                   label="chosen (when not the reference)"),
+            Line2D([], [], ls="", marker="D", mfc=INK, mec=INK, ms=6, label="chosen (when not the reference)"),
             Line2D([], [], ls="", marker="o", mfc="white", mec=INK, ms=6, label="other"),
-            Line2D([], [], color=INK, lw=1.2, label="95% bootstrap interval over datasets")]
+            Line2D([], [], color=INK, lw=1.2, label="95% bootstrap interval over datasets"),
+        ]
         fig.legend(handles=handles, loc="outside lower center", ncols=2, frameon=False)
-        fig.suptitle("Average rank of each encoder across datasets (lower is better)",
-                     fontweight="bold", fontsize=10.5)
+        fig.suptitle("Average rank of each encoder across datasets (lower is better)", fontweight="bold", fontsize=10.5)
     return fig
 
 
@@ -168,7 +179,7 @@ def cliques(avg_ranks: pd.Series, cd: float) -> list[tuple]:
     ends = np.searchsorted(v, v + cd, side="left") - 1
     ends = np.maximum(ends, np.arange(len(v)))
     keep = (ends > np.arange(len(v))) & np.r_[True, ends[1:] > ends[:-1]]
-    return [tuple(r.index[s:e + 1]) for s, e in zip(np.flatnonzero(keep), ends[keep])]
+    return [tuple(r.index[s : e + 1]) for s, e in zip(np.flatnonzero(keep), ends[keep])]
 
 
 def group_letters(avg_ranks: pd.Series, cd: float) -> pd.Series:
@@ -195,22 +206,22 @@ def _cd_panel(ax, comp, alpha: float) -> None:
             ax.fill_betweenx([yi - 0.28, yi + 0.28], v, v + cd, color=LIGHT, lw=0)
     ax.plot(r, y, "o", mfc=INK, mec=INK, ms=5, ls="")
     for yi, e in zip(y, r.index):  # loop over encoders
-        ax.text(reach + 0.2, yi, letters[e], va="center", ha="left", fontsize=9,
-                family="monospace", fontweight="bold")
+        ax.text(reach + 0.2, yi, letters[e], va="center", ha="left", fontsize=9, family="monospace", fontweight="bold")
     ax.set_yticks(y, [f"{e}  ({v:.2f})" for e, v in r.items()])
     ax.set_ylim(k - 0.4, -0.6)
     ax.set_xlim(0.6, reach + 0.8)
     ax.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(integer=True))
     ax.grid(axis="x", color=LIGHT, lw=0.4, ls=":")
-    ax.set_xlabel(f"average rank (lower is better); grey band = critical difference "
-                  f"{cd:.2f} (Nemenyi, α = {alpha:g})")
+    ax.set_xlabel(f"average rank (lower is better); grey band = critical difference {cd:.2f} (Nemenyi, α = {alpha:g})")
     f = comp.friedman
     p = f.p
     ptext = "p < 0.0001" if p < 1e-4 else f"p = {p:.3g}"
-    kind = "exact permutation" if f.perm_exact else "permutation" if np.isfinite(f.perm_p) \
-        else "Iman–Davenport"
-    ax.set_title(f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · "
-                 f"{comp.matrix.n_datasets} datasets\nFriedman test, {kind} {ptext}", loc="left")
+    kind = "exact permutation" if f.perm_exact else "permutation" if np.isfinite(f.perm_p) else "Iman–Davenport"
+    ax.set_title(
+        f"{comp.matrix.model} · {metric_name(comp.matrix.metric)} · "
+        f"{comp.matrix.n_datasets} datasets\nFriedman test, {kind} {ptext}",
+        loc="left",
+    )
 
 
 def cd_diagram(comparisons, *, alpha: float = 0.05):
@@ -233,7 +244,10 @@ def cd_diagram(comparisons, *, alpha: float = 0.05):
         fig, axes = grid(len(comps), 1, 7.0, [0.3 * len(c.ranks) + 1.4 for c in comps])
         for ax, comp in zip(axes, comps):  # loop over panels
             _cd_panel(ax, comp, alpha)
-        fig.suptitle("Which average ranks the Nemenyi test separates\n(a shared letter: not "
-                     "separated, which is not a claim of equivalence)",
-                     fontweight="bold", fontsize=10)
+        fig.suptitle(
+            "Which average ranks the Nemenyi test separates\n(a shared letter: not "
+            "separated, which is not a claim of equivalence)",
+            fontweight="bold",
+            fontsize=10,
+        )
     return fig

@@ -18,8 +18,7 @@ from pathlib import Path
 
 import pandas as pd
 
-__all__ = ["Heading", "Para", "Bullets", "Table", "Figure", "Code", "Note",
-           "to_markdown", "to_html"]
+__all__ = ["Heading", "Para", "Bullets", "Table", "Figure", "Code", "Note", "to_markdown", "to_html"]
 
 
 @dataclass(frozen=True)
@@ -74,8 +73,9 @@ def _md_table(t: Table) -> str:
     f = t.frame
     head = "| " + " | ".join(_md_cell(c) for c in f.columns) + " |"
     rule = "|" + "|".join("---" for _ in f.columns) + "|"
-    body = ["| " + " | ".join(_md_cell(v) for v in row) + " |"
-            for row in f.astype(str).to_numpy().tolist()]  # loop over table rows of a summary
+    body = [
+        "| " + " | ".join(_md_cell(v) for v in row) + " |" for row in f.astype(str).to_numpy().tolist()
+    ]  # loop over table rows of a summary
     lines = ([f"*{t.caption}*", ""] if t.caption else []) + [head, rule, *body]
     if t.files:
         lines += ["", "Files: " + ", ".join(f"[{p}]({p})" for p in t.files)]
@@ -151,9 +151,10 @@ window.addEventListener("load", function () {
 def _inline(text: str) -> str:
     out, last = [], 0
     for m in _INLINE.finditer(text):
-        out.append(html.escape(text[last:m.start()]))
-        out.append(f"<strong>{html.escape(m.group(1))}</strong>" if m.group(1)
-                   else f"<code>{html.escape(m.group(2))}</code>")
+        out.append(html.escape(text[last : m.start()]))
+        out.append(
+            f"<strong>{html.escape(m.group(1))}</strong>" if m.group(1) else f"<code>{html.escape(m.group(2))}</code>"
+        )
         last = m.end()
     out.append(html.escape(text[last:]))
     return "".join(out)
@@ -161,8 +162,10 @@ def _inline(text: str) -> str:
 
 def _html_table(t: Table) -> str:
     head = "".join(f"<th>{_inline(str(c))}</th>" for c in t.frame.columns)
-    rows = "".join("<tr>" + "".join(f"<td>{_inline(v)}</td>" for v in row) + "</tr>"
-                   for row in t.frame.astype(str).to_numpy().tolist())
+    rows = "".join(
+        "<tr>" + "".join(f"<td>{_inline(v)}</td>" for v in row) + "</tr>"
+        for row in t.frame.astype(str).to_numpy().tolist()
+    )
     cap = f"<caption>{_inline(t.caption)}</caption>" if t.caption else ""
     files = ""
     if t.files:
@@ -173,9 +176,11 @@ def _html_table(t: Table) -> str:
 
 def _html_figure(f: Figure, root: Path) -> str:
     data = base64.b64encode((root / f.png).read_bytes()).decode("ascii")
-    return (f'<figure><img src="data:image/png;base64,{data}" alt="{html.escape(f.alt)}">'
-            f"<figcaption>{_inline(f.caption)} Vector version: "
-            f'<a href="{html.escape(f.svg)}">{html.escape(f.svg)}</a>.</figcaption></figure>')
+    return (
+        f'<figure><img src="data:image/png;base64,{data}" alt="{html.escape(f.alt)}">'
+        f"<figcaption>{_inline(f.caption)} Vector version: "
+        f'<a href="{html.escape(f.svg)}">{html.escape(f.svg)}</a>.</figcaption></figure>'
+    )
 
 
 def _html_block(b, root: Path) -> str:
@@ -201,8 +206,8 @@ def to_html(blocks, title: str, root) -> str:
     """Render blocks as one self-contained HTML page (figures read from ``root``)."""
     body = "\n".join(_html_block(b, Path(root)) for b in blocks)
     return (
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
-        f"<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        f'<meta name="viewport" content="width=device-width, initial-scale=1">'
         f"<title>{html.escape(title)}</title><style>{CSS}</style></head>\n<body>\n{body}\n"
         '<p id="render-check" class="files">Figures not checked (scripts disabled).</p>\n'
         f"<script>{CHECK_SCRIPT}</script>\n</body></html>\n"

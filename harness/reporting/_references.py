@@ -16,8 +16,9 @@ def references_section(a: Analysis, root: Path) -> list:
     keys = _bib.used_references(a.run.manifest.encoders)
     bib = "\n\n".join(_bib.BIB[k][1] for k in keys)
     (root / "references.bib").write_text(bib + "\n", encoding="utf-8")
-    return [Heading("References", 2, "references"),
-            Bullets(tuple(_bib.cite(k) + f" — `{k}`" for k in keys)),
-            Para("BibTeX (also in references.bib):"), Code(bib, "bibtex")]
-
-
+    return [
+        Heading("References", 2, "references"),
+        Bullets(tuple(_bib.cite(k) + f" — `{k}`" for k in keys)),
+        Para("BibTeX (also in references.bib):"),
+        Code(bib, "bibtex"),
+    ]

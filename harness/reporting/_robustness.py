@@ -21,13 +21,14 @@ def robustness_sentence(rob) -> str:
         empty = int((part["agrees"] & ~part["reachable"]).sum())
         text = f"{model}: the rule makes the headline choice in {same} of {len(part)} slices"
         if empty:
-            text += (f" (in {empty} of them too few datasets leave no verdict reachable, so "
-                     "that agreement says nothing)")
+            text += f" (in {empty} of them too few datasets leave no verdict reachable, so that agreement says nothing)"
         moved = part.loc[~part["agrees"]]
         if len(moved):
             text += "; it chooses otherwise in " + ", ".join(
                 f"{r.axis} '{metric_name(r.slice) if r.axis == 'metric' else r.slice}' "
-                f"({r.choice}, {r.n_datasets} dataset(s))" for r in moved.itertuples())
+                f"({r.choice}, {r.n_datasets} dataset(s))"
+                for r in moved.itertuples()
+            )
         out.append(text + ".")
     return " ".join(out)
 
@@ -37,20 +38,33 @@ def robustness_section(a, root: Path) -> list:
     out = [Heading("Does the choice survive other settings?", 2, "robustness")]
     rob = a.robustness
     if rob.empty:
-        return out + [Note("No slice differs from the headline analysis (one metric, one "
-                           "regime): there is nothing to vary.")]
-    out.append(Para("Exploratory and uncorrected for the number of slices: the decision "
-                    "rule, with the same reference and numbers, is rerun on each other metric "
-                    "over all datasets and on each cardinality regime alone; each distinct "
-                    "slice appears once. The choice does not rest on an aggregation of ranks, "
-                    "so that axis is not varied. " + robustness_sentence(rob)))
-    shown = rob.assign(effect=rob["effect"].map(lambda v: pct(v) if v == v else "—"),
-                       lower=rob["lower"].map(lambda v: pct(v) if v == v else "—"),
-                       slice=[metric_name(s) if ax == "metric" else s
-                              for ax, s in zip(rob["axis"], rob["slice"])])
-    out.append(table(rob, root, "robustness", "The rule's choice per slice (exploratory, "
-                     "uncorrected); verdict, effect and lower bound belong to the slice's own "
-                     "choice ('kept' = the reference is kept); reachable = the slice has enough "
-                     "datasets for any verdict; agrees = the slice makes the headline choice.",
-                     shown=shown))
+        return out + [
+            Note("No slice differs from the headline analysis (one metric, one regime): there is nothing to vary.")
+        ]
+    out.append(
+        Para(
+            "Exploratory and uncorrected for the number of slices: the decision "
+            "rule, with the same reference and numbers, is rerun on each other metric "
+            "over all datasets and on each cardinality regime alone; each distinct "
+            "slice appears once. The choice does not rest on an aggregation of ranks, "
+            "so that axis is not varied. " + robustness_sentence(rob)
+        )
+    )
+    shown = rob.assign(
+        effect=rob["effect"].map(lambda v: pct(v) if v == v else "—"),
+        lower=rob["lower"].map(lambda v: pct(v) if v == v else "—"),
+        slice=[metric_name(s) if ax == "metric" else s for ax, s in zip(rob["axis"], rob["slice"])],
+    )
+    out.append(
+        table(
+            rob,
+            root,
+            "robustness",
+            "The rule's choice per slice (exploratory, "
+            "uncorrected); verdict, effect and lower bound belong to the slice's own "
+            "choice ('kept' = the reference is kept); reachable = the slice has enough "
+            "datasets for any verdict; agrees = the slice makes the headline choice.",
+            shown=shown,
+        )
+    )
     return out

@@ -73,8 +73,9 @@ def load_run(directory) -> Run:
     try:
         manifest = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, json.JSONDecodeError) as exc:
-        raise StoreError(f"the manifest {path} cannot be read ({exc}); rerun `levelfold run` "
-                         "with the same config to rewrite it.") from None
+        raise StoreError(
+            f"the manifest {path} cannot be read ({exc}); rerun `levelfold run` with the same config to rewrite it."
+        ) from None
     try:
         manifest = Manifest.from_dict(manifest)
     except StoreError as exc:
@@ -83,8 +84,7 @@ def load_run(directory) -> Run:
     private = tuple(names[d] for d in manifest.private_datasets)
     results = results.assign(dataset=results["dataset"].map(lambda d: names.get(d, d)))
     bad = results["dataset"].isin(private)
-    results.loc[bad, "error"] = tables.scrub_error(results.loc[bad, "error"],
-                                                   results.loc[bad, "status"], bad[bad])
+    results.loc[bad, "error"] = tables.scrub_error(results.loc[bad, "error"], results.loc[bad, "status"], bad[bad])
     manifest = manifest.with_dataset_names(names)
     return split_run(Run(directory, stats.pool_task_score(results), manifest, private, read_set_aside(directory)))
 
@@ -102,10 +102,8 @@ def main_regime(results: pd.DataFrame, manifest) -> str:
 def split_run(run):
     """``run`` with ``results`` cut to its main regime (``all_results`` keeps every row)."""
     # a row without a regime (a table written before tuning existed) ran untuned
-    rows = run.results.assign(regime=run.results["regime"].fillna(DEFAULT_REGIME)
-                              if "regime" in run.results else DEFAULT_REGIME)
+    rows = run.results.assign(
+        regime=run.results["regime"].fillna(DEFAULT_REGIME) if "regime" in run.results else DEFAULT_REGIME
+    )
     regime = main_regime(rows, run.manifest)
     return replace(run, results=rows[rows["regime"] == regime], all_results=rows, regime=regime)
-
-
-

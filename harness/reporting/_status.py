@@ -17,13 +17,11 @@ def status_section(a: Analysis, root: Path) -> list:
     res = a.run.results
     out = [Heading("Cells without a score", 2, "not-run")]
     counts = res["status"].value_counts()
-    out.append(Para("Cells by status: " + ", ".join(f"{s} {n}" for s, n in counts.items())
-                    + f" (total {len(res)})."))
+    out.append(Para("Cells by status: " + ", ".join(f"{s} {n}" for s, n in counts.items()) + f" (total {len(res)})."))
     st = tables.status_table(res, a.run.private)
     if st.empty:
         return out + [Para("Every cell produced a score.")]
-    out.append(table(st, root, "cells_without_score", "Cells without a score, grouped by "
-                      "status, model, encoder and reason."))
+    out.append(
+        table(st, root, "cells_without_score", "Cells without a score, grouped by status, model, encoder and reason.")
+    )
     return out
-
-

@@ -62,16 +62,20 @@ def _choice_row(d: stats.Decision) -> dict:
     chosen = " or ".join(d.choice) or "none"
     row = d.table.loc[d.choice[0]] if d.choice and d.choice[0] in d.table.index else None
     switch = d.switch
-    return {"choice": chosen, "switch from reference": "yes" if switch else "no",
-            "effect of choice": pct(row["effect"]) if switch and row is not None else "—",
-            "verdicts (effect against the reference)": _verdicts(d)}
+    return {
+        "choice": chosen,
+        "switch from reference": "yes" if switch else "no",
+        "effect of choice": pct(row["effect"]) if switch and row is not None else "—",
+        "verdicts (effect against the reference)": _verdicts(d),
+    }
 
 
 def _decision_frame(decs: dict) -> pd.DataFrame:
     rows = []
     for (model, regime), d in decs.items():
-        rows.append({"model": model, "regime": regime, "reference": d.reference,
-                     "datasets": d.n_datasets, **_choice_row(d)})
+        rows.append(
+            {"model": model, "regime": regime, "reference": d.reference, "datasets": d.n_datasets, **_choice_row(d)}
+        )
     return pd.DataFrame(rows)
 
 
@@ -80,13 +84,21 @@ def _change_sentence(model: str, decs: dict, regimes: list) -> str:
     choices = {r: " or ".join(d.choice) or "none" for r, d in per.items()}
     listed = "; ".join(f"{r}: **{c}**" for r, c in choices.items())
     moved = [e for e in _encoders(per) if len({_verdict(d, e) for d in per.values()}) > 1]
-    tail = "" if not moved else " Verdicts that differ between regimes: " + "; ".join(
-        f"{e} " + ", ".join(f"{_verdict(d, e)} ({_effect(d, e)}) under {r}" for r, d in per.items())
-        for e in moved) + "."
+    tail = (
+        ""
+        if not moved
+        else " Verdicts that differ between regimes: "
+        + "; ".join(
+            f"{e} " + ", ".join(f"{_verdict(d, e)} ({_effect(d, e)}) under {r}" for r, d in per.items()) for e in moved
+        )
+        + "."
+    )
     if len(set(choices.values())) == 1:
         return f"**{model}**: the choice is the same under every regime ({listed}).{tail}"
-    return (f"**{model}**: the choice **changes** with tuning ({listed}). A default chosen without "
-            f"tuning does not carry over to a tuned model; cite the regime the team will deploy.{tail}")
+    return (
+        f"**{model}**: the choice **changes** with tuning ({listed}). A default chosen without "
+        f"tuning does not carry over to a tuned model; cite the regime the team will deploy.{tail}"
+    )
 
 
 def _effect(d: stats.Decision, encoder: str) -> str:
@@ -113,13 +125,19 @@ def regime_cost(all_results: pd.DataFrame) -> pd.DataFrame:
     ok["final_s"] = ok[parts].fillna(0.0).sum(axis=1)
     ok["cell_s"] = ok["final_s"] + ok["tune_s"].fillna(0.0)
     g = ok.groupby(["model", "regime"], sort=False)
-    out = g.agg(cells=("cell_id", "size"), tune_s=("tune_s", "median"), final_s=("final_s", "median"),
-                cell_s=("cell_s", "median"), total_s=("cell_s", "sum")).reset_index()
+    out = g.agg(
+        cells=("cell_id", "size"),
+        tune_s=("tune_s", "median"),
+        final_s=("final_s", "median"),
+        cell_s=("cell_s", "median"),
+        total_s=("cell_s", "sum"),
+    ).reset_index()
     out["order"] = out["regime"].map({r: i for i, r in enumerate(REGIMES)})
     out = out.sort_values(["model", "order"], kind="stable").drop(columns="order").reset_index(drop=True)
     base = out[out["regime"] == DEFAULT_REGIME].set_index("model")["cell_s"]
-    out["multiplier"] = [c / base[m] if m in base.index and base[m] > 0 else np.nan
-                         for m, c in zip(out["model"], out["cell_s"])]
+    out["multiplier"] = [
+        c / base[m] if m in base.index and base[m] > 0 else np.nan for m, c in zip(out["model"], out["cell_s"])
+    ]
     return out
 
 
@@ -127,17 +145,26 @@ def _space_text(run) -> str:
     t = run.manifest.tuning
     regimes = _regimes(run.all_results)
     kinds = ("models", "encoders") if "tuned-both" in regimes else ("models",)  # tuned-model keeps encoders fixed
-    spaces = [f"{kind[:-1]} {label}: " + ", ".join(f"{k} {_fmt_dim(v)}" for k, v in search.items())
-              for kind in kinds for label, search in run.manifest.search_spaces(kind).items()]
-    paired = (" The outer folds are those of the untuned cells, so the regimes are paired cell by cell."
-              if DEFAULT_REGIME in regimes else "")
+    spaces = [
+        f"{kind[:-1]} {label}: " + ", ".join(f"{k} {_fmt_dim(v)}" for k, v in search.items())
+        for kind in kinds
+        for label, search in run.manifest.search_spaces(kind).items()
+    ]
+    paired = (
+        " The outer folds are those of the untuned cells, so the regimes are paired cell by cell."
+        if DEFAULT_REGIME in regimes
+        else ""
+    )
     method = {"random": "random search", "halving": "successive halving (a third kept per round)"}.get(
-        t.method, t.method)
-    return (f"Each tuned cell searched {t.budget} candidates by {method}, scored by "
-            f"{t.inner_folds}-fold cross-validation inside the outer training fold; encoder and "
-            "model were refitted on every inner training split, so no target statistic saw the targets "
-            "of its validation rows, and the winner was refitted on the whole outer training fold and "
-            f"scored on the outer test fold.{paired} Search spaces: " + ("; ".join(spaces) or "none recorded") + ".")
+        t.method, t.method
+    )
+    return (
+        f"Each tuned cell searched {t.budget} candidates by {method}, scored by "
+        f"{t.inner_folds}-fold cross-validation inside the outer training fold; encoder and "
+        "model were refitted on every inner training split, so no target statistic saw the targets "
+        "of its validation rows, and the winner was refitted on the whole outer training fold and "
+        f"scored on the outer test fold.{paired} Search spaces: " + ("; ".join(spaces) or "none recorded") + "."
+    )
 
 
 def _fmt_dim(spec) -> str:
@@ -154,25 +181,45 @@ def tuning_section(a, root: Path) -> list:
         return []
     out = [Heading("Does the choice survive tuning?", 2, "tuning"), Para(_space_text(run))]
     if len(regimes) < 2:
-        out.append(Para(f"This run has only the {regimes[0]} regime, so there is nothing to compare the "
-                        "choice with; add \"defaults\" to tuning.regimes to see whether tuning changes it."))
+        out.append(
+            Para(
+                f"This run has only the {regimes[0]} regime, so there is nothing to compare the "
+                'choice with; add "defaults" to tuning.regimes to see whether tuning changes it.'
+            )
+        )
     decs = regime_decisions(run, a)
     frame = _decision_frame(decs)
     if len(frame):
-        out.append(table(frame, root, "tuning_decisions",
-                         f"The decision rule applied to each regime on its own rows ({metric_name(a.metrics[0])}; "
-                         "reference and margin as in the answer)."))
+        out.append(
+            table(
+                frame,
+                root,
+                "tuning_decisions",
+                f"The decision rule applied to each regime on its own rows ({metric_name(a.metrics[0])}; "
+                "reference and margin as in the answer).",
+            )
+        )
         out += [Para(_change_sentence(m, decs, regimes)) for m in dict.fromkeys(k[0] for k in decs)]
-        out += figure(lambda: regime_plot(decs), root, "tuning_effects",
-                      "Each encoder's effect against the reference under each regime, with its "
-                      "one-sided bound; shapes mark the regime.",
-                      "Dot plot of encoder effects per tuning regime.")
+        out += figure(
+            lambda: regime_plot(decs),
+            root,
+            "tuning_effects",
+            "Each encoder's effect against the reference under each regime, with its "
+            "one-sided bound; shapes mark the regime.",
+            "Dot plot of encoder effects per tuning regime.",
+        )
     cost = regime_cost(run.all_results)
     if len(cost):
-        out.append(table(cost, root, "tuning_cost",
-                         "Seconds per cell (median) by regime: tune_s is the search (every candidate on "
-                         "every inner fold), final_s the refit and scoring of the winner, multiplier the "
-                         "cell time against the untuned cell of the same model."))
+        out.append(
+            table(
+                cost,
+                root,
+                "tuning_cost",
+                "Seconds per cell (median) by regime: tune_s is the search (every candidate on "
+                "every inner fold), final_s the refit and scoring of the winner, multiplier the "
+                "cell time against the untuned cell of the same model.",
+            )
+        )
     return out
 
 
@@ -190,10 +237,18 @@ def regime_plot(decs: dict):
         for ax, m in zip(axes, models):
             _regime_panel(ax, m, {r: d for (mm, r), d in decs.items() if mm == m})
         shown = [r for r in REGIMES if any(rr == r for _, rr in decs)]
-        handles = [Line2D([], [], marker=REGIME_MARKERS[r][0], mfc=REGIME_MARKERS[r][1], mec=INK, ls="", ms=6)
-                   for r in shown]
-        fig.legend(handles, shown, loc="outside lower center", ncols=len(shown), frameon=False,
-                   title="tuning regime (line: to the one-sided lower bound)", title_fontsize=8)
+        handles = [
+            Line2D([], [], marker=REGIME_MARKERS[r][0], mfc=REGIME_MARKERS[r][1], mec=INK, ls="", ms=6) for r in shown
+        ]
+        fig.legend(
+            handles,
+            shown,
+            loc="outside lower center",
+            ncols=len(shown),
+            frameon=False,
+            title="tuning regime (line: to the one-sided lower bound)",
+            title_fontsize=8,
+        )
     return fig
 
 

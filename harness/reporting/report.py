@@ -20,6 +20,7 @@ from pathlib import Path
 import pandas as pd
 
 from harness import stats
+from harness._outputs import swap_in_dir
 from harness.reporting import _bib
 from harness.reporting._analysis import Analysis, analyse
 from harness.reporting._answer import answer_section
@@ -34,7 +35,6 @@ from harness.reporting._status import status_section
 from harness.reporting._tuning import tuning_section
 from harness.reporting.tables import metric_name
 from harness.schema import Manifest
-from harness._outputs import swap_in_dir
 from harness.store import describe_set_aside
 
 __all__ = ["Run", "Analysis", "load_run", "analyse", "write_report"]
@@ -50,11 +50,17 @@ def _dataset_rows(run: Run) -> pd.DataFrame:
     rows = []
     for name, d in run.manifest.datasets.items():  # loop over datasets
         cats = ", ".join(f"{c} ({n})" for c, n in d.cardinality.items()) or "none"
-        rows.append({"dataset": name, "source": "private file" if d.private else d.source,
-                     "task": d.task, "rows": _or(d.rows, ""),
-                     "max cardinality": _or(d.max_cardinality, ""),
-                     "categorical columns (levels)": cats,
-                     "numeric columns": len(d.numeric)})
+        rows.append(
+            {
+                "dataset": name,
+                "source": "private file" if d.private else d.source,
+                "task": d.task,
+                "rows": _or(d.rows, ""),
+                "max cardinality": _or(d.max_cardinality, ""),
+                "categorical columns (levels)": cats,
+                "numeric columns": len(d.numeric),
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -66,8 +72,10 @@ def _or(value, missing="?"):
 def _protocol_text(man: Manifest) -> str:
     p = man.protocol
     strat = "stratified by class for classification" if p.stratify else "not stratified"
-    return (f"{p.repeats} × {_or(p.folds)}-fold cross-validation ({strat}; seed "
-            f"{_or(man.seed)}; encoders are fitted on the training folds only)")
+    return (
+        f"{p.repeats} × {_or(p.folds)}-fold cross-validation ({strat}; seed "
+        f"{_or(man.seed)}; encoders are fitted on the training folds only)"
+    )
 
 
 def _grouping_text(man: Manifest) -> str:
@@ -79,18 +87,25 @@ def _grouping_text(man: Manifest) -> str:
     if grouped:
         parts = ", ".join(f"{n} by column '{g}'" for n, g in grouped.items())
         rest = [n for n in ds if n not in grouped]
-        text = (f"Outer folds were grouped for {parts}: every group fell in one fold. For these datasets "
-                "target statistics were cross-fitted on inner folds of whole groups (k-fold, holdout and "
-                "the ordered permutation over groups; leave-one-out became leave-one-group-out), so no "
-                "training row's statistic used a row of its own group. ")
-        text += (f"The other datasets ({', '.join(rest)}) were split by row, their rows treated as independent. "
-                 if rest else "")
+        text = (
+            f"Outer folds were grouped for {parts}: every group fell in one fold. For these datasets "
+            "target statistics were cross-fitted on inner folds of whole groups (k-fold, holdout and "
+            "the ordered permutation over groups; leave-one-out became leave-one-group-out), so no "
+            "training row's statistic used a row of its own group. "
+        )
+        text += (
+            f"The other datasets ({', '.join(rest)}) were split by row, their rows treated as independent. "
+            if rest
+            else ""
+        )
     else:
         text = "No dataset was grouped: rows were split at random and treated as independent. "
     flagged = [f"{n} ({d.duplicate_test_share:.0%})" for n, d in ds.items() if d.clustered]
     if flagged:
-        text += ("Share of test rows with an exact duplicate (features and target) in their training fold, "
-                 f"a sign of clustered rows that inflates scores: {', '.join(flagged)}. ")
+        text += (
+            "Share of test rows with an exact duplicate (features and target) in their training fold, "
+            f"a sign of clustered rows that inflates scores: {', '.join(flagged)}. "
+        )
     return text
 
 
@@ -98,16 +113,21 @@ def _policy_text(man: Manifest) -> str:
     """The scaling and missing-value policies as the run recorded them."""
     text = ""
     if man.scaled_models:
-        text += (f"For the models on scaled inputs ({', '.join(man.scaled_models)}), "
-                 f"{man.scaling_policy}; the other models took the columns unscaled. ")
+        text += (
+            f"For the models on scaled inputs ({', '.join(man.scaled_models)}), "
+            f"{man.scaling_policy}; the other models took the columns unscaled. "
+        )
     rules: dict = {}
     for label, rule in man.missing_values.items():
         rules.setdefault(rule, []).append(label)
     if len(rules) == 1:
         text += f"A missing categorical value was {next(iter(rules))} under every encoder. "
     elif rules:
-        text += ("A missing categorical value was " + "; ".join(
-            f"{rule} under {', '.join(labels)}" for rule, labels in rules.items()) + ". ")
+        text += (
+            "A missing categorical value was "
+            + "; ".join(f"{rule} under {', '.join(labels)}" for rule, labels in rules.items())
+            + ". "
+        )
     return text
 
 
@@ -120,8 +140,10 @@ def _primary_metric_text(results: pd.DataFrame) -> str:
     """The primary-metric sentence, from the scored rows: one metric, or one per task kind."""
     ok = stats.ok_rows(results)
     kind = ok["task"].where(ok["task"] == "regression", "classification")
-    by_kind = {k: " or ".join(metric_name(m) for m in sorted(g.dropna().unique()))
-               for k, g in ok["primary_metric"].groupby(kind, sort=True)}  # at most two kinds
+    by_kind = {
+        k: " or ".join(metric_name(m) for m in sorted(g.dropna().unique()))
+        for k, g in ok["primary_metric"].groupby(kind, sort=True)
+    }  # at most two kinds
     by_kind = {k: v for k, v in by_kind.items() if v}
     if not by_kind:
         return "No cell produced a score, so no primary metric was computed."
@@ -129,8 +151,9 @@ def _primary_metric_text(results: pd.DataFrame) -> str:
     if len(names) == 1:
         text = f"The primary metric was {names.pop()}"
     else:
-        text = ("Each dataset was scored on the primary metric of its task: "
-                + " and ".join(f"{m} for {k}" for k, m in by_kind.items()))
+        text = "Each dataset was scored on the primary metric of its task: " + " and ".join(
+            f"{m} for {k}" for k, m in by_kind.items()
+        )
     if "roc_auc" in set(ok["primary_metric"]) and (ok["task"] == "multiclass").any():
         text += " (ROC AUC: macro one-vs-rest average for multiclass targets)"
     return text + "."
@@ -143,11 +166,15 @@ def _methods_text(a: Analysis) -> str:
         f"{n} ({'private file, ' if d.private else ''}{d.task}, "
         f"{_or(d.rows)} rows, largest categorical "
         f"cardinality {_or(d.max_cardinality)})"
-        for n, d in ds.items())
+        for n, d in ds.items()
+    )
     enc = "; ".join(f"{lab} ({s.get('kind')}: {_params(s, 'kind')})" for lab, s in man.encoders.items())
     mod = "; ".join(f"{lab} ({s.get('family')}: {_params(s, 'family')})" for lab, s in man.models.items())
-    soft = ", ".join(f"{SOFTWARE_NAMES.get(k, k)} {v}" for k, v in man.packages.items() if v and k in
-                     ("python", "harness", "numpy", "pandas", "scipy", "scikit-learn", "lightgbm"))
+    soft = ", ".join(
+        f"{SOFTWARE_NAMES.get(k, k)} {v}"
+        for k, v in man.packages.items()
+        if v and k in ("python", "harness", "numpy", "pandas", "scipy", "scikit-learn", "lightgbm")
+    )
     low, high = a.medium_levels
     return (
         f"We compared {len(man.encoders)} categorical encodings ({enc}) with "
@@ -173,7 +200,8 @@ def _methods_text(a: Analysis) -> str:
         f"Software: {soft}. Run "
         f"{_or(man.started)} to {_or(man.finished)} on "
         f"{_or(man.cpus)} CPU(s); config hash "
-        f"{_or(man.config_hash)}.")
+        f"{_or(man.config_hash)}."
+    )
 
 
 def _dropped_text(a: Analysis) -> str:
@@ -184,17 +212,22 @@ def _dropped_text(a: Analysis) -> str:
             continue
         m = c.matrix
         if m.dropped_datasets:
-            parts.append(f"for {model}, dataset(s) {', '.join(map(str, m.dropped_datasets))} "
-                         "(an encoder without a score there)")
+            parts.append(
+                f"for {model}, dataset(s) {', '.join(map(str, m.dropped_datasets))} (an encoder without a score there)"
+            )
         if m.dropped_encoders:
-            parts.append(f"for {model}, encoder(s) {', '.join(map(str, m.dropped_encoders))} "
-                         "(no score on some dataset)")
+            parts.append(
+                f"for {model}, encoder(s) {', '.join(map(str, m.dropped_encoders))} (no score on some dataset)"
+            )
     if not parts:
         return "No cell was missing from the rank analysis."
-    return ("Ranks need every encoder on every dataset, so the rank analysis left out "
-            + "; ".join(parts) + "; the reference and the choice are never left out, and "
-            "the decision pairs each candidate with the reference on the datasets where both "
-            "have a score.")
+    return (
+        "Ranks need every encoder on every dataset, so the rank analysis left out "
+        + "; ".join(parts)
+        + "; the reference and the choice are never left out, and "
+        "the decision pairs each candidate with the reference on the datasets where both "
+        "have a score."
+    )
 
 
 def _decision_methods_text(a: Analysis) -> str:
@@ -212,7 +245,8 @@ def _decision_methods_text(a: Analysis) -> str:
         f"fold-paired effects ({_bib.cite('corani2015')}). A switch needed a median cost "
         f"saving of at least {100 * r.min_saving:g} % and {r.min_saving_s:g} s per fold. The "
         f"pooled analysis per model is confirmatory; the per-metric, per-regime, robustness "
-        f"and leakage tables are exploratory and uncorrected for their number.")
+        f"and leakage tables are exploratory and uncorrected for their number."
+    )
 
 
 def methods_section(a: Analysis) -> list:
@@ -220,8 +254,7 @@ def methods_section(a: Analysis) -> list:
     out = [Heading("Methods (ready to paste)", 2, "methods"), Para(_methods_text(a))]
     rows = _dataset_rows(a.run)
     if len(rows):
-        out.append(Table(rows, "Datasets (private datasets: alias, counts and column "
-                               "names only)."))
+        out.append(Table(rows, "Datasets (private datasets: alias, counts and column names only)."))
     notes = [f"{n}: {note}" for n, d in a.run.manifest.datasets.items() for note in d.notes]
     if notes:
         out.append(Bullets(tuple(notes)))
@@ -233,13 +266,19 @@ def _header(a: Analysis) -> list:
     man = a.run.manifest
     title = f"Encoding benchmark report: {man.experiment or a.run.directory.name}"
     desc = man.description
-    line = (f"{len(a.run.results)} cells; {a.run.results['dataset'].nunique()} datasets, "
-            f"{a.run.results['encoder'].nunique()} encoders, "
-            f"{a.run.results['model'].nunique()} models; config hash "
-            f"{_or(man.config_hash)}.")
+    line = (
+        f"{len(a.run.results)} cells; {a.run.results['dataset'].nunique()} datasets, "
+        f"{a.run.results['encoder'].nunique()} encoders, "
+        f"{a.run.results['model'].nunique()} models; config hash "
+        f"{_or(man.config_hash)}."
+    )
     aside = describe_set_aside(a.run.set_aside)
-    return [Heading(title, 1), *([Para(desc)] if desc else []), Para(line + _regime_text(a)),
-            *([Note(aside)] if aside else [])]
+    return [
+        Heading(title, 1),
+        *([Para(desc)] if desc else []),
+        Para(line + _regime_text(a)),
+        *([Note(aside)] if aside else []),
+    ]
 
 
 def _regime_text(a: Analysis) -> str:
@@ -248,13 +287,21 @@ def _regime_text(a: Analysis) -> str:
     if rows is None or "regime" not in rows:
         return ""
     if rows["regime"].nunique() < 2:
-        return "" if a.run.regime == "defaults" else (
-            f" Every cell ran under the **{a.run.regime}** regime: hyperparameters were searched inside each "
-            "outer training fold (see 'Does the choice survive tuning?').")
-    others = ", ".join(f"{r} ({n} cells)" for r, n in rows["regime"].value_counts(sort=False).items()
-                       if r != a.run.regime)
-    return (f" These are the cells of the **{a.run.regime}** regime, which every section reads except "
-            f"'Does the choice survive tuning?', which also reads {others}.")
+        return (
+            ""
+            if a.run.regime == "defaults"
+            else (
+                f" Every cell ran under the **{a.run.regime}** regime: hyperparameters were searched inside each "
+                "outer training fold (see 'Does the choice survive tuning?')."
+            )
+        )
+    others = ", ".join(
+        f"{r} ({n} cells)" for r, n in rows["regime"].value_counts(sort=False).items() if r != a.run.regime
+    )
+    return (
+        f" These are the cells of the **{a.run.regime}** regime, which every section reads except "
+        f"'Does the choice survive tuning?', which also reads {others}."
+    )
 
 
 def _numbered(blocks: list) -> list:

@@ -30,9 +30,16 @@ __all__ = [
     "write_table",
 ]
 
-METRIC_NAMES = {"roc_auc": "ROC AUC", "log_loss": "log loss", "accuracy": "accuracy",
-                "balanced_accuracy": "balanced accuracy", "rmse": "RMSE", "mae": "MAE",
-                "r2": "R²", stats.POOLED: "each dataset's own metric"}
+METRIC_NAMES = {
+    "roc_auc": "ROC AUC",
+    "log_loss": "log loss",
+    "accuracy": "accuracy",
+    "balanced_accuracy": "balanced accuracy",
+    "rmse": "RMSE",
+    "mae": "MAE",
+    "r2": "R²",
+    stats.POOLED: "each dataset's own metric",
+}
 
 
 def metric_name(metric: str) -> str:
@@ -50,8 +57,9 @@ def fmt_interval(mean, low, high, digits: int = 3) -> str:
 
 
 # ------------------------------------------------------------------------ main results
-def dataset_means_table(results: pd.DataFrame, metric: str, *, alpha: float = 0.05,
-                        model_column: str = "model") -> pd.DataFrame:
+def dataset_means_table(
+    results: pd.DataFrame, metric: str, *, alpha: float = 0.05, model_column: str = "model"
+) -> pd.DataFrame:
     """Mean of ``metric`` per dataset, encoder and model with its corrected-t interval.
 
     Returns
@@ -70,30 +78,30 @@ def dataset_means_table(results: pd.DataFrame, metric: str, *, alpha: float = 0.
         own = results.groupby("dataset")["primary_metric"].first()
         s["metric"] = s["dataset"].map(own)
     else:
-        s = stats.summarize_cells(results, metrics=[metric], alpha=alpha,
-                                  model_column=model_column)
+        s = stats.summarize_cells(results, metrics=[metric], alpha=alpha, model_column=model_column)
     s = s.rename(columns={model_column: "model"})
     return s[["dataset", "model", "encoder", "metric", "mean", "ci_low", "ci_high", "n"]]
 
 
-def means_wide(long: pd.DataFrame, model: str, *, digits: int = 3,
-               encoder_order=None, excluded=()) -> pd.DataFrame:
+def means_wide(long: pd.DataFrame, model: str, *, digits: int = 3, encoder_order=None, excluded=()) -> pd.DataFrame:
     """One model's per-dataset means as text, datasets down and encoders across.
 
     Settings in ``excluded`` (leaky) are kept, their columns marked ``(excluded)``, so
     that a reader sees what leaking costs on the test folds.
     """
     part = long.loc[long["model"] == model]
-    text = [fmt_interval(m, lo, hi, digits) for m, lo, hi in
-            zip(part["mean"], part["ci_low"], part["ci_high"])]  # loop over summary cells
+    text = [
+        fmt_interval(m, lo, hi, digits) for m, lo, hi in zip(part["mean"], part["ci_low"], part["ci_high"])
+    ]  # loop over summary cells
     wide = part.assign(text=text).pivot(index="dataset", columns="encoder", values="text")
     if encoder_order is not None:
         order = [e for e in encoder_order if e in wide.columns]
         wide = wide.reindex(columns=order + [e for e in wide.columns if e not in order])
     if "metric" in part and part["metric"].nunique() > 1:
-        wide.index = [f"{d} ({metric_name(m)})" for d, m in
-                      zip(wide.index, part.groupby("dataset")["metric"].first()
-                          .reindex(wide.index))]
+        wide.index = [
+            f"{d} ({metric_name(m)})"
+            for d, m in zip(wide.index, part.groupby("dataset")["metric"].first().reindex(wide.index))
+        ]
         wide.index.name = "dataset"
     wide = wide.rename(columns={e: f"{e} (excluded)" for e in excluded})
     return wide.fillna("—").reset_index()
@@ -121,13 +129,22 @@ def rank_table(comparisons, decisions=None) -> pd.DataFrame:
         r["reference"] = r.index == (d.reference if d is not None else None)
         r["chosen"] = r.index.isin(list(d.choice) if d is not None else [])
         frames.append(r.reset_index().assign(model=m.model, metric=m.metric))
-    cols = ["model", "metric", "encoder", "avg_rank", "ci_low", "ci_high", "median_rank",
-            "n_datasets", "reference", "chosen"]
+    cols = [
+        "model",
+        "metric",
+        "encoder",
+        "avg_rank",
+        "ci_low",
+        "ci_high",
+        "median_rank",
+        "n_datasets",
+        "reference",
+        "chosen",
+    ]
     return pd.concat(frames, ignore_index=True)[cols] if frames else pd.DataFrame(columns=cols)
 
 
-def cost_summary(results: pd.DataFrame, *, reference: str | None = None,
-                 model_column: str = "model") -> pd.DataFrame:
+def cost_summary(results: pd.DataFrame, *, reference: str | None = None, model_column: str = "model") -> pd.DataFrame:
     """Median cost per encoder and model (``stats.cost_table``), sorted by total seconds."""
     c = stats.cost_table(results, reference=reference, model_column=model_column)
     return c.sort_values([model_column, "total_s"], kind="stable").reset_index(drop=True)
@@ -173,16 +190,29 @@ def status_table(results: pd.DataFrame, private=()) -> pd.DataFrame:
         return pd.DataFrame(columns=cols)
     reason = scrub_error(bad["error"], bad["status"], bad["dataset"].isin(list(private)))
     g = bad.assign(reason=reason).groupby(["status", "model", "encoder", "reason"], sort=True)
-    out = g.agg(cells=("dataset", "size"),
-                datasets=("dataset", lambda s: ", ".join(sorted(map(str, s.unique())))))
+    out = g.agg(cells=("dataset", "size"), datasets=("dataset", lambda s: ", ".join(sorted(map(str, s.unique())))))
     return out.reset_index().sort_values("cells", ascending=False, kind="stable")[cols]
 
 
 # ------------------------------------------------------------------------------ export
-_TEX = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
-        "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
-        "^": r"\textasciicircum{}", "≠": r"$\neq$", "—": "---", "²": r"$^2$",
-        "×": r"$\times$", "α": r"$\alpha$", "−": "-"}
+_TEX = {
+    "\\": r"\textbackslash{}",
+    "&": r"\&",
+    "%": r"\%",
+    "$": r"\$",
+    "#": r"\#",
+    "_": r"\_",
+    "{": r"\{",
+    "}": r"\}",
+    "~": r"\textasciitilde{}",
+    "^": r"\textasciicircum{}",
+    "≠": r"$\neq$",
+    "—": "---",
+    "²": r"$^2$",
+    "×": r"$\times$",
+    "α": r"$\alpha$",
+    "−": "-",
+}
 _TEX_RE = re.compile("|".join(re.escape(k) for k in _TEX))
 
 
@@ -196,8 +226,7 @@ def _fmt(value, digits: int) -> str:
     if isinstance(value, (bool, np.bool_)):
         return "yes" if value else "no"
     if isinstance(value, (float, np.floating)):
-        return "" if np.isnan(value) else f"{value:.{digits}g}" if abs(value) >= 1e4 \
-            else f"{value:.{digits}f}"
+        return "" if np.isnan(value) else f"{value:.{digits}g}" if abs(value) >= 1e4 else f"{value:.{digits}f}"
     return str(value)
 
 
@@ -217,8 +246,9 @@ def display(frame: pd.DataFrame, digits: int = 3) -> pd.DataFrame:
 def to_latex(frame: pd.DataFrame, caption: str = "", label: str = "", digits: int = 3) -> str:
     """A ``booktabs`` LaTeX table (needs ``\\usepackage{booktabs}``); text columns left,
     numeric columns right-aligned."""
-    numeric = [pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c])
-               for c in frame.columns]
+    numeric = [
+        pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c]) for c in frame.columns
+    ]
     spec = "".join("r" if n else "l" for n in numeric)
     text = display(frame, digits)
     lines = [r"\begin{table}[htbp]", r"\centering"]
@@ -226,15 +256,26 @@ def to_latex(frame: pd.DataFrame, caption: str = "", label: str = "", digits: in
         lines.append(rf"\caption{{{_tex(caption)}}}")
     if label:
         lines.append(rf"\label{{{label}}}")
-    lines += [rf"\begin{{tabular}}{{{spec}}}", r"\toprule",
-              " & ".join(_tex(c) for c in frame.columns) + r" \\", r"\midrule"]
+    lines += [
+        rf"\begin{{tabular}}{{{spec}}}",
+        r"\toprule",
+        " & ".join(_tex(c) for c in frame.columns) + r" \\",
+        r"\midrule",
+    ]
     lines += [" & ".join(_tex(v) for v in row) + r" \\" for row in text.to_numpy().tolist()]
     lines += [r"\bottomrule", r"\end{tabular}", r"\end{table}"]
     return "\n".join(lines) + "\n"
 
 
-def write_table(frame: pd.DataFrame, directory, stem: str, *, caption: str = "",
-                tex_frame: pd.DataFrame | None = None, digits: int = 3) -> tuple[Path, Path]:
+def write_table(
+    frame: pd.DataFrame,
+    directory,
+    stem: str,
+    *,
+    caption: str = "",
+    tex_frame: pd.DataFrame | None = None,
+    digits: int = 3,
+) -> tuple[Path, Path]:
     """Write ``stem.csv`` (``frame`` as is) and ``stem.tex`` (``tex_frame`` or ``frame``).
 
     Returns

@@ -76,9 +76,7 @@ def orientation(metric: str) -> float:
         If ``metric`` is not in ``harness.metrics.GREATER_IS_BETTER``.
     """
     if metric not in GREATER_IS_BETTER:
-        raise ConfigError(
-            f"unknown metric '{metric}'; allowed: {', '.join(sorted(GREATER_IS_BETTER))}."
-        )
+        raise ConfigError(f"unknown metric '{metric}'; allowed: {', '.join(sorted(GREATER_IS_BETTER))}.")
     return 1.0 if GREATER_IS_BETTER[metric] else -1.0
 
 
@@ -95,14 +93,12 @@ def _metric_columns(df: pd.DataFrame, metrics) -> list[str]:
     return list(metrics)
 
 
-
 def _row_test_train_ratio(df: pd.DataFrame) -> pd.Series:
     """Each row's n_test/n_train, or 1/(k-1) from its dataset's fold count."""
     if {"n_test", "n_train"} <= set(df.columns):
         return df["n_test"].astype(float) / df["n_train"].astype(float)
     k = df.groupby("dataset")["fold"].transform("nunique").astype(float)
     return 1.0 / (k - 1.0).where(k > 1)
-
 
 
 def metric_values(df: pd.DataFrame, metric: str) -> tuple[pd.Series, pd.Series]:

@@ -40,8 +40,14 @@ def expanded_alpha(alpha: float, n: int) -> float:
     return float(2 * sps.norm.sf(np.sqrt(n / (n - 1)) * sps.t.ppf(1 - alpha / 2, n - 1)))
 
 
-def average_ranks(matrix: ScoreMatrix, *, n_boot: int = 2000, alpha: float = 0.05,
-                  seed: int = 0, min_datasets: int = RANK_CI_MIN_DATASETS) -> pd.DataFrame:
+def average_ranks(
+    matrix: ScoreMatrix,
+    *,
+    n_boot: int = 2000,
+    alpha: float = 0.05,
+    seed: int = 0,
+    min_datasets: int = RANK_CI_MIN_DATASETS,
+) -> pd.DataFrame:
     """Average rank of each encoder with an expanded percentile bootstrap interval.
 
     Datasets (rows of the rank matrix) are resampled with replacement; a dataset's ranks
@@ -77,8 +83,9 @@ def average_ranks(matrix: ScoreMatrix, *, n_boot: int = 2000, alpha: float = 0.0
     return out.sort_values("avg_rank", kind="stable")
 
 
-def friedman_test(ranks: pd.DataFrame, *, tie_correction: bool = False,
-                  permutation: bool = True, seed: int = 0) -> FriedmanResult:
+def friedman_test(
+    ranks: pd.DataFrame, *, tie_correction: bool = False, permutation: bool = True, seed: int = 0
+) -> FriedmanResult:
     """Friedman / Iman-Davenport test on a datasets x encoders rank matrix.
 
     Parameters
@@ -133,8 +140,9 @@ def control_z_test(avg_ranks: pd.Series, n_datasets: int, control: str) -> pd.Da
     Demšar (2006), JMLR 7, Sec. 3.2.2 (comparison with a control, Holm's procedure).
     """
     if control not in avg_ranks.index:
-        raise ConfigError(f"control encoder '{control}' is not among the encoders; "
-                          f"allowed: {', '.join(map(str, avg_ranks.index))}.")
+        raise ConfigError(
+            f"control encoder '{control}' is not among the encoders; allowed: {', '.join(map(str, avg_ranks.index))}."
+        )
     k = len(avg_ranks)
     se = np.sqrt(k * (k + 1) / (6 * n_datasets)) if n_datasets > 0 else np.nan
     others = avg_ranks.drop(control).astype(float)
@@ -174,8 +182,7 @@ def wilcoxon_vs_control(matrix: ScoreMatrix, control: str) -> pd.DataFrame:
                 continue
             res = sps.wilcoxon(d, zero_method="zsplit")
             stat[i], p[i] = res.statistic, res.pvalue
-    out = pd.DataFrame({"statistic": stat, "p_value": p, "p_holm": holm(p)},
-                       index=pd.Index(others, name="encoder"))
+    out = pd.DataFrame({"statistic": stat, "p_value": p, "p_holm": holm(p)}, index=pd.Index(others, name="encoder"))
     return out
 
 
@@ -193,8 +200,9 @@ def win_tie_loss(matrix: ScoreMatrix, control: str, *, tol: float = 0.0) -> pd.D
     """
     o = matrix.oriented
     d = o.drop(columns=[control]).sub(o[control], axis=0)
-    out = pd.DataFrame({"wins": (d > tol).sum(), "ties": (d.abs() <= tol).sum(),
-                        "losses": (d < -tol).sum()}).astype(int)
+    out = pd.DataFrame({"wins": (d > tol).sum(), "ties": (d.abs() <= tol).sum(), "losses": (d < -tol).sum()}).astype(
+        int
+    )
     out.index.name = "encoder"
     return out
 
@@ -220,35 +228,50 @@ class Comparison:
 
 def _bayes_columns(matrix: ScoreMatrix, best: str, rope: float, seed: int) -> pd.DataFrame:
     o = matrix.oriented
-    rows = {enc: bayesian_signed_rank((o[enc] - o[best]).to_numpy(), rope, seed=seed)
-            for enc in o.columns if enc != best}  # loop over encoders
-    return pd.DataFrame({"p_left": [r.p_left for r in rows.values()],
-                         "p_rope": [r.p_rope for r in rows.values()],
-                         "p_right": [r.p_right for r in rows.values()]},
-                        index=pd.Index(list(rows), name="encoder"))
+    rows = {
+        enc: bayesian_signed_rank((o[enc] - o[best]).to_numpy(), rope, seed=seed) for enc in o.columns if enc != best
+    }  # loop over encoders
+    return pd.DataFrame(
+        {
+            "p_left": [r.p_left for r in rows.values()],
+            "p_rope": [r.p_rope for r in rows.values()],
+            "p_right": [r.p_right for r in rows.values()],
+        },
+        index=pd.Index(list(rows), name="encoder"),
+    )
 
 
 def _matrix_caveats(matrix: ScoreMatrix, min_datasets: int) -> list[str]:
     notes = []
     n, k = matrix.scores.shape
     if n < 2 or k < 2:
-        notes.append(f"{n} complete dataset(s) and {k} encoder(s): tests need at least 2 "
-                     "of each, statistics are NaN.")
+        notes.append(f"{n} complete dataset(s) and {k} encoder(s): tests need at least 2 of each, statistics are NaN.")
     elif n < min_datasets:
-        notes.append(f"only {n} datasets (< {min_datasets}): the rank tests have little "
-                     "power; 'not significantly different' is weak evidence.")
+        notes.append(
+            f"only {n} datasets (< {min_datasets}): the rank tests have little "
+            "power; 'not significantly different' is weak evidence."
+        )
     if matrix.dropped_datasets:
-        notes.append(f"{len(matrix.dropped_datasets)} dataset(s) dropped for missing "
-                     f"cells: {', '.join(map(str, matrix.dropped_datasets))}.")
+        notes.append(
+            f"{len(matrix.dropped_datasets)} dataset(s) dropped for missing "
+            f"cells: {', '.join(map(str, matrix.dropped_datasets))}."
+        )
     if matrix.dropped_encoders:
-        notes.append(f"encoder(s) dropped for missing cells: "
-                     f"{', '.join(map(str, matrix.dropped_encoders))}.")
+        notes.append(f"encoder(s) dropped for missing cells: {', '.join(map(str, matrix.dropped_encoders))}.")
     return notes
 
 
-def compare_encoders(matrix: ScoreMatrix, *, alpha: float = 0.05, control=None,
-                     tie_tol: float = 0.0, rope: float | None = None, n_boot: int = 2000,
-                     seed: int = 0, min_datasets: int = 5) -> Comparison:
+def compare_encoders(
+    matrix: ScoreMatrix,
+    *,
+    alpha: float = 0.05,
+    control=None,
+    tie_tol: float = 0.0,
+    rope: float | None = None,
+    n_boot: int = 2000,
+    seed: int = 0,
+    min_datasets: int = 5,
+) -> Comparison:
     """Average ranks, Friedman/Iman-Davenport, Nemenyi CD and pairwise tests vs the best.
 
     Parameters
@@ -282,22 +305,30 @@ def compare_encoders(matrix: ScoreMatrix, *, alpha: float = 0.05, control=None,
     cd = critical_difference(k, n, alpha) if n >= 2 else np.nan
     best = control if control is not None else (ranks.index[0] if k else None)
     if k < 1 or best is None:
-        return Comparison(matrix, ranks, fried, cd, None, pd.DataFrame(),
-                          tuple(_matrix_caveats(matrix, min_datasets)))
+        return Comparison(matrix, ranks, fried, cd, None, pd.DataFrame(), tuple(_matrix_caveats(matrix, min_datasets)))
+    pair = _pairs_vs_control(matrix, ranks, best, cd, tie_tol=tie_tol, rope=rope, seed=seed)
+    notes = _matrix_caveats(matrix, min_datasets)
+    if n >= 2 and k >= 2 and not fried.p < alpha:
+        notes.append(
+            f"Friedman/Iman-Davenport p = {fried.p:.3g} >= {alpha}: no evidence that the encoders differ at all."
+        )
+    return Comparison(matrix, ranks, fried, cd, best, pair, tuple(notes))
+
+
+def _pairs_vs_control(matrix, ranks, best, cd, *, tie_tol, rope, seed) -> pd.DataFrame:
+    """One row per encoder against ``best``: z and Wilcoxon (Holm), rank gap, win/tie/loss, Bayes."""
+    n = matrix.scores.shape[0]
     z = control_z_test(ranks["avg_rank"], n, best)
-    w = wilcoxon_vs_control(matrix, best).rename(columns={
-        "statistic": "wilcoxon_stat", "p_value": "wilcoxon_p", "p_holm": "wilcoxon_p_holm"})
+    w = wilcoxon_vs_control(matrix, best).rename(
+        columns={"statistic": "wilcoxon_stat", "p_value": "wilcoxon_p", "p_holm": "wilcoxon_p_holm"}
+    )
     pair = z.rename(columns={"p_value": "z_p", "p_holm": "z_p_holm"}).join(w)
     pair["rank_diff"] = pair["avg_rank"] - float(ranks.loc[best, "avg_rank"])
     pair["beyond_cd"] = pair["rank_diff"].abs() > cd
     pair = pair.join(win_tie_loss(matrix, best, tol=tie_tol))
     if rope is not None:
         pair = pair.join(_bayes_columns(matrix, best, rope, seed))
-    notes = _matrix_caveats(matrix, min_datasets)
-    if n >= 2 and k >= 2 and not fried.p < alpha:
-        notes.append(f"Friedman/Iman-Davenport p = {fried.p:.3g} >= {alpha}: no "
-                     "evidence that the encoders differ at all.")
-    return Comparison(matrix, ranks, fried, cd, best, pair, tuple(notes))
+    return pair
 
 
 # -------------------------------------------------------------------------- aggregations
@@ -324,12 +355,15 @@ def aggregate_scores(matrix: ScoreMatrix, *, tie_tol: float = 0.0) -> pd.DataFra
     best, worst = o.max(axis=1), o.min(axis=1)
     span = (best - worst).where(best > worst)
     norm = o.sub(worst, axis=0).div(span, axis=0).fillna(1.0)
-    out = pd.DataFrame({
-        "mean_rank": matrix.ranks.mean(),
-        "median_rank": matrix.ranks.median(),
-        "mean_normalised": norm.mean(),
-        "win_rate": o.ge(best - tie_tol, axis=0).mean() if len(o) else np.nan,
-    }, index=pd.Index(matrix.encoders, name="encoder"))
+    out = pd.DataFrame(
+        {
+            "mean_rank": matrix.ranks.mean(),
+            "median_rank": matrix.ranks.median(),
+            "mean_normalised": norm.mean(),
+            "win_rate": o.ge(best - tie_tol, axis=0).mean() if len(o) else np.nan,
+        },
+        index=pd.Index(matrix.encoders, name="encoder"),
+    )
     out["n_datasets"] = matrix.n_datasets
     return out
 
@@ -349,4 +383,3 @@ def top_encoders(table: pd.DataFrame, aggregation: str) -> tuple:
         return ()
     target = v.min() if smaller else v.max()
     return tuple(v.index[np.isclose(v.to_numpy(), target, rtol=0, atol=1e-12)])
-

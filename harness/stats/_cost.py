@@ -23,8 +23,7 @@ def _column(df: pd.DataFrame, name: str) -> pd.Series:
     return df[name].astype(float) if name in df.columns else pd.Series(np.nan, df.index)
 
 
-def cost_table(results: pd.DataFrame, *, reference: str | None = None,
-               model_column: str = "model") -> pd.DataFrame:
+def cost_table(results: pd.DataFrame, *, reference: str | None = None, model_column: str = "model") -> pd.DataFrame:
     """Median cost per encoder and model, and each cost relative to a reference encoder.
 
     Each part of :data:`COST_PARTS` is the median over all ok rows (folds, repeats,
@@ -49,23 +48,29 @@ def cost_table(results: pd.DataFrame, *, reference: str | None = None,
     """
     df = ok_rows(results)
     parts = {name: sum(_column(df, c) for c in cols) for name, cols in COST_PARTS.items()}
-    work = pd.DataFrame({"encoder": df["encoder"], model_column: df[model_column], **parts,
-                         "n_features_out": _column(df, "n_features_out"),
-                         "encoded_mb": _column(df, "encoded_mb")})
+    work = pd.DataFrame(
+        {
+            "encoder": df["encoder"],
+            model_column: df[model_column],
+            **parts,
+            "n_features_out": _column(df, "n_features_out"),
+            "encoded_mb": _column(df, "encoded_mb"),
+        }
+    )
     g = work.groupby(["encoder", model_column])
     out = g[[*parts, "encoded_mb"]].median()
     out.insert(len(parts), "total_s", out[list(parts)].sum(axis=1, min_count=1))
-    out.insert(len(parts) + 1, "n_features_out",
-               g["n_features_out"].quantile(0.5, interpolation="lower"))
+    out.insert(len(parts) + 1, "n_features_out", g["n_features_out"].quantile(0.5, interpolation="lower"))
     out["n_cells"] = g.size()
     if reference is not None:
         if reference not in out.index.get_level_values("encoder"):
-            raise ConfigError(f"reference encoder '{reference}' is not in the results; "
-                              f"allowed: {', '.join(sorted(map(str, df['encoder'].unique())))}.")
+            raise ConfigError(
+                f"reference encoder '{reference}' is not in the results; "
+                f"allowed: {', '.join(sorted(map(str, df['encoder'].unique())))}."
+            )
         ref = out.xs(reference, level="encoder")
         measures = [*parts, "total_s", "n_features_out", "encoded_mb"]
         rel = out[measures].div(ref[measures], level=model_column)
         out = out.join(rel.add_suffix("_rel"))
     out["n_features_out"] = out["n_features_out"].astype("Int64")  # a count (NA: not recorded)
     return out.reset_index()
-

@@ -40,10 +40,32 @@ from harness.stats._tests import (
 __all__ = ["Decision", "DECISION_COLUMNS", "decide", "decision_table"]
 
 #: the fixed columns of ``report/tables/decision.csv`` (scripts outside the package read them)
-DECISION_COLUMNS = ["model", "encoder", "reference", "verdict", "chosen", "n_datasets",
-                    "effect", "lower", "upper", "p_noninferior", "prob_worse", "cost_ratio"]
-_EXTRA = ["eligible", "family", "method", "n_folds", "p_superior", "bound_level", "saving_s",
-          "n_features", "needed", "needed_unit"]
+DECISION_COLUMNS = [
+    "model",
+    "encoder",
+    "reference",
+    "verdict",
+    "chosen",
+    "n_datasets",
+    "effect",
+    "lower",
+    "upper",
+    "p_noninferior",
+    "prob_worse",
+    "cost_ratio",
+]
+_EXTRA = [
+    "eligible",
+    "family",
+    "method",
+    "n_folds",
+    "p_superior",
+    "bound_level",
+    "saving_s",
+    "n_features",
+    "needed",
+    "needed_unit",
+]
 
 
 @dataclass(frozen=True)
@@ -99,7 +121,7 @@ class Decision:
         m = self.family_size
         if self.method != "datasets":
             return m, 0.0
-        return m, float(m * 2.0 ** -self.n_datasets)
+        return m, float(m * 2.0**-self.n_datasets)
 
     @property
     def reachable(self) -> bool:
@@ -119,22 +141,36 @@ def _cells(results: pd.DataFrame, model: str, metric: str) -> pd.DataFrame:
     df = df.loc[df["model"] == model]
     values, gib = metric_values(df, metric)
     # a tuned cell's search is part of what the encoding costs to use (0 untuned)
-    cost = sum(df[c].astype(float) if c in df else 0.0
-               for c in ("encoder_fit_s", "encoder_transform_s", "model_fit_s"))
+    cost = sum(df[c].astype(float) if c in df else 0.0 for c in ("encoder_fit_s", "encoder_transform_s", "model_fit_s"))
     if "tune_s" in df:
         cost = cost + df["tune_s"].astype(float).fillna(0.0)
     feats = df["n_features_out"].astype(float) if "n_features_out" in df else np.nan
-    out = pd.DataFrame({"dataset": df["dataset"], "encoder": df["encoder"],
-                        "repeat": df["repeat"], "fold": df["fold"], "value": values,
-                        "gib": gib, "cost": cost, "features": feats,
-                        "ratio": _row_test_train_ratio(df)})
+    out = pd.DataFrame(
+        {
+            "dataset": df["dataset"],
+            "encoder": df["encoder"],
+            "repeat": df["repeat"],
+            "fold": df["fold"],
+            "value": values,
+            "gib": gib,
+            "cost": cost,
+            "features": feats,
+            "ratio": _row_test_train_ratio(df),
+        }
+    )
     return out.dropna(subset=["value"])
 
 
 def _per_dataset(cells: pd.DataFrame) -> pd.DataFrame:
     g = cells.groupby(["dataset", "encoder"])
-    return pd.DataFrame({"value": g["value"].mean(), "gib": g["gib"].first(),
-                         "cost": g["cost"].median(), "features": g["features"].median()})
+    return pd.DataFrame(
+        {
+            "value": g["value"].mean(),
+            "gib": g["gib"].first(),
+            "cost": g["cost"].median(),
+            "features": g["features"].median(),
+        }
+    )
 
 
 def _pick_reference(results, model, metric, eligible, rule) -> tuple[str | None, bool, list]:
@@ -142,8 +178,10 @@ def _pick_reference(results, model, metric, eligible, rule) -> tuple[str | None,
         return rule.reference, False, []
     notes = []
     if rule.reference is not None:
-        notes.append(f"the configured reference '{rule.reference}' has no score for this "
-                     "model (or is not eligible); the best average rank is used instead")
+        notes.append(
+            f"the configured reference '{rule.reference}' has no score for this "
+            "model (or is not eligible); the best average rank is used instead"
+        )
     pooled = results if POOLED in results else pool_task_score(results)
     pooled = pooled.loc[pooled["encoder"].isin(eligible)]
     m = score_matrix(pooled, model, metric if metric in pooled else POOLED)
@@ -156,9 +194,10 @@ def _pick_reference(results, model, metric, eligible, rule) -> tuple[str | None,
         cost = _per_dataset(_cells(results, model, metric)).groupby("encoder")["cost"].median()
         cheap = cost.reindex(best)
         best = cheap.index[np.isclose(cheap, cheap.min(), rtol=0, atol=0)]
-        notes.append(f"the best average rank is tied between {tied}; the cheaper is the "
-                     "reference" + ("" if len(best) == 1 else
-                                    "; they also tie on cost, so the first in label order is used"))
+        notes.append(
+            f"the best average rank is tied between {tied}; the cheaper is the "
+            "reference" + ("" if len(best) == 1 else "; they also tie on cost, so the first in label order is used")
+        )
         best = sorted(map(str, best))[:1]
     return str(best[0]), True, notes
 
@@ -169,46 +208,55 @@ def _over_datasets(d: np.ndarray, rule: DecisionRule, m: int) -> dict:
     # implies the Holm-adjusted test rejects, so a bound never contradicts a verdict
     hl = hodges_lehmann(d, rule.alpha / m)
     bayes = bayesian_signed_rank(d, rule.margin, prior_strength=rule.prior_strength)
-    return {"effect": hl.estimate, "lower": hl.lower, "upper": hl.upper,
-            "bound_level": rule.alpha / m,
-            "p_ni": signed_rank_greater(d + rule.margin)[1],
-            "p_sup": signed_rank_greater(d)[1],
-            "p_eq": signed_rank_less(d - rule.margin)[1],
-            "p_inf": signed_rank_less(d + rule.margin)[1],
-            "prob_worse": bayes.p_left,
-            # Holm's first step tests at alpha / m: the sample size is planned at that level
-            "needed": datasets_needed(d, rule.margin, rule.alpha / m, rule.power),
-            "needed_unit": "datasets"}
+    return {
+        "effect": hl.estimate,
+        "lower": hl.lower,
+        "upper": hl.upper,
+        "bound_level": rule.alpha / m,
+        "p_ni": signed_rank_greater(d + rule.margin)[1],
+        "p_sup": signed_rank_greater(d)[1],
+        "p_eq": signed_rank_less(d - rule.margin)[1],
+        "p_inf": signed_rank_less(d + rule.margin)[1],
+        "prob_worse": bayes.p_left,
+        # Holm's first step tests at alpha / m: the sample size is planned at that level
+        "needed": datasets_needed(d, rule.margin, rule.alpha / m, rule.power),
+        "needed_unit": "datasets",
+    }
 
 
-def _over_folds(d: np.ndarray, ratio: float, n_folds: int, rule: DecisionRule,
-                m: int) -> dict:
+def _over_folds(d: np.ndarray, ratio: float, n_folds: int, rule: DecisionRule, m: int) -> dict:
     # 1 - 2 alpha/m two-sided = simultaneous one-sided bounds at alpha/m (see _over_datasets)
     ct = corrected_t(d, ratio, alpha=2 * rule.alpha / m)
     post = correlated_t(d, ratio / (1 + ratio), rule.margin)
-    return {"effect": ct.mean, "lower": ct.ci_low, "upper": ct.ci_high,
-            "bound_level": rule.alpha / m,
-            "p_ni": corrected_t_greater(d, ratio, rule.margin),
-            "p_sup": corrected_t_greater(d, ratio, 0.0),
-            "p_eq": corrected_t_greater(-d, ratio, rule.margin),
-            "p_inf": corrected_t_greater(-d, ratio, -rule.margin),
-            "prob_worse": post.prob_below,
-            "needed": repeats_needed(d, rule.margin, n_folds, rule.alpha / m, rule.power),
-            "needed_unit": "repeats"}
+    return {
+        "effect": ct.mean,
+        "lower": ct.ci_low,
+        "upper": ct.ci_high,
+        "bound_level": rule.alpha / m,
+        "p_ni": corrected_t_greater(d, ratio, rule.margin),
+        "p_sup": corrected_t_greater(d, ratio, 0.0),
+        "p_eq": corrected_t_greater(-d, ratio, rule.margin),
+        "p_inf": corrected_t_greater(-d, ratio, -rule.margin),
+        "prob_worse": post.prob_below,
+        "needed": repeats_needed(d, rule.margin, n_folds, rule.alpha / m, rule.power),
+        "needed_unit": "repeats",
+    }
 
 
 def _paired(per, ref, enc) -> pd.DataFrame:
     """Per-dataset rows of ``enc`` beside those of ``ref`` (suffix ``_ref``), both present."""
-    return per.xs(enc, level="encoder").join(per.xs(ref, level="encoder").add_suffix("_ref"),
-                                             how="inner")
+    return per.xs(enc, level="encoder").join(per.xs(ref, level="encoder").add_suffix("_ref"), how="inner")
 
 
 def _cost_row(j: pd.DataFrame) -> dict:
     """Paired cost of a candidate against the reference: median per-dataset ratio, saving."""
     ratio_cost = (j["cost"] / j["cost_ref"]).replace([np.inf, -np.inf], np.nan)
-    return {"n_datasets": len(j), "cost_ratio": float(ratio_cost.median()),
-            "saving_s": float((j["cost_ref"] - j["cost"]).median()),
-            "n_features": float(j["features"].median())}
+    return {
+        "n_datasets": len(j),
+        "cost_ratio": float(ratio_cost.median()),
+        "saving_s": float((j["cost_ref"] - j["cost"]).median()),
+        "n_features": float(j["features"].median()),
+    }
 
 
 def _quality(cells, j, ref, enc, method, rule, m) -> dict:
@@ -223,8 +271,10 @@ def _quality(cells, j, ref, enc, method, rule, m) -> dict:
     f = fa.join(fb[["value"]].add_suffix("_ref"), how="inner")
     d = unit_free_delta(f["value"], f["value_ref"], f["gib"])
     n_folds = int(cells["fold"].nunique())
-    return {"n_folds": int(np.isfinite(d).sum()),
-            **_over_folds(d[np.isfinite(d)], float(f["ratio"].mean()), n_folds, rule, m)}
+    return {
+        "n_folds": int(np.isfinite(d).sum()),
+        **_over_folds(d[np.isfinite(d)], float(f["ratio"].mean()), n_folds, rule, m),
+    }
 
 
 def _families(costs: pd.DataFrame, leaky, rule: DecisionRule) -> pd.Series:
@@ -252,8 +302,9 @@ def _adjust(table: pd.DataFrame) -> pd.DataFrame:
 def _verdicts(t: pd.DataFrame, alpha: float) -> pd.Series:
     ni, sup = t["p_ni_holm"] < alpha, t["p_sup_holm"] < alpha
     eq, inf = ni & (t["p_eq_holm"] < alpha), t["p_inf_holm"] < alpha
-    return pd.Series(np.select([sup, eq, ni, inf], ["superior", "equivalent", "non-inferior",
-                                                    "inferior"], "inconclusive"), t.index)
+    return pd.Series(
+        np.select([sup, eq, ni, inf], ["superior", "equivalent", "non-inferior", "inferior"], "inconclusive"), t.index
+    )
 
 
 def _choose(t: pd.DataFrame, ref: str) -> tuple[tuple, list]:
@@ -262,12 +313,13 @@ def _choose(t: pd.DataFrame, ref: str) -> tuple[tuple, list]:
         return (ref,), []
     best = ok.loc[ok["cost_ratio"] == ok["cost_ratio"].min()]
     best = best.loc[best["effect"] == best["effect"].max()]
-    best = best.loc[best["n_features"] == best["n_features"].min()] \
-        if best["n_features"].notna().any() else best
+    best = best.loc[best["n_features"] == best["n_features"].min()] if best["n_features"].notna().any() else best
     notes = []
     if len(best) > 1:
-        notes.append("tie: " + ", ".join(map(str, best.index)) + " have the same cost ratio, "
-                     "effect and output features; either is the choice")
+        notes.append(
+            "tie: " + ", ".join(map(str, best.index)) + " have the same cost ratio, "
+            "effect and output features; either is the choice"
+        )
     return tuple(map(str, best.index)), notes
 
 
@@ -278,8 +330,7 @@ def _evidence(cells, ref, encoders, leaky, method, rule) -> pd.DataFrame:
     costs["family"] = _families(costs, leaky, rule)
     costs["eligible"] = costs["family"] != "leaky"
     size = costs["family"].value_counts()
-    rows = {e: _quality(cells, pairs[e], ref, e, method, rule, int(size[costs.at[e, "family"]]))
-            for e in encoders}
+    rows = {e: _quality(cells, pairs[e], ref, e, method, rule, int(size[costs.at[e, "family"]])) for e in encoders}
     t = costs.join(pd.DataFrame.from_dict(rows, orient="index"))
     # Holm within each family (loop over at most three families)
     parts = [_adjust(t.loc[t["family"] == fam]) for fam in pd.unique(t["family"])]
@@ -291,15 +342,25 @@ def _evidence(cells, ref, encoders, leaky, method, rule) -> pd.DataFrame:
 def _reference_row(cells, ref, method) -> pd.DataFrame:
     per = _per_dataset(cells).xs(ref, level="encoder")
     n_folds = int(len(cells.loc[cells["encoder"] == ref])) if method == "folds" else np.nan
-    return pd.DataFrame({"n_datasets": len(per), "cost_ratio": 1.0, "saving_s": 0.0,
-                         "n_features": float(per["features"].median()), "effect": 0.0,
-                         "lower": 0.0, "upper": 0.0, "verdict": "reference",
-                         "eligible": True, "family": "reference", "n_folds": n_folds},
-                        index=[ref])
+    return pd.DataFrame(
+        {
+            "n_datasets": len(per),
+            "cost_ratio": 1.0,
+            "saving_s": 0.0,
+            "n_features": float(per["features"].median()),
+            "effect": 0.0,
+            "lower": 0.0,
+            "upper": 0.0,
+            "verdict": "reference",
+            "eligible": True,
+            "family": "reference",
+            "n_folds": n_folds,
+        },
+        index=[ref],
+    )
 
 
-def decide(results: pd.DataFrame, model: str, metric: str = POOLED,
-           rule: DecisionRule | None = None) -> Decision:
+def decide(results: pd.DataFrame, model: str, metric: str = POOLED, rule: DecisionRule | None = None) -> Decision:
     """Apply the decision rule to one model.
 
     Parameters
@@ -336,19 +397,27 @@ def decide(results: pd.DataFrame, model: str, metric: str = POOLED,
     eligible = [e for e in encoders if e not in leaky] or encoders
     ref, from_data, notes = _pick_reference(results, model, metric, eligible, rule)
     if ref is None or ref not in encoders:
-        return Decision(model, metric, rule, ref, from_data, "none", pd.DataFrame(), (),
-                        0, tuple(notes + ["no scored cell for this model and metric"]))
+        return Decision(
+            model,
+            metric,
+            rule,
+            ref,
+            from_data,
+            "none",
+            pd.DataFrame(),
+            (),
+            0,
+            tuple(notes + ["no scored cell for this model and metric"]),
+        )
     n_ref = int(cells.loc[cells["encoder"] == ref, "dataset"].nunique())
     method = "datasets" if n_ref >= 2 else "folds"
     others = [e for e in encoders if e != ref]
     t = _evidence(cells, ref, others, leaky, method, rule) if others else pd.DataFrame()
     choice, tie = _choose(t, ref) if len(t) else ((ref,), [])
-    table = pd.concat([_reference_row(cells, ref, method), t]) if len(t) else \
-        _reference_row(cells, ref, method)
+    table = pd.concat([_reference_row(cells, ref, method), t]) if len(t) else _reference_row(cells, ref, method)
     table["chosen"] = table.index.isin(choice)
     table["method"] = method
-    return Decision(model, metric, rule, ref, from_data, method, table, choice, n_ref,
-                    tuple(notes + tie))
+    return Decision(model, metric, rule, ref, from_data, method, table, choice, n_ref, tuple(notes + tie))
 
 
 def decision_table(decisions) -> pd.DataFrame:

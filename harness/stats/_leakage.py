@@ -18,6 +18,7 @@ def _crossfit_scheme(params: pd.Series, key: str, default: str) -> pd.Series:
     A JSON object without ``key`` gets ``default`` (the encoder's own default); text that
     is not a JSON object gets ``""`` (unknown).
     """
+
     def parse(text):
         try:
             value = json.loads(text) if isinstance(text, str) and text else None
@@ -27,6 +28,7 @@ def _crossfit_scheme(params: pd.Series, key: str, default: str) -> pd.Series:
             return ""
         value = value.get(key, default)
         return "" if value is None else str(value)
+
     uniq = pd.Series(params.unique())
     table = dict(zip(uniq, uniq.map(parse)))  # loop over distinct settings only
     return params.map(table).fillna("")
@@ -53,9 +55,24 @@ def _row_gaps(df: pd.DataFrame) -> pd.Series:
 
 
 _TWIN_FREE = ("crossfit", "cv", "holdout_fraction", "random_state")
-AUDIT_COLUMNS = ["dataset", "model", "encoder", "twin", "primary_metric", "n_folds", "gap",
-                 "twin_gap", "gap_diff", "gap_low", "gap_high", "test_effect", "test_low",
-                 "test_high", "leaky", "flagged"]
+AUDIT_COLUMNS = [
+    "dataset",
+    "model",
+    "encoder",
+    "twin",
+    "primary_metric",
+    "n_folds",
+    "gap",
+    "twin_gap",
+    "gap_diff",
+    "gap_low",
+    "gap_high",
+    "test_effect",
+    "test_low",
+    "test_high",
+    "leaky",
+    "flagged",
+]
 
 
 def _settings(df: pd.DataFrame) -> pd.DataFrame:
@@ -69,8 +86,7 @@ def _settings(df: pd.DataFrame) -> pd.DataFrame:
     leaky = first.index.isin(list(leaky_settings(df)))
     params = first["encoder_params"] if "encoder_params" in first else pd.Series("{}", first.index)
     parsed = params.map(_as_dict)
-    return pd.DataFrame({"kind": kind, "uses_target": uses, "leaky": leaky, "params": parsed},
-                        index=first.index)
+    return pd.DataFrame({"kind": kind, "uses_target": uses, "leaky": leaky, "params": parsed}, index=first.index)
 
 
 def _as_dict(text) -> dict:
@@ -91,8 +107,7 @@ def twins(results: pd.DataFrame) -> dict:
     """
     s = _settings(results)
     s = s.loc[s["uses_target"]]
-    core = s["params"].map(lambda p: json.dumps({k: v for k, v in p.items()
-                                                 if k not in _TWIN_FREE}, sort_keys=True))
+    core = s["params"].map(lambda p: json.dumps({k: v for k, v in p.items() if k not in _TWIN_FREE}, sort_keys=True))
     kfold = ~s["leaky"] & s["params"].map(lambda p: p.get("crossfit", "kfold") == "kfold")
     out = {}
     for enc in s.index:  # loop over settings
@@ -105,10 +120,20 @@ def twins(results: pd.DataFrame) -> dict:
 
 def _fold_frame(df: pd.DataFrame) -> pd.DataFrame:
     values, gib = metric_values(df, POOLED)
-    return pd.DataFrame({"dataset": df["dataset"], "model": df["model"],
-                         "encoder": df["encoder"], "repeat": df["repeat"], "fold": df["fold"],
-                         "metric": df["primary_metric"], "value": values, "gib": gib,
-                         "gap": _row_gaps(df), "ratio": _row_test_train_ratio(df)})
+    return pd.DataFrame(
+        {
+            "dataset": df["dataset"],
+            "model": df["model"],
+            "encoder": df["encoder"],
+            "repeat": df["repeat"],
+            "fold": df["fold"],
+            "metric": df["primary_metric"],
+            "value": values,
+            "gib": gib,
+            "gap": _row_gaps(df),
+            "ratio": _row_test_train_ratio(df),
+        }
+    )
 
 
 def _audit_pair(part: pd.DataFrame, enc: str, twin: str, alpha: float) -> dict | None:
@@ -123,11 +148,20 @@ def _audit_pair(part: pd.DataFrame, enc: str, twin: str, alpha: float) -> dict |
     gap = corrected_t((j["gap"] - j["gap_twin"]).to_numpy(), ratio, alpha=2 * alpha)
     eff = corrected_t(unit_free_delta(j["value"], j["value_twin"], gib), ratio, alpha=2 * alpha)
     flagged = bool(gap.ci_low > 0 and eff.ci_high < 0)
-    return {"twin": twin, "primary_metric": part["metric"].iloc[0], "n_folds": len(j),
-            "gap": float(j["gap"].mean()), "twin_gap": float(j["gap_twin"].mean()),
-            "gap_diff": gap.mean, "gap_low": gap.ci_low, "gap_high": gap.ci_high,
-            "test_effect": eff.mean, "test_low": eff.ci_low, "test_high": eff.ci_high,
-            "flagged": flagged}
+    return {
+        "twin": twin,
+        "primary_metric": part["metric"].iloc[0],
+        "n_folds": len(j),
+        "gap": float(j["gap"].mean()),
+        "twin_gap": float(j["gap_twin"].mean()),
+        "gap_diff": gap.mean,
+        "gap_low": gap.ci_low,
+        "gap_high": gap.ci_high,
+        "test_effect": eff.mean,
+        "test_low": eff.ci_low,
+        "test_high": eff.ci_high,
+        "flagged": flagged,
+    }
 
 
 def leakage_audit(results: pd.DataFrame, *, alpha: float = 0.05) -> pd.DataFrame:
@@ -160,8 +194,7 @@ def leakage_audit(results: pd.DataFrame, *, alpha: float = 0.05) -> pd.DataFrame
         for enc, twin in pairs.items():  # loop over settings
             row = _audit_pair(part, enc, twin, alpha)
             if row is not None:
-                rows.append({"dataset": dataset, "model": model, "encoder": enc,
-                             **row, "leaky": enc in leaky})
+                rows.append({"dataset": dataset, "model": model, "encoder": enc, **row, "leaky": enc in leaky})
     return pd.DataFrame(rows, columns=AUDIT_COLUMNS)
 
 
@@ -174,14 +207,25 @@ def audit_summary(audit: pd.DataFrame) -> pd.DataFrame:
         Columns ``model, encoder, twin, leaky, flagged_datasets, n_datasets,
         median_gap_diff, median_test_effect``.
     """
-    cols = ["model", "encoder", "twin", "leaky", "flagged_datasets", "n_datasets",
-            "median_gap_diff", "median_test_effect"]
+    cols = [
+        "model",
+        "encoder",
+        "twin",
+        "leaky",
+        "flagged_datasets",
+        "n_datasets",
+        "median_gap_diff",
+        "median_test_effect",
+    ]
     if audit.empty:
         return pd.DataFrame(columns=cols)
     g = audit.groupby(["model", "encoder", "twin", "leaky"], sort=False)
-    out = g.agg(flagged_datasets=("flagged", "sum"), n_datasets=("dataset", "nunique"),
-                median_gap_diff=("gap_diff", "median"),
-                median_test_effect=("test_effect", "median")).reset_index()
+    out = g.agg(
+        flagged_datasets=("flagged", "sum"),
+        n_datasets=("dataset", "nunique"),
+        median_gap_diff=("gap_diff", "median"),
+        median_test_effect=("test_effect", "median"),
+    ).reset_index()
     return out[cols]
 
 
@@ -197,9 +241,14 @@ def eligible_rows(results: pd.DataFrame) -> tuple[pd.DataFrame, set[str]]:
     return (results.loc[keep], leaky) if keep.any() else (results, set())
 
 
-def leaky_settings(results: pd.DataFrame, *, target_kinds=("target",),
-                   leaky_schemes=("none", "loo"),
-                   crossfit_key: str = "crossfit", default_scheme: str = "kfold") -> set[str]:
+def leaky_settings(
+    results: pd.DataFrame,
+    *,
+    target_kinds=("target",),
+    leaky_schemes=("none", "loo"),
+    crossfit_key: str = "crossfit",
+    default_scheme: str = "kfold",
+) -> set[str]:
     """Encoder labels that fit target statistics on the rows they encode.
 
     Read from the results column ``leaky`` (declared by each encoder); tables written
@@ -220,4 +269,3 @@ def leaky_settings(results: pd.DataFrame, *, target_kinds=("target",),
     rows = rows.loc[rows["encoder_kind"].isin(list(target_kinds))]
     scheme = _crossfit_scheme(rows["encoder_params"].astype(object), crossfit_key, default_scheme)
     return set(rows.loc[scheme.isin(list(leaky_schemes)), "encoder"].astype(str))
-

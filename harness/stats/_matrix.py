@@ -27,8 +27,9 @@ def _interval_columns(g: pd.DataFrame, alpha: float) -> pd.DataFrame:
     return g.assign(ci_low=g["mean"] - half, ci_high=g["mean"] + half)
 
 
-def summarize_cells(results: pd.DataFrame, *, metrics=None, alpha: float = 0.05,
-                    model_column: str = "model") -> pd.DataFrame:
+def summarize_cells(
+    results: pd.DataFrame, *, metrics=None, alpha: float = 0.05, model_column: str = "model"
+) -> pd.DataFrame:
     """Mean of each metric over folds and repeats per dataset x encoder x model.
 
     Parameters
@@ -57,17 +58,28 @@ def summarize_cells(results: pd.DataFrame, *, metrics=None, alpha: float = 0.05,
     metrics = _metric_columns(df, metrics)
     keys = ["dataset", "encoder", model_column]
     df = df.assign(_ratio=_row_test_train_ratio(df))
-    long = df.melt(id_vars=keys + ["_ratio"], value_vars=metrics, var_name="metric",
-                   value_name="value").dropna(subset=["value"])
-    g = long.groupby(keys + ["metric"], sort=True).agg(
-        mean=("value", "mean"), std=("value", "std"), n=("value", "size"),
-        ratio=("_ratio", "mean")).reset_index()
+    long = df.melt(id_vars=keys + ["_ratio"], value_vars=metrics, var_name="metric", value_name="value").dropna(
+        subset=["value"]
+    )
+    g = (
+        long.groupby(keys + ["metric"], sort=True)
+        .agg(mean=("value", "mean"), std=("value", "std"), n=("value", "size"), ratio=("_ratio", "mean"))
+        .reset_index()
+    )
     return _interval_columns(g, alpha)
 
 
-def paired_corrected_t(results: pd.DataFrame, *, dataset: str, model: str,
-                       encoder_a: str, encoder_b: str, metric: str, alpha: float = 0.05,
-                       model_column: str = "model") -> CorrectedT:
+def paired_corrected_t(
+    results: pd.DataFrame,
+    *,
+    dataset: str,
+    model: str,
+    encoder_a: str,
+    encoder_b: str,
+    metric: str,
+    alpha: float = 0.05,
+    model_column: str = "model",
+) -> CorrectedT:
     """Corrected resampled t test between two encoders on one dataset and model.
 
     The differences ``d = oriented(a) - oriented(b)`` are paired by (repeat, fold), so a
@@ -84,10 +96,8 @@ def paired_corrected_t(results: pd.DataFrame, *, dataset: str, model: str,
     """
     sign = orientation(metric)
     df = ok_rows(results)
-    df = df.loc[(df["dataset"] == dataset) & (df[model_column] == model)
-                & df["encoder"].isin([encoder_a, encoder_b])]
-    wide = df.pivot_table(index=["repeat", "fold"], columns="encoder", values=metric,
-                          aggfunc="mean")
+    df = df.loc[(df["dataset"] == dataset) & (df[model_column] == model) & df["encoder"].isin([encoder_a, encoder_b])]
+    wide = df.pivot_table(index=["repeat", "fold"], columns="encoder", values=metric, aggfunc="mean")
     if encoder_a not in wide or encoder_b not in wide:
         return corrected_t([], np.nan, alpha=alpha)
     d = sign * (wide[encoder_a] - wide[encoder_b])
@@ -120,8 +130,7 @@ class ScoreMatrix:
     ranks: pd.DataFrame
     dropped_datasets: tuple = ()
     dropped_encoders: tuple = ()
-    missing_cells: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(
-        columns=["dataset", "encoder"]))
+    missing_cells: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=["dataset", "encoder"]))
     not_applicable: tuple = ()
 
     @property
@@ -164,9 +173,16 @@ def _apply_missing_policy(wide: pd.DataFrame, missing: str, keep=(), sign: float
     return wide.loc[:, ~bad], (), tuple(wide.columns[bad]), cells
 
 
-def score_matrix(results: pd.DataFrame, model: str, metric: str, *,
-                 missing: str = "auto", datasets=None,
-                 model_column: str = "model", keep=()) -> ScoreMatrix:
+def score_matrix(
+    results: pd.DataFrame,
+    model: str,
+    metric: str,
+    *,
+    missing: str = "auto",
+    datasets=None,
+    model_column: str = "model",
+    keep=(),
+) -> ScoreMatrix:
     """Build the datasets x encoders matrix of mean scores and per-dataset ranks.
 
     Parameters
@@ -214,4 +230,3 @@ def score_matrix(results: pd.DataFrame, model: str, metric: str, *,
     kept, d_ds, d_enc, cells = _apply_missing_policy(wide, missing, keep, sign)
     kept = kept.astype(float)
     return ScoreMatrix(model, metric, kept, rank_rows(sign * kept), d_ds, d_enc, cells, n_a)
-

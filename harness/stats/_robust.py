@@ -29,11 +29,9 @@ def cardinality_regime(max_cardinality, *, low: int = 10, high: int = 100) -> np
     Thresholds: common practice, no source (defaults of this project).
     """
     if low > high:
-        raise ConfigError(f"cardinality thresholds must satisfy low <= high; got low={low}, "
-                          f"high={high}.")
+        raise ConfigError(f"cardinality thresholds must satisfy low <= high; got low={low}, high={high}.")
     c = np.asarray(max_cardinality, dtype=float)
-    return np.select([np.isnan(c), c < low, c > high], ["unknown", "low", "high"],
-                     default="medium")
+    return np.select([np.isnan(c), c < low, c > high], ["unknown", "low", "high"], default="medium")
 
 
 def dataset_regimes(results: pd.DataFrame, *, low: int = 10, high: int = 100) -> pd.Series:
@@ -49,13 +47,23 @@ def dataset_regimes(results: pd.DataFrame, *, low: int = 10, high: int = 100) ->
         ds = pd.Index(results["dataset"].unique(), name="dataset")
         return pd.Series("unknown", index=ds, name="regime")
     card = results.groupby("dataset")["max_cardinality"].max()
-    return pd.Series(cardinality_regime(card.to_numpy(), low=low, high=high),
-                     index=card.index, name="regime")
+    return pd.Series(cardinality_regime(card.to_numpy(), low=low, high=high), index=card.index, name="regime")
 
 
-
-ROBUSTNESS_COLUMNS = ["model", "axis", "slice", "n_datasets", "method", "choice", "verdict",
-                      "effect", "lower", "reachable", "agrees", "label"]
+ROBUSTNESS_COLUMNS = [
+    "model",
+    "axis",
+    "slice",
+    "n_datasets",
+    "method",
+    "choice",
+    "verdict",
+    "effect",
+    "lower",
+    "reachable",
+    "agrees",
+    "label",
+]
 
 
 def _slices(ok: pd.DataFrame, model: str, metric: str, metrics, regimes) -> list:
@@ -71,8 +79,7 @@ def _slices(ok: pd.DataFrame, model: str, metric: str, metrics, regimes) -> list
     if metric == POOLED and len(own) == 1:  # pooled over one task type: the same slice
         seen.add((own.pop(), head))
     for other in metrics:  # loop over metric names
-        has = tuple(sorted(mine.loc[mine[other].notna(), "dataset"].unique())) \
-            if other in mine else ()
+        has = tuple(sorted(mine.loc[mine[other].notna(), "dataset"].unique())) if other in mine else ()
         if other != metric and len(has) and (other, has) not in seen:
             seen.add((other, has))
             out.append(("metric", other, other, has))
@@ -84,8 +91,7 @@ def _slices(ok: pd.DataFrame, model: str, metric: str, metrics, regimes) -> list
     return out
 
 
-def choice_robustness(results: pd.DataFrame, decisions, *, metrics=(), low: int = 10,
-                      high: int = 100) -> pd.DataFrame:
+def choice_robustness(results: pd.DataFrame, decisions, *, metrics=(), low: int = 10, high: int = 100) -> pd.DataFrame:
     """The decision rule rerun on each slice: another metric, or one cardinality regime.
 
     Exploratory and uncorrected for the number of slices: a slice where the rule picks
@@ -111,13 +117,20 @@ def choice_robustness(results: pd.DataFrame, decisions, *, metrics=(), low: int 
             part = decide(ok.loc[ok["dataset"].isin(ds)], d.model, metric, rule)
             got = part.table.loc[part.choice[0]] if part.choice else None
             kept = got is None or not part.switch
-            rows.append({"model": d.model, "axis": axis, "slice": name,
-                         "n_datasets": part.n_datasets, "method": part.method,
-                         "choice": " | ".join(part.choice),
-                         "verdict": "kept" if kept else got["verdict"],
-                         "effect": np.nan if kept else got["effect"],
-                         "lower": np.nan if kept else got["lower"],
-                         "reachable": part.reachable,
-                         "agrees": tuple(part.choice) == tuple(d.choice),
-                         "label": "exploratory, uncorrected"})
+            rows.append(
+                {
+                    "model": d.model,
+                    "axis": axis,
+                    "slice": name,
+                    "n_datasets": part.n_datasets,
+                    "method": part.method,
+                    "choice": " | ".join(part.choice),
+                    "verdict": "kept" if kept else got["verdict"],
+                    "effect": np.nan if kept else got["effect"],
+                    "lower": np.nan if kept else got["lower"],
+                    "reachable": part.reachable,
+                    "agrees": tuple(part.choice) == tuple(d.choice),
+                    "label": "exploratory, uncorrected",
+                }
+            )
     return pd.DataFrame(rows, columns=ROBUSTNESS_COLUMNS)

@@ -52,9 +52,12 @@ class DecisionRule:
 
     def describe(self) -> str:
         """The rule in words, every number taken from this object."""
-        ref = (f"the reference '{self.reference}'" if self.reference else
-               "the reference (the eligible setting with the best average rank, chosen from "
-               "the data, which makes the tests conservative)")
+        ref = (
+            f"the reference '{self.reference}'"
+            if self.reference
+            else "the reference (the eligible setting with the best average rank, chosen from "
+            "the data, which makes the tests conservative)"
+        )
         m, a = _pct(self.margin), f"{self.alpha:g}"
         return (
             f"Each candidate is compared with {ref} on a unit-free effect per dataset: "
@@ -74,7 +77,8 @@ class DecisionRule:
             f"cost saving is chosen; otherwise the reference is kept. Exact cost ties go "
             f"to the larger effect, then to fewer output features; a tie that remains is "
             f"stated. Settings that fit target statistics on the rows they encode are "
-            f"never chosen.")
+            f"never chosen."
+        )
 
 
 def _pct(value: float) -> str:

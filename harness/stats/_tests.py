@@ -78,8 +78,7 @@ def corrected_t(diffs, test_train_ratio: float, *, alpha: float = 0.05) -> Corre
         t = mean / se if n > 1 else np.nan
     p = float(2 * sps.t.sf(abs(t), n - 1)) if n > 1 and not np.isnan(t) else np.nan
     half = float(sps.t.ppf(1 - alpha / 2, n - 1) * se) if n > 1 else np.nan
-    return CorrectedT(mean, std, n, float(test_train_ratio), float(t), n - 1, p,
-                      mean - half, mean + half)
+    return CorrectedT(mean, std, n, float(test_train_ratio), float(t), n - 1, p, mean - half, mean + half)
 
 
 @dataclass(frozen=True)
@@ -107,8 +106,7 @@ class FriedmanResult:
         return self.perm_p if np.isfinite(self.perm_p) else self.f_p_value
 
 
-def friedman_from_ranks(avg_ranks, n_datasets: int, *, tie_factor: float = 1.0
-                        ) -> FriedmanResult:
+def friedman_from_ranks(avg_ranks, n_datasets: int, *, tie_factor: float = 1.0) -> FriedmanResult:
     """Friedman test with the Iman-Davenport correction from average ranks.
 
     ``chi2_F = 12N / (k(k+1)) * (sum R_j^2 - k(k+1)^2/4)``;
@@ -142,8 +140,7 @@ def friedman_from_ranks(avg_ranks, n_datasets: int, *, tie_factor: float = 1.0
     df1, df2 = k - 1, (k - 1) * (n - 1)
     room = n * (k - 1) - chi2  # 0 when every dataset ranks the encoders identically
     f = (n - 1) * chi2 / room if room > 1e-12 * n * k else np.inf
-    return FriedmanResult(chi2, float(sps.chi2.sf(chi2, df1)), float(f),
-                          float(sps.f.sf(f, df1, df2)), df1, df2, n, k)
+    return FriedmanResult(chi2, float(sps.chi2.sf(chi2, df1)), float(f), float(sps.f.sf(f, df1, df2)), df1, df2, n, k)
 
 
 def nemenyi_q(k: int, alpha: float = 0.05) -> float:
@@ -208,8 +205,9 @@ class BayesSignedRank:
     theta_mean: tuple
 
 
-def bayesian_signed_rank(diffs, rope: float = 0.01, *, prior_strength: float = 0.5,
-                         n_samples: int = 20000, seed: int = 0) -> BayesSignedRank:
+def bayesian_signed_rank(
+    diffs, rope: float = 0.01, *, prior_strength: float = 0.5, n_samples: int = 20000, seed: int = 0
+) -> BayesSignedRank:
     """Bayesian signed-rank test with a region of practical equivalence.
 
     A pseudo-observation 0 is prepended to ``z``; weights ``w ~ Dirichlet(s, 1, ..., 1)``;
@@ -252,9 +250,9 @@ def bayesian_signed_rank(diffs, rope: float = 0.01, *, prior_strength: float = 0
     right = np.einsum("si,ij,sj->s", w, (pair > 2 * rope).astype(float), w)
     theta = np.column_stack([left, 1.0 - left - right, right])
     winner = np.bincount(theta.argmax(axis=1), minlength=3) / n_samples
-    return BayesSignedRank(float(winner[0]), float(winner[1]), float(winner[2]),
-                           tuple(float(v) for v in theta.mean(axis=0)))
-
+    return BayesSignedRank(
+        float(winner[0]), float(winner[1]), float(winner[2]), tuple(float(v) for v in theta.mean(axis=0))
+    )
 
 
 # ------------------------------------------------------------------ signed-rank, one-sided
@@ -279,7 +277,7 @@ def _null_counts(r2: np.ndarray) -> np.ndarray:
     dist[0] = 1.0
     for r in r2:  # loop over observations (n <= _EXACT_MAX_N), not over sign patterns
         shifted = np.zeros_like(dist)
-        shifted[r:] = dist[:dist.size - r]
+        shifted[r:] = dist[: dist.size - r]
         dist = 0.5 * (dist + shifted)
     return dist
 
@@ -416,8 +414,7 @@ def correlated_t(diffs, test_fraction: float, margin: float) -> CorrelatedT:
     else:
         cdf = lambda v: float(sps.t.cdf((v - mean) / scale, n - 1))  # noqa: E731
     below = cdf(-margin)
-    return CorrelatedT(mean, scale, n - 1, 1 - below, below, cdf(margin) - below,
-                       1 - cdf(0.0))
+    return CorrelatedT(mean, scale, n - 1, 1 - below, below, cdf(margin) - below, 1 - cdf(0.0))
 
 
 def corrected_t_greater(diffs, test_train_ratio: float, shift: float = 0.0) -> float:
@@ -443,8 +440,9 @@ def _rank_sum_stat(ranks: np.ndarray) -> np.ndarray:
     return np.sum(ranks.sum(axis=-2) ** 2, axis=-1)
 
 
-def friedman_permutation_p(ranks, *, max_exact: int = 200_000, n_perm: int = 20_000,
-                           seed: int = 0) -> tuple[float, bool]:
+def friedman_permutation_p(
+    ranks, *, max_exact: int = 200_000, n_perm: int = 20_000, seed: int = 0
+) -> tuple[float, bool]:
     """Permutation p-value of the Friedman statistic, exact when N x k is small.
 
     Under H0 every within-dataset ordering of the ranks is equally likely. The statistic
@@ -470,8 +468,11 @@ def friedman_permutation_p(ranks, *, max_exact: int = 200_000, n_perm: int = 20_
     if n < 2 or k < 2:
         return np.nan, False
     observed = float(_rank_sum_stat(r)) - 1e-9 * n * k
-    rows = [np.unique(np.array(list(itertools.permutations(row))), axis=0) for row in r[1:]] \
-        if math.factorial(k) <= max_exact else None
+    rows = (
+        [np.unique(np.array(list(itertools.permutations(row))), axis=0) for row in r[1:]]
+        if math.factorial(k) <= max_exact
+        else None
+    )
     size = math.prod(len(p) for p in rows) if rows is not None else max_exact + 1
     if size <= max_exact:
         sums = r[:1].copy()
@@ -517,8 +518,7 @@ def datasets_needed(deltas, margin: float, alpha: float = 0.05, power: float = 0
     return float(max(floor, int(np.ceil(need))))
 
 
-def repeats_needed(diffs, margin: float, n_folds: int, alpha: float = 0.05,
-                   power: float = 0.8) -> float:
+def repeats_needed(diffs, margin: float, n_folds: int, alpha: float = 0.05, power: float = 0.8) -> float:
     """Repeats of k-fold CV the observed fold spread would need on one dataset.
 
     The corrected variance ``(1/J + 1/(k-1)) s^2`` does not fall below ``s^2/(k-1)``

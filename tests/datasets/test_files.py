@@ -62,7 +62,9 @@ def test_alias_replaces_the_file_name(table, tmp_path):
 
 def test_unreadable_path_names_path_and_key(tmp_path):
     missing = tmp_path / "nope.csv"
-    with pytest.raises(DataError, match=r"dataset 'x' \(source 'file'\): cannot read the file at `path` = '.*nope.csv'"):
+    with pytest.raises(
+        DataError, match=r"dataset 'x' \(source 'file'\): cannot read the file at `path` = '.*nope.csv'"
+    ):
         load("file", "x", path=str(missing), target="y")
 
 
@@ -73,12 +75,26 @@ def test_unknown_suffix_lists_the_allowed_ones(tmp_path):
 
 def test_missing_target_lists_columns(table, tmp_path):
     path = _write(table, tmp_path, ".csv")
-    with pytest.raises(DataError, match=r"`target` names column\(s\) 'churn' .*Available columns: id, shop, code, spend, churned"):
+    with pytest.raises(
+        DataError, match=r"`target` names column\(s\) 'churn' .*Available columns: id, shop, code, spend, churned"
+    ):
         load("file", "x", path=str(path), target="churn")
 
 
 def test_keys_are_the_shared_table_keys():
     keys = params_of("file")
-    assert list(keys) == ["path", "delimiter", "target", "categorical", "numeric", "drop", "task", "group", "sample_rows", "seed", "alias"]
+    assert list(keys) == [
+        "path",
+        "delimiter",
+        "target",
+        "categorical",
+        "numeric",
+        "drop",
+        "task",
+        "group",
+        "sample_rows",
+        "seed",
+        "alias",
+    ]
     assert keys["path"].default is keys["target"].default  # both required (empty)
     assert keys["seed"].default == 0 and keys["seed"].annotation is int

@@ -66,7 +66,11 @@ def _www(root: Path) -> Path:
 
 
 def _description(did: int, target: str | None, parquet: bool) -> str:
-    pq = f"<oml:parquet_url>http://minio.openml.invalid/datasets/{did}/dataset_{did}.pq</oml:parquet_url>" if parquet else ""
+    pq = (
+        f"<oml:parquet_url>http://minio.openml.invalid/datasets/{did}/dataset_{did}.pq</oml:parquet_url>"
+        if parquet
+        else ""
+    )
     default = f"<oml:default_target_attribute>{target}</oml:default_target_attribute>" if target else ""
     return f"""<oml:data_set_description {NS}>
   <oml:id>{did}</oml:id>
@@ -103,8 +107,14 @@ def _features(frame: pd.DataFrame) -> str:
 
 
 def _qualities(frame: pd.DataFrame) -> str:
-    values = {"NumberOfInstances": len(frame), "NumberOfFeatures": frame.shape[1], "NumberOfClasses": frame["class"].nunique()}
-    body = "".join(f"<oml:quality><oml:name>{k}</oml:name><oml:value>{v}</oml:value></oml:quality>" for k, v in values.items())
+    values = {
+        "NumberOfInstances": len(frame),
+        "NumberOfFeatures": frame.shape[1],
+        "NumberOfClasses": frame["class"].nunique(),
+    }
+    body = "".join(
+        f"<oml:quality><oml:name>{k}</oml:name><oml:value>{v}</oml:value></oml:quality>" for k, v in values.items()
+    )
     return f"<oml:data_qualities {NS}>{body}</oml:data_qualities>\n"
 
 
@@ -123,7 +133,9 @@ def _arff(frame: pd.DataFrame) -> str:
     return "\n".join(header + ["", "@DATA"]) + "\n" + text
 
 
-def write_dataset(root: Path, did: int, frame: pd.DataFrame, *, parquet: bool, data: bool = True, target="class") -> Path:
+def write_dataset(
+    root: Path, did: int, frame: pd.DataFrame, *, parquet: bool, data: bool = True, target="class"
+) -> Path:
     folder = _www(root) / "datasets" / str(did)
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "description.xml").write_text(_description(did, target, parquet))
@@ -273,7 +285,11 @@ def test_network_failure_keeps_the_cache(tmp_path, credit, offline):
     # download it, fails, and (unguarded) deletes the whole folder
     folder = write_dataset(tmp_path, DATASET_PQ, credit, parquet=True, data=False)
     before = _snapshot(folder)
-    with pytest.raises(DataError, match=r"dataset 'c' \(source 'openml'\): the OpenML server could not be reached while loading dataset 990001 .*The local cache was kept"):
+    with pytest.raises(
+        DataError,
+        match=r"dataset 'c' \(source 'openml'\): the OpenML server could not be reached while loading "
+        r"dataset 990001 .*The local cache was kept",
+    ):
         load("openml", "c", dataset_id=DATASET_PQ, cache_dir=str(tmp_path))
     assert _snapshot(folder) == before
     assert not [p for p in _www(tmp_path).iterdir() if p.name.startswith(".harness-kept-")]
@@ -292,9 +308,8 @@ def test_network_failure_keeps_task_and_dataset_cache(tmp_path, credit, offline,
 def test_unguarded_client_would_have_wiped_it(tmp_path, credit, offline):
     """The hazard the guard exists for, shown on the client itself."""
     folder = write_dataset(tmp_path, DATASET_PQ, credit, parquet=True, data=False)
-    with _client_root(tmp_path):
-        with pytest.raises(requests.exceptions.ConnectionError):
-            openml.datasets.get_dataset(DATASET_PQ, download_data=True)
+    with _client_root(tmp_path), pytest.raises(requests.exceptions.ConnectionError):
+        openml.datasets.get_dataset(DATASET_PQ, download_data=True)
     assert not folder.exists()
 
 
@@ -303,10 +318,9 @@ def test_kept_cache_restores_and_cleans_up(tmp_path):
         folder = Path(openml.config.get_cache_directory()) / "datasets" / "1"
         folder.mkdir(parents=True)
         (folder / "description.xml").write_text("kept")
-        with pytest.raises(RuntimeError, match="boom"):
-            with kept_cache(folder):
-                (folder / "description.xml").unlink()
-                raise RuntimeError("boom")
+        with pytest.raises(RuntimeError, match="boom"), kept_cache(folder):
+            (folder / "description.xml").unlink()
+            raise RuntimeError("boom")
         assert (folder / "description.xml").read_text() == "kept"
         with kept_cache(folder):
             (folder / "new.xml").write_text("added")
@@ -326,7 +340,9 @@ def test_server_refusal_is_reported(tmp_path, monkeypatch):
 def test_corrupt_data_file_is_a_client_failure(tmp_path, credit, offline):
     folder = write_dataset(tmp_path, DATASET_PQ, credit, parquet=True, data=False)
     (folder / f"dataset_{DATASET_PQ}.pq").write_bytes(b"not parquet")
-    with pytest.raises(DataError, match=r"the OpenML client failed while loading dataset 990001: .*The local cache was kept"):
+    with pytest.raises(
+        DataError, match=r"the OpenML client failed while loading dataset 990001: .*The local cache was kept"
+    ):
         load_openml(dataset_id=DATASET_PQ, cache_dir=str(tmp_path))
     assert (folder / f"dataset_{DATASET_PQ}.pq").read_bytes() == b"not parquet"
 
@@ -359,7 +375,10 @@ def test_id_and_target_rules(cache, offline, keys, pattern):
         load_openml(cache_dir=str(root), **keys)
 
 
-@pytest.mark.parametrize(("default", "pattern"), [(None, "no default target"), ("class,purpose", r"several default targets \(class,purpose\)")])
+@pytest.mark.parametrize(
+    ("default", "pattern"),
+    [(None, "no default target"), ("class,purpose", r"several default targets \(class,purpose\)")],
+)
 def test_default_target_must_be_one_column(tmp_path, credit, offline, default, pattern):
     write_dataset(tmp_path, DATASET_PQ, credit, parquet=True, target=default)
     with pytest.raises(ConfigError, match=rf"OpenML dataset 990001 \('credit-mini'\) has {pattern}; set `target`"):

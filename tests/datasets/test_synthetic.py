@@ -38,7 +38,9 @@ def test_planted_effect_is_recoverable(task, seed):
 
 
 def test_planted_multiclass_effects_are_recoverable(seed):
-    ds, truth = make_synthetic(n_rows=30_000, cardinalities=[15], zipf=0.0, effect=1.0, task="multiclass", n_classes=3, seed=seed)
+    ds, truth = make_synthetic(
+        n_rows=30_000, cardinalities=[15], zipf=0.0, effect=1.0, task="multiclass", n_classes=3, seed=seed
+    )
     effects = truth.effects["cat0"]
     assert effects.shape == (15, 3)
     # a class is more frequent at levels whose effect for it exceeds the others' (common
@@ -50,7 +52,9 @@ def test_planted_multiclass_effects_are_recoverable(seed):
 
 
 def test_noise_column_carries_no_signal(seed):
-    ds, truth = make_synthetic(n_rows=20_000, cardinalities=[10], zipf=0.0, effect=0.5, noise_column=50, task="regression", seed=seed)
+    ds, truth = make_synthetic(
+        n_rows=20_000, cardinalities=[10], zipf=0.0, effect=0.5, noise_column=50, task="regression", seed=seed
+    )
     assert truth.noise_columns == ("noise",) and ds.categorical == ("cat0", "noise")
     assert ds.X["noise"].nunique() == 50
     y = ds.y.to_numpy()
@@ -87,9 +91,16 @@ def test_same_seed_same_data(seed):
     ("keys", "pattern"),
     [
         ({"n_rows": 1}, r"`n_rows` must be an integer in \[2, 20,000,000\] .*; got 1"),
-        ({"n_rows": 10**11}, r"`n_rows` must be an integer in \[2, 20,000,000\] \(use a `file` dataset for larger tables\); got 100000000000"),
+        (
+            {"n_rows": 10**11},
+            r"`n_rows` must be an integer in \[2, 20,000,000\] \(use a `file` dataset for larger tables\); "
+            r"got 100000000000",
+        ),
         ({"cardinalities": []}, r"`cardinalities` must be a non-empty list of integers in \[1, n_rows\].*; got \[\]"),
-        ({"cardinalities": [10**12]}, r"`cardinalities` must be .*a column cannot have more levels than rows\); got \[1000000000000\]"),
+        (
+            {"cardinalities": [10**12]},
+            r"`cardinalities` must be .*a column cannot have more levels than rows\); got \[1000000000000\]",
+        ),
         ({"cardinalities": [3, 0]}, r"`cardinalities` must be a non-empty list"),
         ({"zipf": -1.0}, r"`zipf` must be a number >= 0; got -1.0"),
         ({"effect": -0.1}, r"`effect` must be a number >= 0"),
@@ -106,5 +117,13 @@ def test_invalid_parameters(keys, pattern):
 
 def test_keys():
     assert list(params_of("synthetic")) == [
-        "n_rows", "cardinalities", "zipf", "effect", "noise_column", "task", "n_classes", "n_numeric", "seed",
+        "n_rows",
+        "cardinalities",
+        "zipf",
+        "effect",
+        "noise_column",
+        "task",
+        "n_classes",
+        "n_numeric",
+        "seed",
     ]

@@ -60,16 +60,11 @@ EXPECTED_FAILURES: dict[str, dict[str, str]] = {
             "the check reads output.dtype; a DataFrame has one dtype per column (category)"
         ),
     },
-    "target": {
-        "check_transformer_general": _CROSS_FITTED,
-        "check_transformer_data_not_an_array": _CROSS_FITTED,
-    },
+    "target": {"check_transformer_general": _CROSS_FITTED, "check_transformer_data_not_an_array": _CROSS_FITTED},
 }
 
 
-@parametrize_with_checks(
-    [encoder(kind) for kind in KINDS], expected_failed_checks=expected_failures
-)
+@parametrize_with_checks([encoder(kind) for kind in KINDS], expected_failed_checks=expected_failures)
 def test_sklearn_compatible(estimator, check):
     check(estimator)
 

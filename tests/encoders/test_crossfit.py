@@ -160,9 +160,7 @@ def test_own_label_never_moves_own_weight_of_evidence(levels, crossfit, smoothin
     changed[i] = 1 - y[i]
     X = frame_of(codes)
     make = lambda: encoder(crossfit, smoothing, statistic="woe", target_type="binary")  # noqa: E731
-    np.testing.assert_allclose(
-        make().fit_transform(X, changed)[i], make().fit_transform(X, y)[i], rtol=0, atol=1e-9
-    )
+    np.testing.assert_allclose(make().fit_transform(X, changed)[i], make().fit_transform(X, y)[i], rtol=0, atol=1e-9)
 
 
 @pytest.mark.parametrize("smoothing", SMOOTHINGS)

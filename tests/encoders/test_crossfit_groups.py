@@ -7,15 +7,18 @@ whole groups (Prokhorenkova et al. 2018, NeurIPS, with groups in place of rows).
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from test_crossfit import assert_cells_match, brute_force, frame_of, rows
 
 from harness.encoders import _crossfit
 from harness.encoders._target import SMOOTHINGS, TargetStatistics
 from harness.errors import EncoderInputError
+
+from test_crossfit import assert_cells_match, brute_force, frame_of, rows
 
 FAST = settings(max_examples=60, deadline=None)
 
@@ -80,8 +83,9 @@ def test_own_group_targets_never_move_own_encodings(crossfit, smoothing):
     groups = rng.randint(0, 30, size=n)
     codes = rng.randint(0, 4, size=n)
     y = rng.normal(size=n)
-    enc = lambda: TargetStatistics(crossfit=crossfit, smoothing=smoothing, random_state=3,  # noqa: E731
-                                   target_type="continuous")
+    enc = functools.partial(
+        TargetStatistics, crossfit=crossfit, smoothing=smoothing, random_state=3, target_type="continuous"
+    )
     before = enc().fit_transform(frame_of(codes), y, groups=groups)
     for g in (0, 7, 29):
         moved = y.copy()

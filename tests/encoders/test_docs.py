@@ -31,9 +31,11 @@ def test_examples_run_as_written(kind):
 
 def _section(doc: str, title: str) -> str:
     start = doc.index(f"{title}\n{'-' * len(title)}")
-    rest = doc[start + 2 * len(title) + 2:]
-    ends = [rest.find(f"\n{t}\n") for t in ("Parameters", "Returns", "Raises", "See Also",
-                                          "Notes", "References", "Examples", "Attributes")]
+    rest = doc[start + 2 * len(title) + 2 :]
+    ends = [
+        rest.find(f"\n{t}\n")
+        for t in ("Parameters", "Returns", "Raises", "See Also", "Notes", "References", "Examples", "Attributes")
+    ]
     ends = [e for e in ends if e >= 0]
     return rest[: min(ends)] if ends else rest
 

@@ -16,14 +16,7 @@ import pytest
 from scipy import integrate, optimize
 from sklearn.model_selection import KFold
 
-from harness.encoders._glmm import (
-    RandomInterceptCodes,
-    _laplace,
-    _modes,
-    fit_logistic,
-    laplace_loglik,
-    reml_one_way,
-)
+from harness.encoders._glmm import RandomInterceptCodes, _laplace, _modes, fit_logistic, laplace_loglik, reml_one_way
 from harness.errors import EncoderInputError
 
 
@@ -67,8 +60,7 @@ def test_continuous_encoding_is_statsmodels_reml_blup(package, name, target, gro
     expected = {k: mu + np.asarray(v).ravel()[0] for k, v in fit.random_effects.items()}
     enc = RandomInterceptCodes(crossfit="none", target_type="continuous").fit(one_column(c), y)
     levels = list(enc.levels_[0])
-    np.testing.assert_allclose(enc.encodings_[0][: len(levels), 0], [expected[k] for k in levels],
-                               rtol=0, atol=1e-6)
+    np.testing.assert_allclose(enc.encodings_[0][: len(levels), 0], [expected[k] for k in levels], rtol=0, atol=1e-6)
     np.testing.assert_allclose(enc.intercept_[0, 0], mu, rtol=0, atol=1e-6)
     np.testing.assert_allclose(enc.tau2_[0, 0], np.asarray(fit.cov_re).ravel()[0], rtol=1e-5)
     np.testing.assert_allclose(enc.sigma2_[0, 0], fit.scale, rtol=1e-5)
@@ -101,13 +93,21 @@ def quad_loglik(mu, log_tau, n, s):
     """Marginal log-likelihood by ``scipy.integrate.quad``, one integral per level."""
     tau, total = np.exp(log_tau), 0.0
     for n_c, s_c in zip(n, s):
-        def log_lik(u):
+
+        def log_lik(u, n_c=n_c, s_c=s_c):
             eta = mu + u
             return s_c * eta - n_c * np.logaddexp(0.0, eta)
+
         shift = np.max(log_lik(np.linspace(-10 * tau, 10 * tau, 2001)))  # keeps exp() in range
         value, _ = integrate.quad(
-            lambda u: np.exp(log_lik(u) - shift - 0.5 * (u / tau) ** 2) / (np.sqrt(2 * np.pi) * tau),
-            -12 * tau, 12 * tau, epsabs=0, epsrel=1e-12, limit=200,
+            lambda u, shift=shift, log_lik=log_lik: (
+                np.exp(log_lik(u) - shift - 0.5 * (u / tau) ** 2) / (np.sqrt(2 * np.pi) * tau)
+            ),
+            -12 * tau,
+            12 * tau,
+            epsabs=0,
+            epsrel=1e-12,
+            limit=200,
         )
         total += np.log(value) + shift
     return total
@@ -136,8 +136,12 @@ def test_laplace_matches_integration_on_cbpp():
     for mu, log_tau in [(-2.0, -0.5), (-1.5, 0.0), (-2.5, -1.0)]:
         assert abs(laplace_loglik(mu, log_tau, n, s) - quad_loglik(mu, log_tau, n, s)) < 0.15
     mu, tau2, _ = fit_logistic(n, s)
-    best = optimize.minimize(lambda t: -quad_loglik(t[0], t[1], n, s), x0=[mu, 0.5 * np.log(tau2)],
-                             method="Nelder-Mead", options={"xatol": 1e-7, "fatol": 1e-9})
+    best = optimize.minimize(
+        lambda t: -quad_loglik(t[0], t[1], n, s),
+        x0=[mu, 0.5 * np.log(tau2)],
+        method="Nelder-Mead",
+        options={"xatol": 1e-7, "fatol": 1e-9},
+    )
     assert abs(mu - best.x[0]) < 2e-3
     assert abs(np.sqrt(tau2) / np.exp(best.x[1]) - 1) < 0.02
 
@@ -149,8 +153,12 @@ def test_laplace_is_accurate_with_many_rows_per_level(rng):
     for mu, log_tau in [(-1.0, np.log(0.7)), (-0.5, -1.0)]:
         assert abs(laplace_loglik(mu, log_tau, n, s) - quad_loglik(mu, log_tau, n, s)) < 5e-3
     mu, tau2, _ = fit_logistic(n, s)
-    best = optimize.minimize(lambda t: -quad_loglik(t[0], t[1], n, s), x0=[mu, 0.5 * np.log(tau2)],
-                             method="Nelder-Mead", options={"xatol": 1e-8, "fatol": 1e-10})
+    best = optimize.minimize(
+        lambda t: -quad_loglik(t[0], t[1], n, s),
+        x0=[mu, 0.5 * np.log(tau2)],
+        method="Nelder-Mead",
+        options={"xatol": 1e-8, "fatol": 1e-10},
+    )
     np.testing.assert_allclose([mu, 0.5 * np.log(tau2)], best.x, atol=1e-3)
 
 
@@ -160,8 +168,10 @@ def test_laplace_gradient_matches_finite_differences(rng):
     for mu, log_tau in [(-1.0, -0.5), (0.3, 0.7), (-2.0, -3.0)]:
         _, grad, _ = _laplace(mu, log_tau, n, s)
         h = 1e-6
-        numeric = [(laplace_loglik(mu + h, log_tau, n, s) - laplace_loglik(mu - h, log_tau, n, s)) / (2 * h),
-                   (laplace_loglik(mu, log_tau + h, n, s) - laplace_loglik(mu, log_tau - h, n, s)) / (2 * h)]
+        numeric = [
+            (laplace_loglik(mu + h, log_tau, n, s) - laplace_loglik(mu - h, log_tau, n, s)) / (2 * h),
+            (laplace_loglik(mu, log_tau + h, n, s) - laplace_loglik(mu, log_tau - h, n, s)) / (2 * h),
+        ]
         np.testing.assert_allclose(grad, numeric, rtol=1e-6, atol=1e-6)
 
 
@@ -228,8 +238,11 @@ def test_kfold_rows_are_encoded_by_a_model_of_the_other_folds(target, rng):
     the other folds' rows alone (a level absent there gets that model's intercept)."""
     X = pd.DataFrame({"c": rng.choice([f"L{i}" for i in range(15)] + [None], 300)})
     latent = rng.normal(size=300)
-    y = {"binary": (latent > 0).astype(int), "continuous": latent + 0.5,
-         "multiclass": np.digitize(latent, [-0.5, 0.5])}[target]
+    y = {
+        "binary": (latent > 0).astype(int),
+        "continuous": latent + 0.5,
+        "multiclass": np.digitize(latent, [-0.5, 0.5]),
+    }[target]
     cv = KFold(4, shuffle=True, random_state=0)
     out = RandomInterceptCodes(cv=cv).fit_transform(X, y)
     for train, test in cv.split(X):

@@ -62,9 +62,7 @@ def test_shared_space_equals_feature_hasher(rng, width, signed):
     ref = FeatureHasher(n_features=width, input_type="string", alternate_sign=signed)
     new = pd.DataFrame({"color": ["never seen", None], "size": [1, 99], "flag": [True, None]})
     for data in (frame, new):
-        np.testing.assert_array_equal(
-            ours.transform(data).toarray(), ref.transform(token_lists(data)).toarray()
-        )
+        np.testing.assert_array_equal(ours.transform(data).toarray(), ref.transform(token_lists(data)).toarray())
 
 
 def test_per_column_blocks_equal_feature_hasher_per_column(rng):
@@ -90,11 +88,13 @@ def test_output_and_names(rng):
     out = enc.transform(make_frame(rng))
     assert sp.issparse(out) and out.format == "csr"
     assert list(enc.get_feature_names_out())[:5] == [
-        "color__hash_0", "color__hash_1", "color__hash_2", "color__hash_3", "size__hash_0"
+        "color__hash_0",
+        "color__hash_1",
+        "color__hash_2",
+        "color__hash_3",
+        "size__hash_0",
     ]
-    assert list(HashedCodes(width=2).fit(make_frame(rng)).get_feature_names_out()) == [
-        "hash_0", "hash_1"
-    ]
+    assert list(HashedCodes(width=2).fit(make_frame(rng)).get_feature_names_out()) == ["hash_0", "hash_1"]
 
 
 @pytest.mark.parametrize(

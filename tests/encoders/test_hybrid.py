@@ -20,12 +20,14 @@ def make_frame(rng, n_rows: int = 300) -> pd.DataFrame:
     """Tiny synthetic data: 2, 5 (+ missing), 16 and 40 levels."""
     few = rng.choice(list("abcde"), size=n_rows).astype(object)
     few[rng.random(n_rows) < 0.1] = None
-    return pd.DataFrame({
-        "flag": rng.random(n_rows) < 0.5,
-        "many": pd.Series([f"m{v}" for v in rng.integers(0, 40, size=n_rows)], dtype="str"),
-        "few": few,
-        "sixteen": rng.integers(0, 16, size=n_rows),
-    })
+    return pd.DataFrame(
+        {
+            "flag": rng.random(n_rows) < 0.5,
+            "many": pd.Series([f"m{v}" for v in rng.integers(0, 40, size=n_rows)], dtype="str"),
+            "few": few,
+            "sixteen": rng.integers(0, 16, size=n_rows),
+        }
+    )
 
 
 def make_target(rng, n_rows: int = 300) -> np.ndarray:
@@ -38,12 +40,14 @@ def dense(out) -> np.ndarray:
 
 @pytest.mark.parametrize(
     ("threshold", "low", "high"),
-    [(0, [], ["flag", "many", "few", "sixteen"]),
-     (2, ["flag"], ["many", "few", "sixteen"]),
-     (6, ["flag", "few"], ["many", "sixteen"]),  # "few": 5 levels + missing = 6
-     (15, ["flag", "few"], ["many", "sixteen"]),
-     (16, ["flag", "few", "sixteen"], ["many"]),
-     (40, ["flag", "many", "few", "sixteen"], [])],
+    [
+        (0, [], ["flag", "many", "few", "sixteen"]),
+        (2, ["flag"], ["many", "few", "sixteen"]),
+        (6, ["flag", "few"], ["many", "sixteen"]),  # "few": 5 levels + missing = 6
+        (15, ["flag", "few"], ["many", "sixteen"]),
+        (16, ["flag", "few", "sixteen"], ["many"]),
+        (40, ["flag", "many", "few", "sixteen"], []),
+    ],
 )
 def test_routing_by_threshold(rng, threshold, low, high):
     frame, y = make_frame(rng), make_target(rng)
@@ -105,12 +109,15 @@ def test_groups_are_not_passed_to_a_part_without_them(rng):
 
 def test_configurable_parts_and_dense_output(rng):
     frame, y = make_frame(rng), make_target(rng)
-    enc = build("hybrid", low_kind="integer", high_kind="frequency",
-                high_params={"scale": "proportion"}).fit(frame, y)
+    enc = build("hybrid", low_kind="integer", high_kind="frequency", high_params={"scale": "proportion"}).fit(frame, y)
     out = enc.transform(frame)
     assert isinstance(out, np.ndarray)  # no sparse part: dense
-    expected = np.hstack([build("integer").fit_transform(frame[["flag", "few"]]),
-                          build("frequency", scale="proportion").fit_transform(frame[["many", "sixteen"]])])
+    expected = np.hstack(
+        [
+            build("integer").fit_transform(frame[["flag", "few"]]),
+            build("frequency", scale="proportion").fit_transform(frame[["many", "sixteen"]]),
+        ]
+    )
     np.testing.assert_array_equal(out, expected)
     assert enc.get_feature_names_out().tolist() == ["flag", "few", "many__proportion", "sixteen__proportion"]
 
@@ -145,12 +152,14 @@ def test_y_is_required_only_by_a_target_part(rng):
 
 @pytest.mark.parametrize(
     ("params", "leaky"),
-    [({}, False),
-     ({"high_params": {"crossfit": "none"}}, True),
-     ({"high_params": {"crossfit": "loo"}}, True),
-     ({"high_params": {"crossfit": "ordered"}}, False),
-     ({"low_kind": "target", "low_params": {"crossfit": "none"}}, True),
-     ({"high_kind": "frequency"}, False)],
+    [
+        ({}, False),
+        ({"high_params": {"crossfit": "none"}}, True),
+        ({"high_params": {"crossfit": "loo"}}, True),
+        ({"high_params": {"crossfit": "ordered"}}, False),
+        ({"low_kind": "target", "low_params": {"crossfit": "none"}}, True),
+        ({"high_kind": "frequency"}, False),
+    ],
 )
 def test_leaky_iff_a_part_is(params, leaky):
     assert declaration("hybrid", params).leaky is leaky
@@ -172,19 +181,28 @@ def test_missing_rule_names_both_parts():
 
 @pytest.mark.parametrize(
     ("params", "match"),
-    [({"threshold": -1}, r"CardinalitySplit: parameter 'threshold' must be an integer >= 0; got -1\."),
-     ({"threshold": 2.5}, r"'threshold' must be an integer >= 0; got 2\.5\."),
-     ({"low_kind": "tgt"}, r"parameter 'low_kind' must be one of .*'onehot'.*; got 'tgt'\."),
-     ({"high_kind": "native"}, r"parameter 'high_kind' must be one of .*; got 'native'\."),
-     ({"low_params": "min_count=2"},
-      r"'low_params' must be None or a table of parameters \(dict\); got 'min_count=2'"),
-     ({"high_params": {"m": -1.0}},
-      r"'high_params' must be valid parameters of kind 'target'; got \{'m': -1\.0\}\. "
-      r"TargetStatistics: parameter 'm' must be a finite number >= 0"),
-     ({"high_params": {"smooth": 1}}, r"'high_params' must be valid parameters of kind 'target'.*"
-                                      r"has no parameter 'smooth'"),
-     ({"target_type": "ordinal"}, r"'target_type' must be one of 'auto', "),
-     ({"sparse": "yes"}, r"'sparse' must be None or true or false; got 'yes'")],
+    [
+        ({"threshold": -1}, r"CardinalitySplit: parameter 'threshold' must be an integer >= 0; got -1\."),
+        ({"threshold": 2.5}, r"'threshold' must be an integer >= 0; got 2\.5\."),
+        ({"low_kind": "tgt"}, r"parameter 'low_kind' must be one of .*'onehot'.*; got 'tgt'\."),
+        ({"high_kind": "native"}, r"parameter 'high_kind' must be one of .*; got 'native'\."),
+        (
+            {"low_params": "min_count=2"},
+            r"'low_params' must be None or a table of parameters \(dict\); got 'min_count=2'",
+        ),
+        (
+            {"high_params": {"m": -1.0}},
+            r"'high_params' must be valid parameters of kind 'target'; got \{'m': -1\.0\}\. "
+            r"TargetStatistics: parameter 'm' must be a finite number >= 0",
+        ),
+        (
+            {"high_params": {"smooth": 1}},
+            r"'high_params' must be valid parameters of kind 'target'.*"
+            r"has no parameter 'smooth'",
+        ),
+        ({"target_type": "ordinal"}, r"'target_type' must be one of 'auto', "),
+        ({"sparse": "yes"}, r"'sparse' must be None or true or false; got 'yes'"),
+    ],
 )
 def test_bad_parameter(rng, params, match):
     frame, y = make_frame(rng, 40), make_target(rng, 40)
@@ -202,7 +220,8 @@ def test_real_data_equals_the_parts():
     enc = build("hybrid", random_state=0, target_type="continuous")
     out = enc.fit_transform(frame, y).toarray()
     assert frame.columns[enc.low_columns_].tolist() == ["manufacturer", "class"]
-    high = build("target", smoothing="m-estimate", crossfit="kfold", random_state=0,
-                 target_type="continuous").fit_transform(frame[["model"]], y)
+    high = build(
+        "target", smoothing="m-estimate", crossfit="kfold", random_state=0, target_type="continuous"
+    ).fit_transform(frame[["model"]], y)
     low = build("onehot").fit_transform(frame[["manufacturer", "class"]]).toarray()
     np.testing.assert_array_equal(out, np.hstack([low, high]))

@@ -24,9 +24,7 @@ NEW = pd.DataFrame({"letter": ["a", "zzz", np.nan, "é"], "number": [2, 3, 10, 9
 
 def reference(frame, new, column, unknown, missing):
     """scikit-learn 1.9.1 OrdinalEncoder on one column (its unknown_value is one number)."""
-    ref = OrdinalEncoder(
-        handle_unknown="use_encoded_value", unknown_value=unknown, encoded_missing_value=missing
-    )
+    ref = OrdinalEncoder(handle_unknown="use_encoded_value", unknown_value=unknown, encoded_missing_value=missing)
     return ref.fit(frame[[column]]).transform(new[[column]])[:, 0]
 
 
@@ -40,20 +38,14 @@ def test_equals_ordinal_encoder(rng, unseen, missing, dtype):
     for j, column in enumerate(frame.columns):
         k = frame[column].dropna().nunique()
         expected = reference(
-            frame,
-            NEW,
-            column,
-            unknown=np.nan if unseen == "nan" else k,
-            missing=np.nan if missing == "nan" else k + 1,
+            frame, NEW, column, unknown=np.nan if unseen == "nan" else k, missing=np.nan if missing == "nan" else k + 1
         )
         np.testing.assert_array_equal(ours[:, j], expected)
 
 
 def test_fit_transform_equals_fit_then_transform(rng):
     frame = make_frame(rng)
-    np.testing.assert_array_equal(
-        IntegerCodes().fit_transform(frame), IntegerCodes().fit(frame).transform(frame)
-    )
+    np.testing.assert_array_equal(IntegerCodes().fit_transform(frame), IntegerCodes().fit(frame).transform(frame))
 
 
 def test_frequency_order(rng):

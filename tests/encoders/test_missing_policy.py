@@ -51,16 +51,19 @@ def test_target_statistic_of_missing_is_the_m_estimate_of_its_rows():
     assert not np.isclose(expected, prior)
 
 
-@pytest.mark.parametrize("kind, params, rule", [
-    ("target", {"missing": "prior"}, "the prior"),
-    ("integer", {"missing": "nan"}, "NaN"),
-    ("onehot", {"missing": "zeros"}, "a row of zeros"),
-    ("hashing", {"missing": "zeros"}, "no entry"),
-    ("frequency", {"missing": "unseen"}, "0, as an unseen value"),
-    ("contrast", {"missing": "zeros"}, "a row of zeros"),
-    ("similarity", {"missing": "zeros"}, "a vector of zeros"),
-    ("glmm", {"missing": "prior"}, "the intercept"),
-])
+@pytest.mark.parametrize(
+    "kind, params, rule",
+    [
+        ("target", {"missing": "prior"}, "the prior"),
+        ("integer", {"missing": "nan"}, "NaN"),
+        ("onehot", {"missing": "zeros"}, "a row of zeros"),
+        ("hashing", {"missing": "zeros"}, "no entry"),
+        ("frequency", {"missing": "unseen"}, "0, as an unseen value"),
+        ("contrast", {"missing": "zeros"}, "a row of zeros"),
+        ("similarity", {"missing": "zeros"}, "a vector of zeros"),
+        ("glmm", {"missing": "prior"}, "the intercept"),
+    ],
+)
 def test_missing_is_configurable_per_encoder(kind, params, rule):
     X, y = _frame()
     enc = build(kind, **params).fit(X, y)

@@ -29,13 +29,9 @@ def test_equals_one_hot_encoder(rng):
     ours = OneHotCodes().fit(frame)
     ref = OneHotEncoder(handle_unknown="ignore").fit(frame)
     np.testing.assert_array_equal(ours.transform(NEW).toarray(), ref.transform(NEW).toarray())
-    np.testing.assert_array_equal(
-        ours.fit_transform(frame).toarray(), ref.transform(frame).toarray()
-    )
+    np.testing.assert_array_equal(ours.fit_transform(frame).toarray(), ref.transform(frame).toarray())
     # same layout, our naming: "_" becomes "=", NaN becomes <missing>
-    names = [
-        n.replace("_", "=", 1).replace("=nan", "=<missing>") for n in ref.get_feature_names_out()
-    ]
+    names = [n.replace("_", "=", 1).replace("=nan", "=<missing>") for n in ref.get_feature_names_out()]
     assert list(ours.get_feature_names_out()) == names
 
 

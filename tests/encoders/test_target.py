@@ -63,15 +63,11 @@ def test_kfold_matches_sklearn_target_encoder(rng, target, ours, theirs):
     X, y = make_data(rng, target)
     reference = TargetEncoder(smooth=theirs, cv=splitter(target))
     encoder = TargetStatistics(cv=splitter(target), missing="category", **ours)
-    np.testing.assert_allclose(
-        encoder.fit_transform(X, y), reference.fit_transform(X, y), rtol=0, atol=1e-10
-    )
+    np.testing.assert_allclose(encoder.fit_transform(X, y), reference.fit_transform(X, y), rtol=0, atol=1e-10)
     np.testing.assert_allclose(encoder.transform(X), reference.transform(X), rtol=0, atol=1e-10)
     fitted = TargetStatistics(missing="category", **ours).fit(X, y)
     reference_fit = TargetEncoder(smooth=theirs).fit(X, y)  # fit: full data, no splitter
-    np.testing.assert_allclose(
-        fitted.transform(X), reference_fit.transform(X), rtol=0, atol=1e-10
-    )
+    np.testing.assert_allclose(fitted.transform(X), reference_fit.transform(X), rtol=0, atol=1e-10)
 
 
 @pytest.mark.parametrize("target", ["binary", "multiclass", "continuous"])
@@ -135,19 +131,14 @@ def test_sigmoid_blend_micci_barreca(n, positives, prior, k, f, expected):
 )
 def test_sigmoid_zero_width_is_a_step(n, expected_weight):
     total, prior = np.array([[2.0]]), np.array([[0.1]])
-    out = smooth(
-        np.array([n]), total, None, prior, None, smoothing="sigmoid", ramp_center=5, ramp_width=0
-    )
+    out = smooth(np.array([n]), total, None, prior, None, smoothing="sigmoid", ramp_center=5, ramp_width=0)
     assert out[0, 0] == pytest.approx(expected_weight * 2.0 / n + (1 - expected_weight) * 0.1)
 
 
 def test_sigmoid_infinite_width_weighs_half():
     # f -> infinity gives lambda -> 1/2 (Micci-Barreca 2001, eq. 4)
     total, prior = np.array([[50.0]]), np.array([[0.0]])
-    out = smooth(
-        np.array([50]), total, None, prior, None, smoothing="sigmoid", ramp_center=1,
-        ramp_width=1e12,
-    )
+    out = smooth(np.array([50]), total, None, prior, None, smoothing="sigmoid", ramp_center=1, ramp_width=1e12)
     assert out[0, 0] == pytest.approx(0.5 * 1.0 + 0.5 * 0.0)
 
 
@@ -180,9 +171,7 @@ def test_unseen_and_missing_values_at_transform(rng, smoothing, missing):
     # unseen -> prior: common practice, no source (scikit-learn's TargetEncoder does it too)
     X, y = make_data(rng, "binary")
     enc = TargetStatistics(smoothing=smoothing, missing=missing).fit(X, y)
-    new = pd.DataFrame(
-        {"color": ["violet", np.nan], "size": [99.0, np.nan], "shop": ["zz", np.nan]}
-    )
+    new = pd.DataFrame({"color": ["violet", np.nan], "size": [99.0, np.nan], "shop": ["zz", np.nan]})
     out = enc.transform(new)
     np.testing.assert_allclose(out[0], y.mean())  # unseen -> prior
     if missing == "prior":
@@ -247,7 +236,9 @@ def woe_data(cells: dict[str, tuple[int, int]]):
 
 
 def test_weight_of_evidence_siddiqi():
-    # (G=900 goods, B=100 bads): (300, 50) -> -0.405465, (600, 30) -> 0.798508 (Siddiqi 2006, Credit Risk Scorecards, Wiley: WoE formula; check values recalled from memory, recomputed below)
+    # (G=900 goods, B=100 bads): (300, 50) -> -0.405465, (600, 30) -> 0.798508
+    # (Siddiqi 2006, Credit Risk Scorecards, Wiley: WoE formula; check values recalled from memory,
+    # recomputed below)
     cells = {"a": (300, 50), "b": (600, 30), "c": (0, 20)}
     X, y = woe_data(cells)
     G, B = 900, 100
@@ -283,9 +274,7 @@ def test_weight_of_evidence_of_a_smoothed_rate(rng):
 def test_holdout_encodes_each_part_from_the_other(rng, fraction):
     # our own scheme (documented in _crossfit.holdout_folds), checked by direct group means
     X, y = make_data(rng, "continuous", n_rows=200)
-    enc = TargetStatistics(
-        crossfit="holdout", holdout_fraction=fraction, smoothing="none", random_state=0
-    )
+    enc = TargetStatistics(crossfit="holdout", holdout_fraction=fraction, smoothing="none", random_state=0)
     out = enc.fit_transform(X[["color"]], y)[:, 0]
     part = np.random.RandomState(0).permutation(200)[: int(round(fraction * 200))]
     held = np.zeros(200, dtype=bool)

@@ -36,4 +36,3 @@ def run_dir(sweep_dir, tmp_path):
     out = tmp_path / "run"
     shutil.copytree(sweep_dir, out, ignore=shutil.ignore_patterns("report", ".run.lock"))
     return out
-

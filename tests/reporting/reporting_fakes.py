@@ -16,8 +16,17 @@ from harness.grid import SCHEMA_VERSION
 from harness.store import NAMES
 
 
-def fake_results(rng, *, n_datasets=4, encoders=("onehot", "codes", "te"), models=("lin",),
-                 folds=3, task="binary", skill=None, leaky=()) -> pd.DataFrame:
+def fake_results(
+    rng,
+    *,
+    n_datasets=4,
+    encoders=("onehot", "codes", "te"),
+    models=("lin",),
+    folds=3,
+    task="binary",
+    skill=None,
+    leaky=(),
+) -> pd.DataFrame:
     """An invented results table with the store's columns (tiny synthetic test data).
 
     ``skill`` maps an encoder to its true mean ROC AUC shift; ``leaky`` encoders get a
@@ -26,7 +35,8 @@ def fake_results(rng, *, n_datasets=4, encoders=("onehot", "codes", "te"), model
     skill = skill or {}
     keys = pd.MultiIndex.from_product(
         [[f"d{i}" for i in range(n_datasets)], list(encoders), list(models), range(folds)],
-        names=["dataset", "encoder", "model", "fold"]).to_frame(index=False)
+        names=["dataset", "encoder", "model", "fold"],
+    ).to_frame(index=False)
     n = len(keys)
     df = pd.DataFrame({c: np.nan for c in NAMES}, index=range(n))
     df[["dataset", "encoder", "model", "fold"]] = keys
@@ -36,8 +46,9 @@ def fake_results(rng, *, n_datasets=4, encoders=("onehot", "codes", "te"), model
     df["task"] = task
     is_target = keys["encoder"].str.contains(r"(?:^|_)te", regex=True) | keys["encoder"].isin(list(leaky))
     df["encoder_kind"] = np.where(is_target, "target", keys["encoder"])
-    df["encoder_params"] = np.where(keys["encoder"].isin(list(leaky)), '{"crossfit": "none"}',
-                                    np.where(is_target, '{"crossfit": "kfold"}', "{}"))
+    df["encoder_params"] = np.where(
+        keys["encoder"].isin(list(leaky)), '{"crossfit": "none"}', np.where(is_target, '{"crossfit": "kfold"}', "{}")
+    )
     # the encoder declarations, as the runner records them
     df["uses_target"] = is_target.to_numpy()
     df["leaky"] = keys["encoder"].isin(list(leaky)).to_numpy()
@@ -76,10 +87,38 @@ SWEEP = {
     "protocol": {"folds": 3, "repeats": 1},
     "datasets": {
         # invented synthetic data: three cardinality regimes and one regression target
-        "few": {"source": "synthetic", "n_rows": 240, "cardinalities": [4, 6], "task": "binary", "seed": 1, "n_numeric": 1},
-        "some": {"source": "synthetic", "n_rows": 240, "cardinalities": [30], "task": "binary", "seed": 2, "n_numeric": 1},
-        "many": {"source": "synthetic", "n_rows": 300, "cardinalities": [160], "task": "binary", "seed": 3, "n_numeric": 1},
-        "amount": {"source": "synthetic", "n_rows": 240, "cardinalities": [25], "task": "regression", "seed": 4, "n_numeric": 1},
+        "few": {
+            "source": "synthetic",
+            "n_rows": 240,
+            "cardinalities": [4, 6],
+            "task": "binary",
+            "seed": 1,
+            "n_numeric": 1,
+        },
+        "some": {
+            "source": "synthetic",
+            "n_rows": 240,
+            "cardinalities": [30],
+            "task": "binary",
+            "seed": 2,
+            "n_numeric": 1,
+        },
+        "many": {
+            "source": "synthetic",
+            "n_rows": 300,
+            "cardinalities": [160],
+            "task": "binary",
+            "seed": 3,
+            "n_numeric": 1,
+        },
+        "amount": {
+            "source": "synthetic",
+            "n_rows": 240,
+            "cardinalities": [25],
+            "task": "regression",
+            "seed": 4,
+            "n_numeric": 1,
+        },
     },
     "encoders": {
         "onehot": {"kind": "onehot"},
@@ -108,16 +147,31 @@ def write_fake_run(df: pd.DataFrame, out, *, private=(), aliases=None) -> None:
     with Store(out) as store:
         store.write(df.to_dict("records"))
     datasets = {
-        d: {"source": "synthetic", "task": str(g["task"].iloc[0]), "private": d in private,
-            "notes": [], "categorical": ["c"], "numeric": [],
-            "fingerprint": {"rows": 300, "cardinality": {"c": int(g["max_cardinality"].max())},
-                            "max_cardinality": int(g["max_cardinality"].max())}}
+        d: {
+            "source": "synthetic",
+            "task": str(g["task"].iloc[0]),
+            "private": d in private,
+            "notes": [],
+            "categorical": ["c"],
+            "numeric": [],
+            "fingerprint": {
+                "rows": 300,
+                "cardinality": {"c": int(g["max_cardinality"].max())},
+                "max_cardinality": int(g["max_cardinality"].max()),
+            },
+        }
         for d, g in df.groupby("dataset")
     }
     manifest = {
-        "experiment": "fake", "config_hash": "h", "seed": 0, "started": "s", "finished": "f",
+        "experiment": "fake",
+        "config_hash": "h",
+        "seed": 0,
+        "started": "s",
+        "finished": "f",
         "config": {"datasets": {d: ({"alias": aliases[d]} if d in aliases else {}) for d in datasets}},
-        "packages": {"python": "3"}, "machine": {"cpus": 1}, "datasets": datasets,
+        "packages": {"python": "3"},
+        "machine": {"cpus": 1},
+        "datasets": datasets,
         "encoders": {e: {"kind": k} for e, k in zip(df["encoder"], df["encoder_kind"])},
         "models": {m: {"family": f} for m, f in zip(df["model"], df["model_family"])},
         "protocol": {"folds": 3, "repeats": 1, "medium_levels": [10, 100]},

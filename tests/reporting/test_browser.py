@@ -18,8 +18,16 @@ import pytest
 from harness.reporting import write_report
 
 CHROMIUM = "/usr/bin/chromium"
-FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-         "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+FLAGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+]
 
 pytestmark = pytest.mark.slow
 
@@ -27,9 +35,11 @@ pytestmark = pytest.mark.slow
 def _chromium() -> str:
     path = CHROMIUM if Path(CHROMIUM).exists() else shutil.which("chromium")
     if not path:
-        pytest.fail("headless Chromium is required for this test and was not found at "
-                    f"{CHROMIUM}: install it with `apt-get update && apt-get install -y "
-                    "chromium` (CI installs it in .ci/run).")
+        pytest.fail(
+            "headless Chromium is required for this test and was not found at "
+            f"{CHROMIUM}: install it with `apt-get update && apt-get install -y "
+            "chromium` (CI installs it in .ci/run)."
+        )
     return path
 
 
@@ -47,8 +57,7 @@ def page(sweep_dir, tmp_path_factory):
 
 def test_screenshot_is_not_blank(page, tmp_path):
     shot = tmp_path / "shot.png"
-    res = _run([f"--screenshot={shot}", "--window-size=1280,4000", page.as_uri()],
-               tmp_path / "profile")
+    res = _run([f"--screenshot={shot}", "--window-size=1280,4000", page.as_uri()], tmp_path / "profile")
     assert shot.exists(), res.stderr[-2000:]
     img = mpimg.imread(shot)
     assert img.shape[:2] == (4000, 1280)
@@ -56,8 +65,7 @@ def test_screenshot_is_not_blank(page, tmp_path):
 
 
 def test_every_figure_renders(page, tmp_path):
-    res = _run(["--dump-dom", "--virtual-time-budget=10000", page.as_uri()],
-               tmp_path / "profile")
+    res = _run(["--dump-dom", "--virtual-time-budget=10000", page.as_uri()], tmp_path / "profile")
     dom = res.stdout
     assert "<body" in dom, res.stderr[-2000:]
     imgs = re.findall(r"<img\b[^>]*>", dom)

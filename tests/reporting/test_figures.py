@@ -11,14 +11,14 @@ import pytest
 
 from harness import stats
 from harness.reporting import figures
+
 from reporting_fakes import fake_results
 
 ENCODERS20 = tuple(f"encoder_{i:02d}_{'x' * (i % 7)}" for i in range(20))
 
 
 def _comparisons(df, models=("lin",), metric="roc_auc"):
-    comps = [stats.compare_encoders(stats.score_matrix(df, m, metric), n_boot=200)
-             for m in models]
+    comps = [stats.compare_encoders(stats.score_matrix(df, m, metric), n_boot=200) for m in models]
     decs = {(m, metric): stats.decide(df, m, metric) for m in models}
     return comps, decs
 
@@ -66,9 +66,12 @@ def _marked(ax, skip=("<", ">")):
 def _segments(ax):
     """Row label -> (x0, x1) of each horizontal whisker drawn with ``hlines``."""
     names = dict(zip(ax.get_yticks(), (t.get_text() for t in ax.get_yticklabels())))
-    return {names[seg[0][1]]: (seg[0][0], seg[1][0])
-            for coll in ax.collections if hasattr(coll, "get_segments")
-            for seg in coll.get_segments()}
+    return {
+        names[seg[0][1]]: (seg[0][0], seg[1][0])
+        for coll in ax.collections
+        if hasattr(coll, "get_segments")
+        for seg in coll.get_segments()
+    }
 
 
 # --------------------------------------------------------------------------- helpers
@@ -93,9 +96,13 @@ def test_pareto_front_matches_brute_force(rng):
     cost[5], score[5] = cost[3], score[3]  # an exact duplicate of a point
     mask = figures.pareto_front(cost, score)
     # common practice, no source: dominated = another point no worse on both, better on one
-    dominated = [any((cost[j] <= cost[i] and score[j] <= score[i])
-                     and (cost[j] < cost[i] or score[j] < score[i]) for j in range(30))
-                 for i in range(30)]
+    dominated = [
+        any(
+            (cost[j] <= cost[i] and score[j] <= score[i]) and (cost[j] < cost[i] or score[j] < score[i])
+            for j in range(30)
+        )
+        for i in range(30)
+    ]
     assert mask.tolist() == [not d for d in dominated]
 
 
@@ -103,13 +110,20 @@ def test_pareto_front_matches_brute_force(rng):
 @pytest.fixture
 def wide(rng):
     skill = {e: rng.normal(0, 0.02) for e in ENCODERS20}
-    return fake_results(rng, n_datasets=8, encoders=ENCODERS20, models=("lin", "gb"),
-                        skill=skill, leaky=(ENCODERS20[3],))
+    return fake_results(
+        rng, n_datasets=8, encoders=ENCODERS20, models=("lin", "gb"), skill=skill, leaky=(ENCODERS20[3],)
+    )
 
 
 def test_every_figure_draws_and_saves(tmp_path, rng):
-    wide = fake_results(rng, n_datasets=5, encoders=("onehot", "codes", "te", "te_leaky"),
-                        models=("lin", "gb"), skill={"te": 0.02}, leaky=("te_leaky",))
+    wide = fake_results(
+        rng,
+        n_datasets=5,
+        encoders=("onehot", "codes", "te", "te_leaky"),
+        models=("lin", "gb"),
+        skill={"te": 0.02},
+        leaky=("te_leaky",),
+    )
     comps, recs = _comparisons(wide, ("lin", "gb"))
     made = {
         "rank": figures.rank_plot(comps, recs),
@@ -158,8 +172,11 @@ def test_rank_plot_shapes_carry_meaning_without_colour(wide):
     d = decs[("lin", "roc_auc")]
     other = next(e for e in comps[0].ranks.index if e != d.reference)
     fig = figures.rank_plot(comps, {("lin", "roc_auc"): replace(d, choice=(other,))})
-    markers = {(line.get_marker(), line.get_markerfacecolor() == "white")
-               for line in fig.axes[0].lines if len(line.get_xdata())}
+    markers = {
+        (line.get_marker(), line.get_markerfacecolor() == "white")
+        for line in fig.axes[0].lines
+        if len(line.get_xdata())
+    }
     assert ("D", False) in markers  # the choice: a filled diamond
     assert ("s", False) in markers  # the reference: a grey square
     assert any(m == "o" for m, _ in markers)
@@ -186,8 +203,9 @@ def test_group_letters_follow_the_nemenyi_cliques():
 
 
 def test_leakage_plot_marks_flagged(rng):
-    df = fake_results(rng, n_datasets=3, encoders=("onehot", "te", "te_leaky"), folds=8,
-                      skill={"te": 0.08}, leaky=("te_leaky",))
+    df = fake_results(
+        rng, n_datasets=3, encoders=("onehot", "te", "te_leaky"), folds=8, skill={"te": 0.08}, leaky=("te_leaky",)
+    )
     audit = stats.leakage_audit(df)
     assert audit["flagged"].any()  # the planted leaky setting
     fig = figures.leakage_plot(audit)
@@ -204,8 +222,10 @@ def test_heatmap_orders_rows_by_cardinality(wide):
 def test_heatmap_says_in_words_what_its_lines_mean(wide):
     texts = _texts(figures.relative_heatmap(wide, "lin", low=10, high=100))
     assert not any("lines split regimes" in t for t in texts)
-    assert any("A horizontal line separates datasets with fewer than 10, 10 to 100, and more "
-               "than 100 levels." in t for t in texts)
+    assert any(
+        "A horizontal line separates datasets with fewer than 10, 10 to 100, and more than 100 levels." in t
+        for t in texts
+    )
     one_regime = wide.assign(max_cardinality=5)  # nothing to separate: no line, no sentence
     texts = _texts(figures.relative_heatmap(one_regime, "lin"))
     assert not any("horizontal line" in t for t in texts)
@@ -217,8 +237,9 @@ def test_heatmap_says_in_words_what_its_lines_mean(wide):
 def four(rng):
     """Eight datasets (enough for rank intervals), four encoders of clearly different
     skill, one model."""
-    return fake_results(rng, n_datasets=8, encoders=("onehot", "codes", "te", "freq"),
-                        skill={"te": 0.04, "onehot": 0.02, "freq": -0.03})
+    return fake_results(
+        rng, n_datasets=8, encoders=("onehot", "codes", "te", "freq"), skill={"te": 0.04, "onehot": 0.02, "freq": -0.03}
+    )
 
 
 def test_rank_plot_draws_the_average_ranks_of_the_frame(four):
@@ -237,8 +258,11 @@ def test_rank_plot_draws_the_average_ranks_of_the_frame(four):
     for e, (lo, hi) in whiskers.items():  # the bootstrap interval of each encoder
         assert (lo, hi) == pytest.approx(tuple(comps[0].ranks.loc[e, ["ci_low", "ci_high"]]))
     assert [t.get_text() for t in ax.figure.legends[0].get_texts()] == [
-        "reference", "chosen (when not the reference)", "other",
-        "95% bootstrap interval over datasets"]
+        "reference",
+        "chosen (when not the reference)",
+        "other",
+        "95% bootstrap interval over datasets",
+    ]
 
 
 def test_cd_diagram_draws_each_rank_its_reach_and_its_letters(four):
@@ -252,8 +276,7 @@ def test_cd_diagram_draws_each_rank_its_reach_and_its_letters(four):
     assert [t.get_text() for t in ax.get_yticklabels()] == [f"{e}  ({v:.2f})" for e, v in hand.items()]
     np.testing.assert_allclose(np.asarray(ax.lines[0].get_xdata(), float), hand.to_numpy())
     bands = [c.get_paths()[0].vertices[:, 0] for c in ax.collections]
-    np.testing.assert_allclose([(b.min(), b.max()) for b in bands],
-                               np.column_stack([hand, hand + cd]))
+    np.testing.assert_allclose([(b.min(), b.max()) for b in bands], np.column_stack([hand, hand + cd]))
     assert [t.get_text() for t in ax.texts] == list(group_letters(hand, cd))
     assert f"critical difference {cd:.2f}" in ax.get_xlabel()
 
@@ -261,31 +284,44 @@ def test_cd_diagram_draws_each_rank_its_reach_and_its_letters(four):
 def test_cost_plot_puts_each_encoder_at_its_median_seconds_and_rank(four):
     comps, _ = _comparisons(four)
     ax = figures.cost_plot(comps, stats.cost_table(four)).axes[0]
-    seconds = (four["encoder_fit_s"] + four["encoder_transform_s"] + four["model_fit_s"]
-               ).groupby(four["encoder"]).median()  # per fold, median over all rows
+    seconds = (
+        (four["encoder_fit_s"] + four["encoder_transform_s"] + four["model_fit_s"]).groupby(four["encoder"]).median()
+    )  # per fold, median over all rows
     hand = _hand_ranks(four, "lin", "roc_auc")
     labels = {t.get_text(): t for t in ax.texts}
     assert set(labels) == set(hand.index)
     for e, t in labels.items():  # each label points at its encoder's point
         assert t.xy == pytest.approx((seconds[e], hand[e]))
-    points = {(round(x, 9), round(y, 9), line.get_marker()) for line in ax.lines
-              if line.get_linestyle() == "None"
-              for x, y in zip(line.get_xdata(), line.get_ydata())}
+    points = {
+        (round(x, 9), round(y, 9), line.get_marker())
+        for line in ax.lines
+        if line.get_linestyle() == "None"
+        for x, y in zip(line.get_xdata(), line.get_ydata())
+    }
     # the Pareto front by brute force: no other encoder both cheaper-or-equal and
     # better-or-equal ranked, better on one (common practice, no source)
-    front = {e for e in hand.index if not any(
-        seconds[o] <= seconds[e] and hand[o] <= hand[e] and (seconds[o], hand[o]) != (seconds[e], hand[e])
-        for o in hand.index)}
-    assert points == {(round(seconds[e], 9), round(hand[e], 9), "^" if e in front else "o")
-                      for e in hand.index}
+    front = {
+        e
+        for e in hand.index
+        if not any(
+            seconds[o] <= seconds[e] and hand[o] <= hand[e] and (seconds[o], hand[o]) != (seconds[e], hand[e])
+            for o in hand.index
+        )
+    }
+    assert points == {(round(seconds[e], 9), round(hand[e], 9), "^" if e in front else "o") for e in hand.index}
     assert {e for e, t in labels.items() if t.get_fontweight() == "bold"} == front
     assert ax.get_xscale() == "log"
 
 
 def test_heatmap_cells_are_the_shortfall_computed_from_the_frame(rng):
     # the excluded leaky setting scores best: its shortfall is negative, drawn as 0 (best)
-    df = fake_results(rng, n_datasets=5, encoders=("onehot", "codes", "te", "te_leaky"),
-                      skill={"te": 0.03, "te_leaky": 0.06}, leaky=("te_leaky",))
+    df = fake_results(
+        rng,
+        n_datasets=5,
+        encoders=("onehot", "codes", "te", "te_leaky"),
+        skill={"te": 0.03, "te_leaky": 0.06},
+        leaky=("te_leaky",),
+    )
     eligible = ("onehot", "codes", "te")
     ax = figures.relative_heatmap(df, "lin", eligible=eligible).axes[0]
     means = df.groupby(["dataset", "encoder"])["roc_auc"].mean().unstack("encoder")
@@ -333,8 +369,9 @@ def test_delta_plot_draws_each_candidates_effect_and_the_margin(four):
 
 
 def test_leakage_plot_draws_each_settings_gap_excess(rng):
-    df = fake_results(rng, n_datasets=3, encoders=("onehot", "te", "te_leaky"), folds=8,
-                      skill={"te": 0.08}, leaky=("te_leaky",))
+    df = fake_results(
+        rng, n_datasets=3, encoders=("onehot", "te", "te_leaky"), folds=8, skill={"te": 0.08}, leaky=("te_leaky",)
+    )
     audit = stats.leakage_audit(df)
     ax = figures.leakage_plot(audit).axes[0]
     drawn = _marked(ax)
@@ -390,8 +427,9 @@ def test_empty_audit_no_leakage_plot(rng):
 
 
 def test_regression_only_draws_errors_the_right_way_up(rng):
-    df = fake_results(rng, task="regression", skill={"te": 0.05},
-                      encoders=("onehot", "codes", "te", "te_in"), leaky=("te_in",))
+    df = fake_results(
+        rng, task="regression", skill={"te": 0.05}, encoders=("onehot", "codes", "te", "te_in"), leaky=("te_in",)
+    )
     comps, recs = _comparisons(df, metric="rmse")
     # ranks: the smallest RMSE ranks first
     ax = figures.rank_plot(comps, recs).axes[0]

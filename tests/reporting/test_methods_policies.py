@@ -21,8 +21,9 @@ def _tables(tmp):
     incidents = np.repeat(np.arange(60), 5)
     site = rng.integers(0, 12, 60)[incidents]
     outcome = rng.integers(0, 2, 60)[incidents]
-    grouped = pd.DataFrame({"site": [f"s{v}" for v in site], "reading": rng.normal(size=300),
-                            "incident": incidents, "y": outcome})
+    grouped = pd.DataFrame(
+        {"site": [f"s{v}" for v in site], "reading": rng.normal(size=300), "incident": incidents, "y": outcome}
+    )
     grouped.to_csv(tmp / "grouped.csv", index=False)
     # the same incidents without their id, each row copied as recorded: exact duplicates
     copies = grouped.drop(columns="reading").assign(reading=np.round(rng.normal(size=60), 3)[incidents])
@@ -37,8 +38,8 @@ def _raw(tmp, encoders=None):
             "incidents": {"source": "file", "path": str(tmp / "grouped.csv"), "target": "y", "group": "incident"},
             "copies": {"source": "file", "path": str(tmp / "copies.csv"), "target": "y"},
         },
-        "encoders": encoders or {"codes": {"kind": "integer"}, "te": {"kind": "target"},
-                                 "codes_nan": {"kind": "integer", "missing": "nan"}},
+        "encoders": encoders
+        or {"codes": {"kind": "integer"}, "te": {"kind": "target"}, "codes_nan": {"kind": "integer", "missing": "nan"}},
         "models": {"lin": {"family": "linear"}, "gb": {"family": "lightgbm", "n_estimators": 10}},
     }
 

@@ -31,8 +31,9 @@ def test_notebook_executes(sweep_dir, monkeypatch):
     monkeypatch.setenv("HARNESS_RESULTS", str(sweep_dir))
     monkeypatch.setenv("PATH", str(Path(sys.executable).parent), prepend=":")
     nb = nbformat.read(NOTEBOOK, as_version=4)
-    NotebookClient(nb, kernel_name="python3", timeout=300,
-                   resources={"metadata": {"path": str(NOTEBOOK.parent)}}).execute()
+    NotebookClient(
+        nb, kernel_name="python3", timeout=300, resources={"metadata": {"path": str(NOTEBOOK.parent)}}
+    ).execute()
     outputs = [o for c in nb.cells if c.cell_type == "code" for o in c.outputs]
     assert not [o for o in outputs if o.output_type == "error"]
     images = [o for o in outputs if "image/png" in o.get("data", {})]

@@ -28,24 +28,28 @@ def private_run(tmp_path_factory):
     shop = rng.integers(0, 12, n)
     branch = np.array([f"{MARK}_branch_{i}" for i in shop], dtype=object)
     branch[:3] = [f"{MARK}_once_{i}" for i in range(3)]  # singletons: unseen in some test fold
-    frame = pd.DataFrame({
-        "branch": branch,
-        "segment": [f"{MARK}_seg_{i}" for i in rng.integers(0, 3, n)],
-        "spend": rng.normal(size=n),
-        "churned": np.where(rng.random(n) < 0.3 + 0.04 * (shop % 5), f"{MARK}_yes", f"{MARK}_no"),
-    })
+    frame = pd.DataFrame(
+        {
+            "branch": branch,
+            "segment": [f"{MARK}_seg_{i}" for i in rng.integers(0, 3, n)],
+            "spend": rng.normal(size=n),
+            "churned": np.where(rng.random(n) < 0.3 + 0.04 * (shop % 5), f"{MARK}_yes", f"{MARK}_no"),
+        }
+    )
     path = tmp / "clients_secret.csv"
     frame.to_csv(path, index=False)
     raw = {
         "experiment": {"name": "private-check", "seed": 2},
         "protocol": {"folds": 3},
-        "datasets": {"clients": {"source": "file", "path": str(path), "target": "churned",
-                                 "alias": "client table"}},
-        "encoders": {"onehot": {"kind": "onehot"}, "te": {"kind": "target"},
-                     "woe": {"kind": "target", "statistic": "woe"},
-                     "te_none": {"kind": "target", "crossfit": "none"},
-                     # refuses unseen levels: fails, and its error message quotes one
-                     "strict": {"kind": "onehot", "unseen": "error"}},
+        "datasets": {"clients": {"source": "file", "path": str(path), "target": "churned", "alias": "client table"}},
+        "encoders": {
+            "onehot": {"kind": "onehot"},
+            "te": {"kind": "target"},
+            "woe": {"kind": "target", "statistic": "woe"},
+            "te_none": {"kind": "target", "crossfit": "none"},
+            # refuses unseen levels: fails, and its error message quotes one
+            "strict": {"kind": "onehot", "unseen": "error"},
+        },
         "models": {"lin": {"family": "linear"}},
     }
     out = tmp / "run"

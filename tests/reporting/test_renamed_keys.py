@@ -44,8 +44,10 @@ def test_the_committed_sample_holds_the_old_names(old_report):
 
 def test_the_report_of_old_names_states_the_medium_band(old_report):
     _, text = old_report
-    assert ("Cardinality regimes, by each dataset's categorical column with the most levels: "
-            "10 to 100 levels (inclusive) is medium, fewer is low, more is high.") in text
+    assert (
+        "Cardinality regimes, by each dataset's categorical column with the most levels: "
+        "10 to 100 levels (inclusive) is medium, fewer is low, more is high."
+    ) in text
 
 
 def test_the_report_of_old_names_names_the_metrics(old_report):
@@ -58,11 +60,14 @@ def test_the_report_of_old_names_names_the_metrics(old_report):
     assert "primary metric (per dataset)" not in flat
 
 
-@pytest.mark.parametrize("key, default, value", [
-    ("classification_metric", "roc_auc", "log_loss"),
-    ("regression_metric", "rmse", "mae"),
-    ("medium_levels", (10, 100), [12, 345]),
-])
+@pytest.mark.parametrize(
+    "key, default, value",
+    [
+        ("classification_metric", "roc_auc", "log_loss"),
+        ("regression_metric", "rmse", "mae"),
+        ("medium_levels", (10, 100), [12, 345]),
+    ],
+)
 def test_protocol_settings_are_read_under_the_new_name_then_the_old(key, default, value):
     old = RENAMED_PROTOCOL_KEYS[key]
     assert protocol_setting({"protocol": {old: value}}, key, default) == value
@@ -72,13 +77,18 @@ def test_protocol_settings_are_read_under_the_new_name_then_the_old(key, default
     assert protocol_setting({}, key, default) == default
 
 
-@pytest.mark.parametrize("protocol", [{"cardinality_bands": [12, 345]},
-                                      {"medium_levels": [12, 345], "cardinality_bands": [10, 100]}],
-                         ids=["old name", "new name first"])
+@pytest.mark.parametrize(
+    "protocol",
+    [{"cardinality_bands": [12, 345]}, {"medium_levels": [12, 345], "cardinality_bands": [10, 100]}],
+    ids=["old name", "new name first"],
+)
 def test_the_analysis_takes_the_medium_band_of_either_name(rng, tmp_path, protocol):
     df = fake_results(rng)
-    run = Run(directory=tmp_path, results=stats.pool_task_score(df),
-              manifest={"protocol": {"folds": 3, "repeats": 1, **protocol}})
+    run = Run(
+        directory=tmp_path,
+        results=stats.pool_task_score(df),
+        manifest={"protocol": {"folds": 3, "repeats": 1, **protocol}},
+    )
     a = analyse(run, n_boot=20)
     assert a.medium_levels == (12, 345)
     regimes = stats.dataset_regimes(df, low=12, high=345)

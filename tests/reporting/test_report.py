@@ -4,20 +4,33 @@ from __future__ import annotations
 
 import re
 
-import numpy as np
 import pytest
 
 from harness.cli import main
 from harness.errors import StoreError
 from harness.reporting import _bib, load_run, write_report
+
 from reporting_fakes import fake_results, write_fake_run
 
-SECTIONS = ["1. Which encoding", "2. Methods", "3. Results", "4. Does the choice",
-            "5. Leakage audit", "6. Cells without a score", "7. References"]
-FIGURES = ["decision_effects", "average_ranks", "critical_difference", "score_vs_cost",
-           "heatmap_lin", "heatmap_gb", "leakage_audit"]
-TABLES = ["decision", "average_ranks", "robustness", "cost", "leakage_audit",
-          "dataset_means_lin_roc_auc"]
+SECTIONS = [
+    "1. Which encoding",
+    "2. Methods",
+    "3. Results",
+    "4. Does the choice",
+    "5. Leakage audit",
+    "6. Cells without a score",
+    "7. References",
+]
+FIGURES = [
+    "decision_effects",
+    "average_ranks",
+    "critical_difference",
+    "score_vs_cost",
+    "heatmap_lin",
+    "heatmap_gb",
+    "leakage_audit",
+]
+TABLES = ["decision", "average_ranks", "robustness", "cost", "leakage_audit", "dataset_means_lin_roc_auc"]
 
 
 @pytest.fixture(scope="module")
@@ -49,7 +62,7 @@ def test_sections_in_order(report):
 
 def test_answer_names_a_choice_and_caveats(report):
     md = (report[0] / "report.md").read_text()
-    answer = md[md.index("## 1."):md.index("## 2.")]
+    answer = md[md.index("## 1.") : md.index("## 2.")]
     assert re.search(r"\*\*lin\*\* \(linear\).*: (use|keep) \*\*[\w-]+\*\*", answer)
     # the headline pools the 3 classification and 1 regression datasets of the sweep
     assert "each dataset's own metric over 4 dataset(s) against the reference" in answer
@@ -62,11 +75,10 @@ def test_decision_csv_has_the_fixed_columns(report):
     import pandas as pd
 
     t = pd.read_csv(report[0] / "tables" / "decision.csv")
-    fixed = ["model", "encoder", "reference", "verdict", "chosen", "n_datasets", "effect",
-             "lower", "upper", "p_noninferior", "prob_worse", "cost_ratio"]
-    assert list(t.columns[:len(fixed)]) == fixed
-    assert set(t["verdict"]) <= {"superior", "non-inferior", "inferior", "inconclusive",
-                                 "equivalent", "reference"}
+    fixed = "model encoder reference verdict chosen n_datasets effect lower upper p_noninferior prob_worse cost_ratio"
+    fixed = fixed.split()  # the names outside scripts read, spelled out here on purpose
+    assert list(t.columns[: len(fixed)]) == fixed
+    assert set(t["verdict"]) <= {"superior", "non-inferior", "inferior", "inconclusive", "equivalent", "reference"}
     assert t.groupby("model")["chosen"].sum().ge(1).all()
     assert not t.loc[t["encoder"] == "te_none", "chosen"].any()  # leaky: never chosen
     tex = (report[0] / "tables" / "decision.tex").read_text()
@@ -94,15 +106,16 @@ def test_methods_paragraph_from_manifest(report, sweep_dir):
 
     man = json.loads((sweep_dir / "manifest.json").read_text())
     md = (report[0] / "report.md").read_text()
-    methods = md[md.index("## 2."):md.index("## 3.")]
+    methods = md[md.index("## 2.") : md.index("## 3.")]
     assert man["config_hash"] in methods
     assert "1 × 3-fold cross-validation" in methods
     assert f"scikit-learn {man['packages']['scikit-learn']}" in methods
     assert "many (binary, 300 rows" in methods
     assert "primary metric was primary metric" not in methods
     # the sweep mixes tasks: each dataset is judged on its own task's metric
-    assert ("Each dataset was scored on the primary metric of its task: ROC AUC for "
-            "classification and RMSE for regression.") in methods
+    assert (
+        "Each dataset was scored on the primary metric of its task: ROC AUC for classification and RMSE for regression."
+    ) in methods
     assert "multiclass" not in methods  # no multiclass dataset: no note on its ROC AUC
     assert f"levelfold {man['packages']['harness']}" in methods  # the distribution's name
     for cite in ("Demšar (2006)", "Nadeau & Bengio (2003)", "Bouckaert & Frank (2004)"):
@@ -112,22 +125,32 @@ def test_methods_paragraph_from_manifest(report, sweep_dir):
 def _rows(pairs):
     import pandas as pd
 
-    return pd.DataFrame([{"dataset": f"d{i}", "encoder": "e", "model": "m", "status": "ok",
-                          "task": task, "primary_metric": metric}
-                         for i, (task, metric) in enumerate(pairs)])
+    return pd.DataFrame(
+        [
+            {"dataset": f"d{i}", "encoder": "e", "model": "m", "status": "ok", "task": task, "primary_metric": metric}
+            for i, (task, metric) in enumerate(pairs)
+        ]
+    )
 
 
-@pytest.mark.parametrize("pairs, sentence", [
-    ([("binary", "roc_auc")], "The primary metric was ROC AUC."),
-    ([("regression", "rmse")], "The primary metric was RMSE."),
-    ([("binary", "roc_auc"), ("regression", "rmse")],
-     "Each dataset was scored on the primary metric of its task: ROC AUC for classification "
-     "and RMSE for regression."),
-    ([("multiclass", "roc_auc"), ("regression", "mae")],
-     "Each dataset was scored on the primary metric of its task: ROC AUC for classification "
-     "and MAE for regression (ROC AUC: macro one-vs-rest average for multiclass targets)."),
-    ([("binary", "log_loss"), ("multiclass", "log_loss")], "The primary metric was log loss."),
-])
+@pytest.mark.parametrize(
+    "pairs, sentence",
+    [
+        ([("binary", "roc_auc")], "The primary metric was ROC AUC."),
+        ([("regression", "rmse")], "The primary metric was RMSE."),
+        (
+            [("binary", "roc_auc"), ("regression", "rmse")],
+            "Each dataset was scored on the primary metric of its task: ROC AUC for classification "
+            "and RMSE for regression.",
+        ),
+        (
+            [("multiclass", "roc_auc"), ("regression", "mae")],
+            "Each dataset was scored on the primary metric of its task: ROC AUC for classification "
+            "and MAE for regression (ROC AUC: macro one-vs-rest average for multiclass targets).",
+        ),
+        ([("binary", "log_loss"), ("multiclass", "log_loss")], "The primary metric was log loss."),
+    ],
+)
 def test_primary_metric_sentence_reads_for_every_task_mix(pairs, sentence):
     from harness.reporting.report import _primary_metric_text
 
@@ -145,8 +168,17 @@ def test_cost_table_columns_add_up_and_count_what_they_say(report):
 
     md = (report[0] / "report.md").read_text()
     cost = pd.read_csv(report[0] / "tables" / "cost.csv")
-    assert list(cost.columns) == ["encoder", "model", "encoder_s", "model_fit_s", "tune_s", "total_s",
-                                  "n_features_out", "encoded_mb", "n_cells"]
+    assert list(cost.columns) == [
+        "encoder",
+        "model",
+        "encoder_s",
+        "model_fit_s",
+        "tune_s",
+        "total_s",
+        "n_features_out",
+        "encoded_mb",
+        "n_cells",
+    ]
     assert (cost["tune_s"] == 0).all()  # an untuned run: no search time
     assert (cost["total_s"] - cost["encoder_s"] - cost["model_fit_s"] - cost["tune_s"]).abs().max() < 1e-12
     assert pd.api.types.is_integer_dtype(cost["n_features_out"])  # a count some fold had
@@ -157,8 +189,7 @@ def test_cost_table_columns_add_up_and_count_what_they_say(report):
 def test_heatmap_note_is_a_plain_sentence(report):
     md = (report[0] / "report.md").read_text()
     assert "lines split regimes" not in md
-    assert ("A horizontal line separates datasets with fewer than 10, 10 to 100, and more "
-            "than 100 levels.") in md
+    assert ("A horizontal line separates datasets with fewer than 10, 10 to 100, and more than 100 levels.") in md
 
 
 def test_report_of_a_run_with_rows_set_aside(run_dir):
@@ -171,7 +202,7 @@ def test_report_of_a_run_with_rows_set_aside(run_dir):
     run_sweep(raw, run_dir)  # nothing to compute; freq's rows are set aside
     write_report(run_dir)
     md = (run_dir / "report" / "report.md").read_text()
-    head = md[:md.index("## 1.")]
+    head = md[: md.index("## 1.")]
     assert "encoder 'freq' is no longer in the config" in head
 
 
@@ -186,26 +217,38 @@ def test_html_is_self_contained(report):
 
 def test_references_follow_the_run(report):
     bib = (report[0] / "references.bib").read_text()
-    for key in ("demsar2006", "nadeau2003", "bouckaert2004", "cestnik1990", "pargent2022",
-                "prokhorenkova2018", "benavoli2017", "schuirmann1987", "corani2015"):
+    for key in (
+        "demsar2006",
+        "nadeau2003",
+        "bouckaert2004",
+        "cestnik1990",
+        "pargent2022",
+        "prokhorenkova2018",
+        "benavoli2017",
+        "schuirmann1987",
+        "corani2015",
+    ):
         assert "{" + key + "," in bib
     for key in ("weinberger2009", "siddiqi2006", "micci2001"):
         assert key not in bib
 
 
-@pytest.mark.parametrize("spec, key", [
-    ({"kind": "hashing"}, "weinberger2009"),
-    ({"kind": "target", "statistic": "woe"}, "siddiqi2006"),
-    ({"kind": "target", "smoothing": "sigmoid"}, "micci2001"),
-    ({"kind": "target", "smoothing": "empirical-bayes"}, "micci2001"),
-])
+@pytest.mark.parametrize(
+    "spec, key",
+    [
+        ({"kind": "hashing"}, "weinberger2009"),
+        ({"kind": "target", "statistic": "woe"}, "siddiqi2006"),
+        ({"kind": "target", "smoothing": "sigmoid"}, "micci2001"),
+        ({"kind": "target", "smoothing": "empirical-bayes"}, "micci2001"),
+    ],
+)
 def test_encoder_references(spec, key):
     assert key in _bib.used_references({"e": spec})
 
 
 def test_leakage_section_lists_the_uncrossfitted_setting(report):
     md = (report[0] / "report.md").read_text()
-    leak = md[md.index("## 5."):md.index("## 6.")]
+    leak = md[md.index("## 5.") : md.index("## 6.")]
     assert "| te_none | " in leak
 
 
@@ -223,12 +266,15 @@ def _degenerate(rng, case):
     return df
 
 
-@pytest.mark.parametrize("case, note", [
-    ("one dataset", "Figure skipped: critical-difference diagram"),
-    ("one encoder", "Figure skipped: average-rank plot"),
-    ("regression only", None),
-    ("all failed for a model", "**gb** (gb)"),
-])
+@pytest.mark.parametrize(
+    "case, note",
+    [
+        ("one dataset", "Figure skipped: critical-difference diagram"),
+        ("one encoder", "Figure skipped: average-rank plot"),
+        ("regression only", None),
+        ("all failed for a model", "**gb** (gb)"),
+    ],
+)
 def test_degenerate_runs_do_not_crash(tmp_path, rng, case, note):
     write_fake_run(_degenerate(rng, case), tmp_path)
     write_report(tmp_path)
@@ -265,11 +311,12 @@ def test_private_alias_and_scrub_on_load(tmp_path, rng):
 def test_compare_lists_changes(tmp_path, rng):
     before, now = tmp_path / "before", tmp_path / "now"
     write_fake_run(fake_results(rng, skill={"te": 0.03}), before)
-    write_fake_run(fake_results(rng, n_datasets=5, encoders=("onehot", "codes", "te", "freq"),
-                                skill={"freq": 0.05}), now)
+    write_fake_run(
+        fake_results(rng, n_datasets=5, encoders=("onehot", "codes", "te", "freq"), skill={"freq": 0.05}), now
+    )
     write_report(now, compare=before)
     md = (now / "report" / "report.md").read_text()
-    part = md[md.index("## 7."):md.index("## 8.")]  # the compare section comes 7th
+    part = md[md.index("## 7.") : md.index("## 8.")]  # the compare section comes 7th
     assert "Encoders: added freq; removed none." in part
     assert "Datasets: added d4; removed none." in part
     row = re.search(r"\| lin \| ROC AUC \| (\w+) \| (\w+) \| 4 \| 5 \| (.*) \|", part)
@@ -329,7 +376,8 @@ def test_rescaled_regression_target_gives_an_identical_decision_csv(tmp_path, rn
 
     cls = fake_results(rng, n_datasets=5, skill={"te": 0.01, "codes": -0.003})
     reg = fake_results(rng, n_datasets=3, task="regression", skill={"te": 0.05}).assign(
-        dataset=lambda d: "r" + d["dataset"], cell_id=lambda d: "r" + d["cell_id"])
+        dataset=lambda d: "r" + d["dataset"], cell_id=lambda d: "r" + d["cell_id"]
+    )
     df = pd.concat([cls, reg], ignore_index=True)
     scaled = df.copy()
     scaled[["rmse", "train_rmse"]] *= 1000.0
@@ -347,8 +395,13 @@ def test_an_irrelevant_encoder_does_not_change_the_choice(tmp_path, rng):
     # model's choice, verdict and effect in decision.csv as they were
     import pandas as pd
 
-    df = fake_results(rng, n_datasets=10, encoders=("codes", "onehot", "te", "freq"),
-                      models=("lin", "gb"), skill={"codes": 0.001, "freq": -0.05})
+    df = fake_results(
+        rng,
+        n_datasets=10,
+        encoders=("codes", "onehot", "te", "freq"),
+        models=("lin", "gb"),
+        skill={"codes": 0.001, "freq": -0.05},
+    )
     import json
 
     write_fake_run(df, tmp_path / "all")

@@ -9,6 +9,7 @@ from scipy import stats as sps
 
 from harness import stats
 from harness.reporting import tables
+
 from reporting_fakes import fake_results
 
 
@@ -32,11 +33,10 @@ def test_means_wide_orders_encoders_and_formats_intervals(results):
     assert wide["te"].str.fullmatch(r"\d\.\d{3} \[\d\.\d{3}, \d\.\d{3}\]").all()
 
 
-@pytest.mark.parametrize("mean, low, high, expected", [
-    (0.8123, 0.79, 0.834, "0.812 [0.790, 0.834]"),
-    (0.5, np.nan, np.nan, "0.500"),
-    (np.nan, np.nan, np.nan, "n/a"),
-])
+@pytest.mark.parametrize(
+    "mean, low, high, expected",
+    [(0.8123, 0.79, 0.834, "0.812 [0.790, 0.834]"), (0.5, np.nan, np.nan, "0.500"), (np.nan, np.nan, np.nan, "n/a")],
+)
 def test_fmt_interval(mean, low, high, expected):
     assert tables.fmt_interval(mean, low, high) == expected
 
@@ -54,7 +54,8 @@ def test_rank_table_marks_reference_and_choice(results):
 def test_pooled_means_are_in_each_dataset_own_units(rng):
     cls = fake_results(rng, n_datasets=2)
     reg = fake_results(rng, n_datasets=2, task="regression").assign(
-        dataset=lambda d: d["dataset"].str.replace("d", "r"))
+        dataset=lambda d: d["dataset"].str.replace("d", "r")
+    )
     df = stats.pool_task_score(pd.concat([cls, reg], ignore_index=True))
     long = tables.dataset_means_table(df, stats.POOLED)
     rmse = long.loc[long["dataset"].str.startswith("r")]
@@ -86,8 +87,9 @@ def test_scrub_keeps_templated_messages():
 
 
 def test_latex_is_booktabs_and_escaped():
-    frame = pd.DataFrame({"encoder": ["te_none", "a&b"], "gap": [0.12345, np.nan],
-                          "n": [3.0, 4.0], "flag": [True, False]})
+    frame = pd.DataFrame(
+        {"encoder": ["te_none", "a&b"], "gap": [0.12345, np.nan], "n": [3.0, 4.0], "flag": [True, False]}
+    )
     tex = tables.to_latex(frame, "Gap 50% (≠)", "tab:x")
     assert r"\toprule" in tex and r"\midrule" in tex and r"\bottomrule" in tex
     assert r"\begin{tabular}{lrrl}" in tex

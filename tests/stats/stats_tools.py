@@ -8,8 +8,20 @@ import pandas as pd
 from harness import stats as S
 
 
-def table(effects: dict, *, reference="ref", seconds=None, features=None, n_folds=5,
-          metric="roc_auc", leaky=(), base=0.8, regression=(), fold_noise=None, rng=None):
+def table(
+    effects: dict,
+    *,
+    reference="ref",
+    seconds=None,
+    features=None,
+    n_folds=5,
+    metric="roc_auc",
+    leaky=(),
+    base=0.8,
+    regression=(),
+    fold_noise=None,
+    rng=None,
+):
     """Results rows where candidate ``c`` scores ``base * (1 + effects[c][i])`` on dataset i.
 
     For datasets listed in ``regression`` the metric is RMSE with ``base / exp(effect)``,
@@ -25,18 +37,31 @@ def table(effects: dict, *, reference="ref", seconds=None, features=None, n_fold
                 noise = 0.0 if fold_noise is None else fold_noise[enc][i][f]
                 reg = f"d{i}" in regression
                 value = base / np.exp(e + noise) if reg else base * (1 + e + noise)
-                rows.append({"dataset": f"d{i}", "encoder": enc, "model": "m", "repeat": 0,
-                             "fold": f, "status": "ok", "task": "regression" if reg else "binary",
-                             "primary_metric": "rmse" if reg else metric,
-                             "rmse": value if reg else np.nan,
-                             metric: np.nan if reg else value,
-                             "encoder_fit_s": (seconds or {}).get(enc, 1.0),
-                             "encoder_transform_s": 0.0, "model_fit_s": 1.0,
-                             "n_features_out": (features or {}).get(enc, 10),
-                             "n_train": 400 * (n_folds - 1), "n_test": 400,
-                             "encoder_kind": "target" if enc in leaky else enc,
-                             "uses_target": enc in leaky, "leaky": enc in leaky,
-                             "encoder_params": "{}", "max_cardinality": 5 + 50 * i})
+                rows.append(
+                    {
+                        "dataset": f"d{i}",
+                        "encoder": enc,
+                        "model": "m",
+                        "repeat": 0,
+                        "fold": f,
+                        "status": "ok",
+                        "task": "regression" if reg else "binary",
+                        "primary_metric": "rmse" if reg else metric,
+                        "rmse": value if reg else np.nan,
+                        metric: np.nan if reg else value,
+                        "encoder_fit_s": (seconds or {}).get(enc, 1.0),
+                        "encoder_transform_s": 0.0,
+                        "model_fit_s": 1.0,
+                        "n_features_out": (features or {}).get(enc, 10),
+                        "n_train": 400 * (n_folds - 1),
+                        "n_test": 400,
+                        "encoder_kind": "target" if enc in leaky else enc,
+                        "uses_target": enc in leaky,
+                        "leaky": enc in leaky,
+                        "encoder_params": "{}",
+                        "max_cardinality": 5 + 50 * i,
+                    }
+                )
     return S.pool_task_score(pd.DataFrame(rows))
 
 

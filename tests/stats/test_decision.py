@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
-from stats_tools import table
 
 from harness import stats as S
+
+from stats_tools import table
 
 RULE = S.DecisionRule(reference="ref")
 # invented per-dataset effects for 10 datasets (synthetic demo data)
@@ -34,8 +34,7 @@ def test_verdicts_follow_the_one_sided_tests():
 
 
 def test_a_cheaper_noninferior_candidate_is_chosen_and_the_sentence_numbers_are_its_own():
-    df = table({"cheap": CLOSE, "pricey": BETTER}, seconds={"ref": 3.0, "cheap": 1.0,
-                                                            "pricey": 6.0})
+    df = table({"cheap": CLOSE, "pricey": BETTER}, seconds={"ref": 3.0, "cheap": 1.0, "pricey": 6.0})
     d = _decide(df)
     assert d.choice == ("cheap",)
     row = d.table.loc["cheap"]
@@ -96,8 +95,7 @@ def test_irrelevant_alternatives_do_not_change_the_choice():
 def test_candidates_that_cannot_save_enough_cost_never_move_the_choice():
     # a cost-saving candidate close to the margin: its Holm p must not grow when encoders
     # that cannot replace the reference on cost (slower, or saving < 20 %) join the run
-    borderline = np.array([0.003, -0.012, 0.002, 0.004, -0.009, 0.001, 0.003, 0.002,
-                           -0.011, 0.005])
+    borderline = np.array([0.003, -0.012, 0.002, 0.004, -0.009, 0.001, 0.003, 0.002, -0.011, 0.005])
     secs = {"ref": 3.0, "cheap": 1.0}
     alone = _decide(table({"cheap": borderline}, seconds=secs))
     row = alone.table.loc["cheap"]
@@ -121,8 +119,7 @@ def _write_decision(df, path):
 def test_rescaling_a_regression_target_gives_an_identical_decision_csv(tmp_path):
     # two of the ten datasets are regression (RMSE); multiplying their target by 1000
     # multiplies every RMSE by 1000, which must change nothing in the decision
-    df = table({"cheap": CLOSE, "noisy": NOISY}, seconds={"ref": 3.0, "cheap": 1.0},
-               regression=("d1", "d4"))
+    df = table({"cheap": CLOSE, "noisy": NOISY}, seconds={"ref": 3.0, "cheap": 1.0}, regression=("d1", "d4"))
     scaled = df.copy()
     rows = scaled["primary_metric"] == "rmse"
     scaled.loc[rows, "rmse"] *= 1000.0
@@ -133,13 +130,12 @@ def test_rescaling_a_regression_target_gives_an_identical_decision_csv(tmp_path)
     # the old pooled raw-difference test ranked RMSE differences in their own units
     raw = S.score_matrix(df, "m", S.POOLED).oriented
     raw_scaled = S.score_matrix(scaled, "m", S.POOLED).oriented
-    assert not np.allclose((raw["noisy"] - raw["ref"]).rank(), (raw_scaled["noisy"]
-                                                                - raw_scaled["ref"]).rank())
+    assert not np.allclose((raw["noisy"] - raw["ref"]).rank(), (raw_scaled["noisy"] - raw_scaled["ref"]).rank())
 
 
 def test_one_dataset_uses_fold_pairs_and_reproduces_nadeau_bengio():
     # fold effects equal to the Nadeau & Bengio (2003) differences; 10 folds, ratio 1/9
-    nb = np.array([.02, .01, .03, -.01, .02, 0, .04, .01, .02, .01])
+    nb = np.array([0.02, 0.01, 0.03, -0.01, 0.02, 0, 0.04, 0.01, 0.02, 0.01])
     noise = {"ref": [np.zeros(10)], "cand": [nb]}
     df = table({"cand": [0.0]}, n_folds=10, fold_noise=noise)
     d = S.decide(df, "m", S.POOLED, S.DecisionRule(reference="ref", margin=0.005))
@@ -174,8 +170,14 @@ def test_missing_cells_never_drop_the_reference_or_the_choice():
 
 def test_rule_text_is_generated_from_its_numbers():
     text = S.DecisionRule(margin=0.02, alpha=0.1, min_saving=0.3, min_saving_s=0.5).describe()
-    for piece in ("−2 %", "α = 0.1", "at least 30 %", "0.5 s per fold",
-                  "Holm-adjusted within its family", "never changes the choice"):
+    for piece in (
+        "−2 %",
+        "α = 0.1",
+        "at least 30 %",
+        "0.5 s per fold",
+        "Holm-adjusted within its family",
+        "never changes the choice",
+    ):
         assert piece in text
 
 
@@ -189,8 +191,7 @@ def test_missing_cell_policy_never_drops_the_best_encoder():
     m = S.score_matrix(df, "m", S.POOLED)
     assert "best" in m.encoders and m.dropped_datasets == ("d3", "d5", "d7")
     other = table({"best": BETTER, "a": CLOSE, "b": WORSE})  # a weak encoder may go
-    other.loc[(other["encoder"] == "b") & other["dataset"].isin(["d3", "d5", "d7"]),
-              "status"] = "failed"
+    other.loc[(other["encoder"] == "b") & other["dataset"].isin(["d3", "d5", "d7"]), "status"] = "failed"
     assert S.score_matrix(other, "m", S.POOLED).dropped_encoders == ("b",)
 
 

