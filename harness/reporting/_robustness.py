@@ -22,15 +22,26 @@ def robustness_sentence(rob) -> str:
         text = f"{model}: the rule makes the headline choice in {same} of {len(part)} slices"
         if empty:
             text += f" (in {empty} of them too few datasets leave no verdict reachable, so that agreement says nothing)"
-        moved = part.loc[~part["agrees"]]
+        moved = part.loc[~part["agrees"] & part["reachable"]]
         if len(moved):
-            text += "; it chooses otherwise in " + ", ".join(
-                f"{r.axis} '{metric_name(r.slice) if r.axis == 'metric' else r.slice}' "
-                f"({r.choice}, {r.n_datasets} dataset(s))"
-                for r in moved.itertuples()
+            text += "; it chooses otherwise in " + _slice_list(moved, with_choice=True)
+        mute = part.loc[~part["agrees"] & ~part["reachable"]]
+        if len(mute):
+            text += (
+                f"; in {len(mute)} slice(s) too few datasets leave no verdict reachable, so the rule can "
+                f"only keep the reference there, which is no evidence against the choice: {_slice_list(mute)}"
             )
         out.append(text + ".")
     return " ".join(out)
+
+
+def _slice_list(rows, *, with_choice: bool = False) -> str:
+    """``axis 'slice' (choice, n dataset(s))`` for each row, comma-separated."""
+    return ", ".join(
+        f"{r.axis} '{metric_name(r.slice) if r.axis == 'metric' else r.slice}' "
+        f"({f'{r.choice}, ' if with_choice else ''}{r.n_datasets} dataset(s))"
+        for r in rows.itertuples()
+    )
 
 
 def robustness_section(a, root: Path) -> list:

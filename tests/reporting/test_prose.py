@@ -349,6 +349,21 @@ def test_robustness_sentence_names_each_slice_that_moves_the_choice():
     )
 
 
+def test_robustness_sentence_never_counts_a_slice_too_small_for_a_verdict_as_a_change():
+    # the headline switched to 'te'; a 2-dataset slice can only keep the reference 'codes'
+    rob = _rob(
+        ("lin", "metric", "log_loss", "onehot", 8, True, False),
+        ("lin", "regime", "low", "codes", 2, False, False),
+        ("lin", "regime", "high", "te", 6, True, True),
+    )
+    assert robustness_sentence(rob) == (
+        "lin: the rule makes the headline choice in 1 of 3 slices; it chooses otherwise in "
+        "metric 'log loss' (onehot, 8 dataset(s)); in 1 slice(s) too few datasets leave no verdict "
+        "reachable, so the rule can only keep the reference there, which is no evidence against the "
+        "choice: regime 'low' (2 dataset(s))."
+    )
+
+
 def test_robustness_sentence_has_one_clause_per_model_in_table_order():
     rob = _rob(
         ("lin", "regime", "low", "codes", 6, True, False),
@@ -370,13 +385,12 @@ def test_robustness_section_states_the_sentence_of_the_run(tmp_path, rng):
     rob = a.robustness.set_index(["axis", "slice"])
     assert not rob.loc[("regime", "low"), "agrees"] and not rob.loc[("regime", "low"), "reachable"]
     sentence = robustness_sentence(a.robustness)
-    moved = [
-        f"regime '{s}' (ref, {rob.loc[('regime', s), 'n_datasets']} dataset(s))" for s in ("low", "medium", "high")
-    ]
+    mute = [f"regime '{s}' ({rob.loc[('regime', s), 'n_datasets']} dataset(s))" for s in ("low", "medium", "high")]
     same = int(a.robustness["agrees"].sum())
     assert sentence == (
-        f"lin: the rule makes the headline choice in {same} of {len(rob)} "
-        f"slices; it chooses otherwise in {', '.join(moved)}."
+        f"lin: the rule makes the headline choice in {same} of {len(rob)} slices; in 3 slice(s) too few "
+        "datasets leave no verdict reachable, so the rule can only keep the reference there, which is no "
+        f"evidence against the choice: {', '.join(mute)}."
     )
     paras = [b.text for b in robustness_section(a, tmp_path / "report") if isinstance(b, Para)]
     assert len(paras) == 1 and paras[0].startswith(ROBUST_PARA) and paras[0].endswith(sentence)
