@@ -316,66 +316,59 @@ def _rob(*rows):
     return frame[stats.ROBUSTNESS_COLUMNS]
 
 
-def test_robustness_sentence_without_slices():
-    assert robustness_sentence(_rob()) == "No slice differs from the headline analysis: nothing to vary."
-
-
-def test_robustness_sentence_when_every_slice_agrees():
-    rob = _rob(("lin", "metric", "log_loss", "te", 8, True, True), ("lin", "regime", "high", "te", 5, True, True))
-    assert robustness_sentence(rob) == "lin: the rule makes the headline choice in 2 of 2 slices."
-
-
-def test_robustness_sentence_discounts_agreement_where_no_verdict_is_reachable():
-    rob = _rob(
-        ("lin", "metric", "log_loss", "te", 8, True, True),
-        ("lin", "regime", "low", "te", 2, False, True),
-        ("lin", "regime", "high", "te", 3, False, True),
-    )
-    assert robustness_sentence(rob) == (
+ROBUSTNESS_SENTENCES = {  # case -> (rows of _rob(), the sentence)
+    "without_slices": ((), "No slice differs from the headline analysis: nothing to vary."),
+    "when_every_slice_agrees": (
+        (("lin", "metric", "log_loss", "te", 8, True, True), ("lin", "regime", "high", "te", 5, True, True)),
+        "lin: the rule makes the headline choice in 2 of 2 slices.",
+    ),
+    "discounts_agreement_where_no_verdict_is_reachable": (
+        (
+            ("lin", "metric", "log_loss", "te", 8, True, True),
+            ("lin", "regime", "low", "te", 2, False, True),
+            ("lin", "regime", "high", "te", 3, False, True),
+        ),
         "lin: the rule makes the headline choice in 3 of 3 slices (in 2 of them too few "
-        "datasets leave no verdict reachable, so that agreement says nothing)."
-    )
-
-
-def test_robustness_sentence_names_each_slice_that_moves_the_choice():
-    rob = _rob(
-        ("lin", "metric", "log_loss", "codes", 8, True, False),
-        ("lin", "metric", "accuracy", "te", 8, True, True),
-        ("lin", "regime", "high", "onehot | codes", 5, True, False),
-    )
-    assert robustness_sentence(rob) == (
+        "datasets leave no verdict reachable, so that agreement says nothing).",
+    ),
+    "names_each_slice_that_moves_the_choice": (
+        (
+            ("lin", "metric", "log_loss", "codes", 8, True, False),
+            ("lin", "metric", "accuracy", "te", 8, True, True),
+            ("lin", "regime", "high", "onehot | codes", 5, True, False),
+        ),
         "lin: the rule makes the headline choice in 1 of 3 slices; it chooses otherwise in "
-        "metric 'log loss' (codes, 8 dataset(s)), regime 'high' (onehot | codes, 5 dataset(s))."
-    )
-
-
-def test_robustness_sentence_never_counts_a_slice_too_small_for_a_verdict_as_a_change():
-    # the headline switched to 'te'; a 2-dataset slice can only keep the reference 'codes'
-    rob = _rob(
-        ("lin", "metric", "log_loss", "onehot", 8, True, False),
-        ("lin", "regime", "low", "codes", 2, False, False),
-        ("lin", "regime", "high", "te", 6, True, True),
-    )
-    assert robustness_sentence(rob) == (
+        "metric 'log loss' (codes, 8 dataset(s)), regime 'high' (onehot | codes, 5 dataset(s)).",
+    ),
+    "never_counts_a_slice_too_small_for_a_verdict_as_a_change": (
+        (
+            ("lin", "metric", "log_loss", "onehot", 8, True, False),
+            ("lin", "regime", "low", "codes", 2, False, False),
+            ("lin", "regime", "high", "te", 6, True, True),
+        ),
         "lin: the rule makes the headline choice in 1 of 3 slices; it chooses otherwise in "
         "metric 'log loss' (onehot, 8 dataset(s)); in 1 slice(s) too few datasets leave no verdict "
         "reachable, so the rule can only keep the reference there, which is no evidence against the "
-        "choice: regime 'low' (2 dataset(s))."
-    )
-
-
-def test_robustness_sentence_has_one_clause_per_model_in_table_order():
-    rob = _rob(
-        ("lin", "regime", "low", "codes", 6, True, False),
-        ("gb", "regime", "low", "te", 2, False, True),
-        ("gb", "metric", "accuracy", "te", 8, True, True),
-    )
-    assert robustness_sentence(rob) == (
+        "choice: regime 'low' (2 dataset(s)).",
+    ),
+    "has_one_clause_per_model_in_table_order": (
+        (
+            ("lin", "regime", "low", "codes", 6, True, False),
+            ("gb", "regime", "low", "te", 2, False, True),
+            ("gb", "metric", "accuracy", "te", 8, True, True),
+        ),
         "lin: the rule makes the headline choice in 0 of 1 slices; it chooses otherwise in "
         "regime 'low' (codes, 6 dataset(s)). "
         "gb: the rule makes the headline choice in 2 of 2 slices (in 1 of them too few "
-        "datasets leave no verdict reachable, so that agreement says nothing)."
-    )
+        "datasets leave no verdict reachable, so that agreement says nothing).",
+    ),
+}
+
+
+@pytest.mark.parametrize("case", ROBUSTNESS_SENTENCES)
+def test_robustness_sentence(case):
+    rows, sentence = ROBUSTNESS_SENTENCES[case]
+    assert robustness_sentence(_rob(*rows)) == sentence
 
 
 def test_robustness_section_states_the_sentence_of_the_run(tmp_path, rng):
