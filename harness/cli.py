@@ -291,12 +291,32 @@ def _dry_run(the_plan, out: Path) -> int:
     stale = len(done - {c.cell_id for c in the_plan.grid})
     if stale:
         print(f"  {stale} stored row(s) of cells not in this config would be set aside as superseded.")
+    for label, ds in the_plan.datasets.items():
+        print(_dataset_preview(label, ds))
     pending = [c.path for c in the_plan.cells if c.cell_id not in done]
     for path in pending[:DRY_RUN_SHOWN]:
         print("  todo " + path)
     if len(pending) > DRY_RUN_SHOWN:
         print(f"  ... and {len(pending) - DRY_RUN_SHOWN} more to compute (finished cells are not listed)")
     return 0
+
+
+def _dataset_preview(label: str, ds) -> str:
+    """What a run would read from one dataset: rows, task, target and each column's role.
+
+    Column names and level counts only, never a value, so that a private file's preview
+    shows what the report would.
+    """
+    levels = ", ".join(f"{c} ({ds.X[c].nunique()} levels)" for c in ds.categorical) or "none"
+    lines = [
+        f"  dataset {label}: {len(ds.X):,} rows, {ds.task}, target '{ds.y.name}'",
+        f"    categorical ({len(ds.categorical)}): {levels}",
+        f"    numeric ({len(ds.numeric)}): {', '.join(map(str, ds.numeric)) or 'none'}",
+    ]
+    if ds.groups is not None:
+        lines.append(f"    groups: '{ds.groups.name}' ({ds.groups.nunique()} groups)")
+    lines += [f"    note: {n}" for n in ds.notes]
+    return "\n".join(lines)
 
 
 def cmd_status(args) -> int:

@@ -80,6 +80,32 @@ def test_one_dataset_with_few_folds_warns_with_the_repeats_needed(tmp_path, caps
     assert "5 folds x 1 repeat(s) = 5 outer folds" in err and "`protocol.repeats = 2`" in err
 
 
+def test_dry_run_previews_the_columns_detected_in_a_data_file(tmp_path, capsys):
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(1)  # invented table (demo data): a bakery chain's sell-outs
+    frame = pd.DataFrame(
+        {
+            "branch": rng.choice([f"BRANCH_{i}" for i in range(23)], 300),
+            "weekday": rng.choice(["MON", "TUE", "SAT"], 300),
+            "temp_c": rng.normal(15, 5, 300).round(1),
+            "sold_out": rng.integers(0, 2, 300),
+        }
+    )
+    frame.to_csv(tmp_path / "bakery.csv", index=False)
+    args = ["run", "--data", str(tmp_path / "bakery.csv"), "--target", "sold_out", "--dry-run"]
+    assert main([*args, "--config", "configs/quickstart.toml", "--out", str(tmp_path / "o")]) == 0
+    out = capsys.readouterr().out
+    n_branch, n_day = frame["branch"].nunique(), frame["weekday"].nunique()
+    assert (
+        "  dataset bakery: 300 rows, binary, target 'sold_out'\n"
+        f"    categorical (2): branch ({n_branch} levels), weekday ({n_day} levels)\n"
+        "    numeric (1): temp_c\n"
+    ) in out
+    assert "BRANCH_" not in out and "SAT" not in out  # names and counts only, never a value
+
+
 def test_dry_run_lists_only_cells_to_compute_and_counts_the_rest(tmp_path, capsys):
     config = tiny_config(
         tmp_path / "many.toml",
