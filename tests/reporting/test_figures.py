@@ -454,3 +454,33 @@ def test_regression_only_draws_errors_the_right_way_up(rng):
         x, _ = drawn[f"te_in vs te · d{i}"]
         assert x == pytest.approx(rel[f"d{i}", "te_in"] - rel[f"d{i}", "te"], abs=1e-12)
         assert x > 0.3  # the planted leak: training error 0.4 below the test error
+
+
+def test_regime_plot_draws_each_encoders_effect_under_each_regime(rng):
+    from harness.reporting._tuning import REGIME_MARKERS, regime_plot
+
+    frames = {
+        "defaults": fake_results(rng, n_datasets=8, encoders=("onehot", "codes", "te"), skill={"te": 0.03}),
+        "tuned-model": fake_results(rng, n_datasets=8, encoders=("onehot", "codes", "te"), skill={"codes": 0.02}),
+    }
+    rule = stats.DecisionRule(reference="onehot")
+    decs = {("lin", r): stats.decide(df, "lin", "roc_auc", rule) for r, df in frames.items()}
+    ax = regime_plot(decs).axes[0]
+    names = [t.get_text() for t in ax.get_yticklabels()]
+    assert names == ["codes", "te"]  # the candidates, reference left out
+    by_marker = {mk: r for r, (mk, _) in REGIME_MARKERS.items()}
+    drawn = {}
+    for line in ax.lines:
+        if line.get_linestyle() == "None":
+            for x, y in zip(line.get_xdata(), line.get_ydata()):
+                drawn[(names[round(y)], by_marker[line.get_marker()])] = float(x)
+    for regime, df in frames.items():  # x: % effect against onehot, by hand from the frame
+        means = df.groupby(["dataset", "encoder"])["roc_auc"].mean().unstack("encoder")
+        for e in names:
+            effect = _hodges_lehmann((means[e] - means["onehot"]) / means["onehot"].abs())
+            assert drawn[(e, regime)] == pytest.approx(100 * effect, abs=1e-9)
+    dashed = [line for line in ax.lines if line.get_linestyle() == "--"]
+    margin = decs[("lin", "defaults")].rule.margin
+    assert len(dashed) == 1 and dashed[0].get_xdata()[0] == pytest.approx(-100 * margin)
+    legend = [t.get_text() for t in ax.figure.legends[0].get_texts()]
+    assert legend == ["defaults", "tuned-model"]
