@@ -88,7 +88,11 @@ def _add_run_parser(sub) -> None:
         "--retry-failed", action="store_true", help="also rerun cells recorded as failed, timeout or out-of-memory"
     )
     run.add_argument("--only", metavar="PATTERN", help="only cells whose dataset/encoder/model label matches")
-    run.add_argument("--dry-run", action="store_true", help="print the grid size and the cells, run nothing")
+    run.add_argument(
+        "--dry-run",
+        action="store_true",
+        help="print the grid size, each dataset's rows and column roles, and the cells to compute; run nothing",
+    )
     run.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -238,7 +242,7 @@ def cmd_run(args) -> int:
         from harness.store import describe_set_aside
 
         _say("note: " + describe_set_aside(summary.set_aside))
-    from harness.datasets._record import CHECK
+    from harness.datasets import CHECK
 
     for label, ds in the_plan.datasets.items():
         for note in ds.notes:
@@ -272,6 +276,8 @@ DRY_RUN_SHOWN = 40  # cells to compute listed by --dry-run; the rest are counted
 
 
 def _dry_run(the_plan, out: Path) -> int:
+    import pandas as pd
+
     from harness.store import STORE_NAME, Store, read_results, table_only
 
     done = set()
@@ -283,11 +289,13 @@ def _dry_run(the_plan, out: Path) -> int:
     cfg = the_plan.config
     n = len(the_plan.cells)
     todo = sum(c.cell_id not in done for c in the_plan.cells)
-    print(
-        f"{cfg.name}: {len(cfg.datasets)} datasets x {len(cfg.encoders)} encoders x {len(cfg.models)} models x "
-        f"{cfg.protocol.repeats} repeats x {cfg.protocol.folds} folds = {n} cells; "
-        f"{todo} to compute, {n - todo} already in {out}."
-    )
+    sizes = [(len(cfg.datasets), "dataset"), (len(cfg.encoders), "encoder"), (len(cfg.models), "model")]
+    sizes += [(cfg.protocol.repeats, "repeat"), (cfg.protocol.folds, "fold")]
+    grid = " x ".join(f"{k} {word}{'' if k == 1 else 's'}" for k, word in sizes)
+    regimes = pd.Series([c.regime for c in the_plan.cells]).value_counts(sort=False)
+    if len(regimes) > 1:  # a model without a search space has no tuned cells: not a product
+        grid = f"({grid}) under {len(regimes)} tuning regimes ({', '.join(f'{r} {k}' for r, k in regimes.items())})"
+    print(f"{cfg.name}: {grid} = {n} cells; {todo} to compute, {n - todo} already in {out}.")
     stale = len(done - {c.cell_id for c in the_plan.grid})
     if stale:
         print(f"  {stale} stored row(s) of cells not in this config would be set aside as superseded.")

@@ -261,7 +261,7 @@ def private_config(
 ) -> Config:
     """The encoders, models and protocol of ``base`` with one private file as the dataset.
 
-    Used by ``harness run --data FILE --target COLUMN [--config BASE] [--alias NAME]
+    Used by ``levelfold run --data FILE --target COLUMN [--config BASE] [--alias NAME]
     [--description TEXT]``. The experiment is named after ``alias`` (else "private
     dataset"), its description is ``description`` (never the borrowed config's), no output
     carries the file's path (only its name, and not even that with an alias), and the

@@ -153,7 +153,11 @@ def parse_space(table, where: str, path: str, allowed, check_value) -> tuple:
     dims = []
     for name, spec in sorted(table.items()):
         if name not in allowed:
-            shown = ", ".join(allowed) if len(allowed) <= 40 else f"the {len(allowed)} names `harness list` shows"
+            shown = (
+                ", ".join(allowed)
+                if len(allowed) <= 40
+                else f"the {len(allowed)} parameters of the estimator's signature"
+            )
             raise ConfigError(
                 f"`{where}.{name}` in {path}: unknown parameter '{name}'; allowed: {shown}.{closest(name, allowed)}"
             )

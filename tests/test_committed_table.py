@@ -68,3 +68,27 @@ def test_a_damaged_committed_table_is_a_store_problem_with_the_next_step(tmp_pat
     err = " ".join(status.stderr.split())
     assert status.returncode == 3 and "Traceback" not in err
     assert "results.parquet cannot be read" in err and "restore it" in err
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(
+    ("config", "sample"),
+    [("configs/team-default.toml", "results/team-default"), ("configs/tuned-sample.toml", "results/tuned-sample")],
+)
+def test_each_committed_sample_holds_every_cell_of_its_shipped_config(config, sample, tmp_path):
+    # a change to a cell's identity (a model's parameters, a seed) without regenerating
+    # the sample would make a run into it recompute those cells: README promises it does not
+    import shutil
+
+    from _runtools import ROOT
+
+    for name in ("results.parquet", "manifest.json"):
+        shutil.copy(ROOT / sample / name, tmp_path / name)
+    dry = run("run", ROOT / config, "--out", tmp_path, "--dry-run")
+    assert dry.returncode == 0, dry.stderr
+    n = len(pd.read_parquet(tmp_path / "results.parquet"))
+    head = dry.stdout.splitlines()[0]
+    assert f"= {n} cells; 0 to compute, {n} already in" in head
+    assert "set aside" not in dry.stdout
+    if "tuned" in config:  # half the cells under each regime: the header says so, not a product
+        assert f"under 2 tuning regimes (defaults {n // 2}, tuned-model {n // 2}) = {n} cells" in head

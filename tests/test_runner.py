@@ -141,7 +141,7 @@ def test_cli_run_dry_run_status_export(tmp_path, capsys):
     cfg = tiny_config(tmp_path / "tiny.toml", n_rows=120, cardinalities=(5,))
     out = tmp_path / "out"
     assert main(["run", str(cfg), "--out", str(out), "--dry-run"]) == 0
-    assert "1 datasets x 1 encoders x 1 models x 1 repeats x 2 folds = 2 cells; 2 to compute" in capsys.readouterr().out
+    assert "1 dataset x 1 encoder x 1 model x 1 repeat x 2 folds = 2 cells; 2 to compute" in capsys.readouterr().out
     assert main(["run", str(cfg), "--out", str(out), "--quiet"]) == 0
     assert "2 cells (2 computed, 0 reused)" in capsys.readouterr().out
     assert main(["status", str(out)]) == 0

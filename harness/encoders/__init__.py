@@ -51,6 +51,7 @@ RENAMED = {"hashing": {"n_components": "width"}}
 
 __all__ = [
     "BUILTIN_KINDS",
+    "CategoricalEncoder",
     "ENCODERS",
     "KINDS",
     "RENAMED",
@@ -171,7 +172,7 @@ def register(kind: str, cls) -> None:
     kind : str
         The config name (``kind = "..."``), a Python identifier not registered yet.
     cls : type
-        A subclass of ``harness.encoders._base.CategoricalEncoder``.
+        A subclass of ``harness.encoders.CategoricalEncoder``.
 
     Raises
     ------
@@ -181,8 +182,7 @@ def register(kind: str, cls) -> None:
     global KINDS
     if not (isinstance(cls, type) and issubclass(cls, CategoricalEncoder)):
         raise ConfigError(
-            f"encoder kind '{kind}' must be a class derived from "
-            f"harness.encoders._base.CategoricalEncoder; got {cls!r}."
+            f"encoder kind '{kind}' must be a class derived from harness.encoders.CategoricalEncoder; got {cls!r}."
         )
     _registry.add(ENCODERS, kind, cls, "encoder kind")
     KINDS = tuple(sorted(ENCODERS))

@@ -19,6 +19,19 @@ COST_PARTS = {
 
 
 # ---------------------------------------------------------------------------------- cost
+def fold_seconds(df: pd.DataFrame) -> pd.Series:
+    """Seconds each row's fold spent on the parts of :data:`COST_PARTS`, summed.
+
+    What the decision rule weighs as an encoding's cost; a missing or empty ``tune_s``
+    counts 0 (an untuned cell searched nothing).
+    """
+    total = pd.Series(0.0, index=df.index)
+    for c in (c for cols in COST_PARTS.values() for c in cols if c in df.columns):
+        part = df[c].astype(float)
+        total = total + (part.fillna(0.0) if c == "tune_s" else part)
+    return total
+
+
 def _column(df: pd.DataFrame, name: str) -> pd.Series:
     return df[name].astype(float) if name in df.columns else pd.Series(np.nan, df.index)
 

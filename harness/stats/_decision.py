@@ -21,6 +21,7 @@ from harness.stats._common import (
     pool_task_score,
     unit_free_delta,
 )
+from harness.stats._cost import fold_seconds
 from harness.stats._leakage import leaky_settings
 from harness.stats._matrix import score_matrix
 from harness.stats._rule import SHOWN_NOT_WORSE, DecisionRule
@@ -141,9 +142,7 @@ def _cells(results: pd.DataFrame, model: str, metric: str) -> pd.DataFrame:
     df = df.loc[df["model"] == model]
     values, gib = metric_values(df, metric)
     # a tuned cell's search is part of what the encoding costs to use (0 untuned)
-    cost = sum(df[c].astype(float) if c in df else 0.0 for c in ("encoder_fit_s", "encoder_transform_s", "model_fit_s"))
-    if "tune_s" in df:
-        cost = cost + df["tune_s"].astype(float).fillna(0.0)
+    cost = fold_seconds(df)
     feats = df["n_features_out"].astype(float) if "n_features_out" in df else np.nan
     out = pd.DataFrame(
         {
