@@ -1,8 +1,9 @@
 """Runs written before the config keys were renamed still report correctly.
 
-The committed sample ``results/tuned-sample`` holds the earlier names in its manifest
-(``primary``, ``primary_regression``, ``cardinality_bands`` under ``protocol``; ``max_rows``
-under ``config.datasets``); every reader takes the new name first, then the old one.
+The manifest the committed sample ``results/tuned-sample`` shipped before the renames
+(``tests/old_manifests/tuned-sample.json``) holds the earlier names (``primary``,
+``primary_regression``, ``cardinality_bands`` under ``protocol``; ``max_rows`` under
+``config.datasets``); every reader takes the new name first, then the old one.
 """
 
 from __future__ import annotations
@@ -22,13 +23,15 @@ from harness.reporting._run import RENAMED_PROTOCOL_KEYS, Run, protocol_setting
 from reporting_fakes import fake_results
 
 SAMPLE = Path(__file__).resolve().parents[2] / "results" / "tuned-sample"
+OLD_MANIFEST = Path(__file__).resolve().parents[1] / "old_manifests" / "tuned-sample.json"
 
 
 @pytest.fixture(scope="module")
 def old_report(tmp_path_factory) -> tuple[dict, str]:
-    """The committed tuned sample copied and reported: (its manifest, report.md)."""
+    """The committed tuned sample with its earlier manifest, reported: (manifest, report.md)."""
     out = tmp_path_factory.mktemp("old_names") / "tuned-sample"
-    shutil.copytree(SAMPLE, out, ignore=shutil.ignore_patterns("report", ".run.lock"))
+    shutil.copytree(SAMPLE, out, ignore=shutil.ignore_patterns("report", "results.sqlite*", "results.csv"))
+    shutil.copy(OLD_MANIFEST, out / "manifest.json")
     write_report(out)
     manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
     return manifest, (out / "report" / "report.md").read_text(encoding="utf-8")
