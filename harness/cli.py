@@ -276,7 +276,7 @@ DRY_RUN_SHOWN = 40  # cells to compute listed by --dry-run; the rest are counted
 
 
 def _dry_run(the_plan, out: Path) -> int:
-    import pandas as pd
+    from collections import Counter
 
     from harness.store import STORE_NAME, Store, read_results, table_only
 
@@ -292,7 +292,7 @@ def _dry_run(the_plan, out: Path) -> int:
     sizes = [(len(cfg.datasets), "dataset"), (len(cfg.encoders), "encoder"), (len(cfg.models), "model")]
     sizes += [(cfg.protocol.repeats, "repeat"), (cfg.protocol.folds, "fold")]
     grid = " x ".join(f"{k} {word}{'' if k == 1 else 's'}" for k, word in sizes)
-    regimes = pd.Series([c.regime for c in the_plan.cells]).value_counts(sort=False)
+    regimes = Counter(c.regime for c in the_plan.cells)
     if len(regimes) > 1:  # a model without a search space has no tuned cells: not a product
         grid = f"({grid}) under {len(regimes)} tuning regimes ({', '.join(f'{r} {k}' for r, k in regimes.items())})"
     print(f"{cfg.name}: {grid} = {n} cells; {todo} to compute, {n - todo} already in {out}.")
@@ -315,9 +315,10 @@ def _dataset_preview(label: str, ds) -> str:
     Column names and level counts only, never a value, so that a private file's preview
     shows what the report would.
     """
-    levels = ", ".join(f"{c} ({ds.X[c].nunique()} levels)" for c in ds.categorical) or "none"
+    cardinality = ds.fingerprint["cardinality"]
+    levels = ", ".join(f"{c} ({cardinality[str(c)]} levels)" for c in ds.categorical) or "none"
     lines = [
-        f"  dataset {label}: {len(ds.X):,} rows, {ds.task}, target '{ds.y.name}'",
+        f"  dataset {label}: {ds.fingerprint['rows']:,} rows, {ds.task}, target '{ds.y.name}'",
         f"    categorical ({len(ds.categorical)}): {levels}",
         f"    numeric ({len(ds.numeric)}): {', '.join(map(str, ds.numeric)) or 'none'}",
     ]

@@ -35,11 +35,15 @@ def robustness_sentence(rob) -> str:
     return " ".join(out)
 
 
+def _slice_name(axis: str, name: str) -> str:
+    """A slice as the report names it: a metric by its display name, a regime as is."""
+    return metric_name(name) if axis == "metric" else name
+
+
 def _slice_list(rows, *, with_choice: bool = False) -> str:
     """``axis 'slice' (choice, n dataset(s))`` for each row, comma-separated."""
     return ", ".join(
-        f"{r.axis} '{metric_name(r.slice) if r.axis == 'metric' else r.slice}' "
-        f"({f'{r.choice}, ' if with_choice else ''}{r.n_datasets} dataset(s))"
+        f"{r.axis} '{_slice_name(r.axis, r.slice)}' ({f'{r.choice}, ' if with_choice else ''}{r.n_datasets} dataset(s))"
         for r in rows.itertuples()
     )
 
@@ -64,7 +68,7 @@ def robustness_section(a, root: Path) -> list:
     shown = rob.assign(
         effect=rob["effect"].map(lambda v: pct(v) if v == v else "—"),
         lower=rob["lower"].map(lambda v: pct(v) if v == v else "—"),
-        slice=[metric_name(s) if ax == "metric" else s for ax, s in zip(rob["axis"], rob["slice"])],
+        slice=[_slice_name(ax, s) for ax, s in zip(rob["axis"], rob["slice"])],
     )
     out.append(
         table(
