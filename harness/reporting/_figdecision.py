@@ -62,7 +62,7 @@ def _delta_panel(ax, d) -> None:
     n = d.n_datasets if d.method == "datasets" else int(t["n_folds"].max())
     unit = "datasets" if d.method == "datasets" else "folds of one dataset"
     ax.set_xlabel(f"effect against {d.reference}, %  (right = better)")
-    note = "  (no bounds: too few datasets for any test to reject)" if unbounded.all() else ""
+    note = "\n(no bounds: too few datasets for any test to reject)" if unbounded.all() else ""
     ax.set_title(f"{d.model} · {metric_name(d.metric)} · {n} {unit}{note}", loc="left")
 
 
